@@ -1,0 +1,10 @@
+"""chainplan: signal budgets of sensor readout chains."""
+from __future__ import annotations
+
+__version__ = "0.1.0"
+
+from .api import budget_for as budget  # noqa: E402
+from .api import load, loads  # noqa: E402
+from .errors import SpecError  # noqa: E402
+
+__all__ = ["load", "loads", "budget", "SpecError", "__version__"]

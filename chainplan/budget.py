@@ -1,0 +1,230 @@
+"""The budget: DC levels, swing and headroom at every node, loading loss at every
+interface, gain over frequency and band edges — the figures chainplan exists
+to compute.  :func:`evaluate` works on per-sample parameter arrays (shape
+``(samples, 1)``) so tolerance runs share it; :func:`analyse` is the nominal
+budget that the CLI prints."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .cascade import AcResult, run_ac
+from .dcpass import DcResult, solve_dc
+from .errors import SpecError
+from .model import Chain
+
+SQRT_HALF = 1.0 / np.sqrt(2.0)
+
+
+def nominal_params(chain: Chain) -> dict:
+    """Per-stage parameter dicts with the chain temperature added."""
+    return {st.name: {**st.params, "temp_k": chain.temp_k} for st in chain.all_stages}
+
+
+def frequency_grid(chain: Chain) -> np.ndarray:
+    """The reference frequency first, then the log-spaced analysis span."""
+    a = chain.analysis
+    return np.concatenate(([a.f_ref_hz], np.geomspace(a.f_start_hz, a.f_stop_hz, a.points)))
+
+
+@dataclass
+class Evaluation:
+    """Raw arrays of one analysis (nominal: one sample).  Column 0 of every
+    frequency array is the reference frequency; columns 1: are the span."""
+
+    chain: Chain
+    params: dict
+    f_hz: np.ndarray
+    dc: DcResult
+    ac: AcResult
+    output: str
+
+    @property
+    def span(self) -> np.ndarray:
+        return self.f_hz[1:]
+
+    def gain(self, node: str | None = None):
+        """V_node/Vs over the grid, (S, F+1)."""
+        return self.ac.node_h[node or self.output]
+
+    def peak(self, node: str):
+        """Signal peak at a node at the reference frequency, (S,)."""
+        amp = self.params[self.chain.source.name]["amplitude"]
+        return np.abs(np.asarray(self.ac.node_h[node])[..., 0]) * np.ravel(amp)
+
+    def headroom(self, node: str):
+        """Distance from the signal's extremes to the nearer limit (V), (S,)."""
+        dc = np.ravel(self.dc.node_v[node]) + 0.0 * self.peak(node)
+        lo, hi = self.dc.limits[node]
+        pk = self.peak(node)
+        return np.minimum(np.ravel(hi) - (dc + pk), (dc - pk) - np.ravel(lo))
+
+    def interface_loss_db(self, stage: str):
+        """Loading loss where ``stage`` reads its node: 20·log10|1/(1 + Zth·Yin)| (S, F+1)."""
+        a, b = self.ac.branch_row[stage]
+        return 20 * np.log10(np.abs(a / (a + b * self.ac.y_in[stage])))
+
+    def band_edges(self, node: str | None = None):
+        """−3 dB edges around the reference frequency, per sample (nan where the
+        response stays within 3 dB over the span).  Linear interpolation of the
+        magnitude in dB against log f between the bracketing grid points."""
+        mag = np.abs(self.gain(node))
+        ref = mag[:, :1] * SQRT_HALF
+        span = mag[:, 1:]
+        logf = np.log10(self.span)
+        below = span < ref
+        above_ref = self.span > self.chain.analysis.f_ref_hz
+        hi_mask = below & above_ref[None, :]
+        lo_mask = below & ~above_ref[None, :]
+        return (_edge(span, ref, logf, lo_mask, last=True), _edge(span, ref, logf, hi_mask, last=False))
+
+
+def _edge(span, ref, logf, mask, last):
+    n = span.shape[1]
+    has = mask.any(axis=1)
+    if last:
+        idx = n - 1 - np.argmax(mask[:, ::-1], axis=1)
+        nb = np.minimum(idx + 1, n - 1)
+    else:
+        idx = np.argmax(mask, axis=1)
+        nb = np.maximum(idx - 1, 0)
+    rows = np.arange(span.shape[0])
+    db = lambda x: 20 * np.log10(np.maximum(x, 1e-300))  # noqa: E731
+    y0, y1 = db(span[rows, idx]), db(span[rows, nb])
+    target = db(ref[:, 0])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.where(y1 != y0, (target - y0) / (y1 - y0), 0.0)
+    f = 10 ** (logf[idx] + np.clip(t, 0, 1) * (logf[nb] - logf[idx]))
+    return np.where(has & (idx != nb), f, np.nan)
+
+
+def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None = None) -> Evaluation:
+    params = params if params is not None else nominal_params(chain)
+    f_hz = frequency_grid(chain) if f_hz is None else f_hz
+    dc = solve_dc(chain, params)
+    ac = run_ac(chain, params, dc.ops, f_hz)
+    return Evaluation(chain, params, f_hz, dc, ac, chain.output_node())
+
+
+# -- the nominal budget --------------------------------------------------------
+
+@dataclass
+class StageRow:
+    name: str
+    kind: str
+    zin_ohm: float
+    zout_ohm: float | None
+    gain: float | None
+    gain_db: float | None
+    op: dict = field(default_factory=dict)
+
+
+@dataclass
+class InterfaceRow:
+    source: str
+    to: str
+    z_source_ohm: float
+    z_load_ohm: float
+    loss_db: float
+
+
+@dataclass
+class NodeRow:
+    name: str
+    dc_v: float
+    peak_v: float
+    low_v: float
+    high_v: float
+    headroom_v: float
+    headroom_db: float
+    limited_by: tuple
+    clips: bool
+
+
+@dataclass
+class Budget:
+    chain: Chain
+    ev: Evaluation
+    stages: list[StageRow]
+    interfaces: list[InterfaceRow]
+    nodes: list[NodeRow]
+    gain_db: float
+    f_low_hz: float | None
+    f_high_hz: float | None
+    output: str
+    signal_dbfs: float | None = None
+    #: filled by feature modules (noise, requirements): summary rows and JSON keys
+    extra_summary: list = field(default_factory=list)
+    extra_json: dict = field(default_factory=dict)
+
+    @property
+    def worst_interface(self) -> InterfaceRow | None:
+        return min(self.interfaces, key=lambda r: r.loss_db, default=None)
+
+    @property
+    def tightest_node(self) -> NodeRow | None:
+        rows = [n for n in self.nodes if np.isfinite(n.headroom_v)]
+        return min(rows, key=lambda r: r.headroom_v, default=None)
+
+
+def _f(x) -> float:
+    return float(np.ravel(x)[0])
+
+
+def check_operating_points(chain: Chain, dc: DcResult):
+    """A nominal bias the devices cannot hold is a spec error (exit 2), located at the field."""
+    for st in chain.all_stages:
+        for fld, msg in dc.ops[st.name].problems:
+            raise SpecError(msg, chain.path, st.field_lines.get(fld, st.line), f"{st.name}.{fld}")
+    for node, v in dc.node_v.items():
+        if not np.all(np.isfinite(v)):
+            st = chain.stage(node)
+            raise SpecError(f"node '{node}' has no DC path (it floats); add a bias resistor, e.g. an "
+                            "ac_coupling stage with r_bias and bias", chain.path, st.line, node)
+
+
+def analyse(chain: Chain) -> Budget:
+    """The nominal budget of a chain."""
+    ev = evaluate(chain)
+    check_operating_points(chain, ev.dc)
+    ac, dc = ev.ac, ev.dc
+    stages = []
+    for st in chain.stages:
+        zin = _f(np.abs(1.0 / ac.y_in[st.name][:, 0])) if np.any(ac.y_in[st.name][:, 0] != 0) else np.inf
+        if st.role == "two_port":
+            a, b = ac.row[st.name]
+            zout = _f(np.abs(b[:, 0] / a[:, 0]))
+            g = ac.node_h[st.name][:, 0] / ac.node_h[st.parent][:, 0]
+            gain = _f(np.abs(g))
+            gain_db = 20 * np.log10(gain)
+        else:
+            zout = gain = gain_db = None
+        stages.append(StageRow(st.name, st.kind, zin, zout, gain, gain_db,
+                               {k: _f(v) for k, v in dc.ops[st.name].values.items()}))
+    interfaces = []
+    for st in chain.stages:
+        a, b = ac.branch_row[st.name]
+        zs = _f(np.abs(b[:, 0] / a[:, 0]))
+        y = ac.y_in[st.name][:, 0]
+        zl = _f(np.abs(1.0 / y)) if np.any(y != 0) else np.inf
+        interfaces.append(InterfaceRow(st.parent, st.name, zs, zl, _f(ev.interface_loss_db(st.name)[:, 0])))
+    nodes = []
+    for n in chain.nodes:
+        dcv, pk = _f(dc.node_v[n]), _f(ev.peak(n))
+        lo, hi = (_f(x) for x in dc.limits[n])
+        room = _f(ev.headroom(n))
+        avail = min(hi - dcv, dcv - lo)
+        room_db = 20 * np.log10(avail / pk) if pk > 0 and avail > 0 else (np.inf if pk == 0 else -np.inf)
+        nodes.append(NodeRow(n, dcv, pk, lo, hi, room, float(room_db), dc.limit_by[n], room < 0))
+    f_lo, f_hi = ev.band_edges()
+    out = ev.output
+    gain_db = _f(20 * np.log10(np.abs(ev.gain()[:, 0])))
+    dbfs = None
+    adc = next((s for s in chain.readers(out) if s.kind == "adc"), None)
+    if adc is not None:
+        half = 0.5 * (adc.params["fs_high"] - adc.params["fs_low"])
+        pk = _f(ev.peak(out))
+        dbfs = 20 * np.log10(pk / half) if pk > 0 else -np.inf
+    nan2none = lambda x: None if not np.isfinite(x) else float(x)  # noqa: E731
+    return Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs)

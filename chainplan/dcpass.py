@@ -1,0 +1,87 @@
+"""DC operating point of a whole chain: DC level of every node, each stage's
+operating point, and the allowed voltage range at every node.
+
+Loads are passed backward as Norton equivalents (I = G·V − I0), sources forward
+as affine relations (e = a·V + b·I); active stages solve their own nonlinear
+bias with the load current included (see stages/base.py).  Base currents make
+the loads depend on the operating points, so the two passes repeat until the
+levels settle (three rounds suffice: a base current changes by a fraction of
+a per cent between rounds)."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .model import Chain
+from .stages.base import DcLoad, DcState, Op, dc_node_voltage, dc_with_sibling
+
+
+@dataclass
+class DcResult:
+    node_v: dict            # node -> DC volts
+    ops: dict               # stage -> Op
+    limits: dict            # node -> (low, high) allowed volts
+    limit_by: dict          # node -> (stage setting the low limit, stage setting the high limit)
+
+
+def solve_dc(chain: Chain, params: dict, rounds: int | None = None) -> DcResult:
+    rounds = rounds or (3 if any(st.model.draws_input_current for st in chain.stages) else 1)
+    ops: dict[str, Op | None] = {st.name: None for st in chain.all_stages}
+    for _ in range(rounds):
+        loads = _backward(chain, params, ops)
+        node_v, ops = _forward(chain, params, loads)
+    return DcResult(node_v, ops, *_limits(chain, ops))
+
+
+def _backward(chain, params, ops):
+    """Input DC load of every stage and total DC load at every node."""
+    stage_in: dict[str, DcLoad] = {}
+    node_load: dict[str, DcLoad] = {n: DcLoad(0.0, 0.0) for n in chain.nodes}
+    for st in reversed(chain.stages):
+        out = node_load.get(st.name, DcLoad(0.0, 0.0))
+        ld = st.model.dc_input_load(params[st.name], out, ops.get(st.name))
+        stage_in[st.name] = ld
+        tot = node_load[st.parent]
+        node_load[st.parent] = DcLoad(tot.G + ld.G, tot.I0 + ld.I0)
+    return stage_in, node_load
+
+
+def _forward(chain, params, loads):
+    stage_in, node_load = loads
+    src = chain.source
+    states: dict[str, DcState] = {src.name: src.model.dc_state(params[src.name])}
+    node_v = {src.name: dc_node_voltage(states[src.name], node_load[src.name])}
+    ops: dict[str, Op] = {src.name: Op()}
+    for st in chain.stages:
+        own = stage_in[st.name]
+        tot = node_load[st.parent]
+        sib = DcLoad(tot.G - own.G, tot.I0 - own.I0)
+        st_in = dc_with_sibling(states[st.parent], sib)
+        out_load = node_load.get(st.name, DcLoad(0.0, 0.0))
+        st_out, op = st.model.dc_forward(params[st.name], st_in, node_v[st.parent], out_load)
+        ops[st.name] = op
+        if st.role == "two_port":
+            states[st.name] = st_out
+            node_v[st.name] = dc_node_voltage(st_out, out_load)
+    return node_v, ops
+
+
+def _limits(chain, ops):
+    """Allowed range at each node: the tighter of the driver's output range and
+    every reader's input range."""
+    limits, limit_by = {}, {}
+    for node in chain.nodes:
+        lo, hi = ops[node].out_range
+        lo_by = node if np.all(np.isfinite(lo)) else None
+        hi_by = node if np.all(np.isfinite(hi)) else None
+        for rd in chain.readers(node):
+            rlo, rhi = ops[rd.name].in_range
+            if np.all(np.asarray(rlo) > np.asarray(lo)):
+                lo, lo_by = rlo, rd.name
+            if np.all(np.asarray(rhi) < np.asarray(hi)):
+                hi, hi_by = rhi, rd.name
+            lo, hi = np.maximum(lo, rlo), np.minimum(hi, rhi)
+        limits[node] = (lo, hi)
+        limit_by[node] = (lo_by, hi_by)
+    return limits, limit_by

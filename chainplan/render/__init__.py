@@ -1,0 +1,1 @@
+"""Renderers: terminal tables, JSON, plots.  They only read results of the core."""

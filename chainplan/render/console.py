@@ -1,0 +1,39 @@
+"""One rich Console for the CLI, plain when piped or when NO_COLOR is set."""
+from __future__ import annotations
+
+import os
+import sys
+
+import math
+
+from ..units import fmt
+
+
+def make_console(file=None):
+    from rich.console import Console
+    stream = file or sys.stdout
+    tty = hasattr(stream, "isatty") and stream.isatty()
+    plain = not tty or "NO_COLOR" in os.environ
+    width = None if tty else int(os.environ.get("COLUMNS", "100"))
+    return Console(file=stream, no_color=plain, color_system=None if plain else "auto", width=width,
+                   highlight=False, emoji=False, soft_wrap=False, force_terminal=False if not tty else None)
+
+
+def table_box(console):
+    """Light rules on a terminal, plain ASCII when piped."""
+    from rich import box
+    return box.SIMPLE_HEAD if console.is_terminal else box.ASCII2
+
+
+def db(x, digits: int = 2) -> str:
+    """Decibels with a fixed number of decimals and a true minus sign."""
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "—"
+    if math.isinf(x):
+        return ("−" if x < 0 else "+") + "∞ dB"
+    s = f"{x:+.{digits}f}"
+    return s.replace("-", "−") + " dB"
+
+
+def eng(x, unit: str, digits: int = 3) -> str:
+    return "—" if x is None else fmt(x, unit, digits)

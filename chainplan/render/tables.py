@@ -1,0 +1,93 @@
+"""Terminal tables of a budget: stages, interfaces, nodes and a summary.
+
+The worst interface and the tightest node carry a text marker ('worst',
+'tightest', 'CLIPS') so they stand out without colour."""
+from __future__ import annotations
+
+import math
+
+from ..budget import Budget
+from .console import db, eng, table_box
+
+SAFETY = {
+    "mains": "mains-powered equipment",
+    "high_voltage": "high voltages",
+    "patient": "a patient connection",
+}
+
+
+def safety_notice(hazards) -> str | None:
+    """The usual caution for hazardous chains; chainplan computes signal budgets,
+    not safety."""
+    if not hazards:
+        return None
+    what = ", ".join(SAFETY.get(h, h) for h in hazards)
+    return (f"CAUTION: this chain involves {what}. chainplan computes signal budgets only; it does not "
+            "assess insulation, creepage, leakage currents or isolation. Follow the applicable safety "
+            "standards and local codes, and have the design reviewed by a qualified, licensed professional.")
+
+
+def budget_tables(b: Budget, console) -> None:
+    from rich.table import Table
+    from rich.text import Text
+    bx = table_box(console)
+    c = b.chain
+    console.print(Text(f"{c.name}", style="bold"), Text(f"  ({c.path})" if c.path else ""))
+    note = safety_notice(c.hazards)
+    if note:
+        console.print(Text(note, style="bold red"))
+    f_ref = eng(c.analysis.f_ref_hz, "Hz")
+
+    t = Table(title=f"Stages as connected (at {f_ref})", box=bx, title_justify="left")
+    for col in ("stage", "kind", "Zin", "Zout", "gain", "gain dB"):
+        t.add_column(col, justify="left" if col in ("stage", "kind") else "right")
+    for s in b.stages:
+        t.add_row(s.name, s.kind, eng(s.zin_ohm, "Ω"), eng(s.zout_ohm, "Ω"),
+                  "—" if s.gain is None else f"{s.gain:.4g}", db(s.gain_db))
+    console.print(t)
+
+    worst = b.worst_interface
+    t = Table(title="Interfaces (loading)", box=bx, title_justify="left")
+    for col in ("from", "to", "Z source", "Z load", "loading loss", ""):
+        t.add_column(col, justify="left" if col in ("from", "to", "") else "right")
+    for r in b.interfaces:
+        mark = "worst" if r is worst and r.loss_db < -0.005 else ""
+        style = "bold yellow" if mark else None
+        t.add_row(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), db(r.loss_db, 3), mark,
+                  style=style)
+    console.print(t)
+
+    tight = b.tightest_node
+    t = Table(title=f"Nodes (DC, signal peak at {f_ref}, limits, headroom)", box=bx, title_justify="left")
+    for col in ("node", "DC", "peak", "low limit", "high limit", "headroom", "headroom dB", ""):
+        t.add_column(col, justify="left" if col in ("node", "") else "right")
+    for n in b.nodes:
+        mark = "CLIPS" if n.clips else ("tightest" if n is tight else "")
+        style = "bold red" if n.clips else ("bold yellow" if mark else None)
+        t.add_row(n.name, eng(n.dc_v, "V"), eng(n.peak_v, "V"), _lim(n.low_v), _lim(n.high_v),
+                  eng(n.headroom_v, "V") if math.isfinite(n.headroom_v) else "—",
+                  db(n.headroom_db, 1) if math.isfinite(n.headroom_db) else "—", mark, style=style)
+    console.print(t)
+
+    t = Table(title="Summary", box=bx, title_justify="left", show_header=False)
+    t.add_column("what")
+    t.add_column("value", justify="right")
+    t.add_row(f"end-to-end gain to '{b.output}' at {f_ref}", db(b.gain_db))
+    t.add_row("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
+                            f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")
+    if worst is not None:
+        t.add_row("worst interface", f"{worst.source} → {worst.to}: {db(worst.loss_db, 3)}")
+    if tight is not None:
+        t.add_row("tightest node", f"{tight.name}: {eng(tight.headroom_v, 'V')} headroom")
+    if b.signal_dbfs is not None:
+        t.add_row("signal at the converter", f"{b.signal_dbfs:+.1f} dBFS".replace("-", "−"))
+    for extra in b.extra_summary:
+        t.add_row(*extra)
+    clips = [n.name for n in b.nodes if n.clips]
+    if clips:
+        t.add_row("clipping", ", ".join(clips), style="bold red")
+    console.print(t)
+
+
+def _lim(v):
+    return "—" if not math.isfinite(v) else eng(v, "V")

@@ -1,0 +1,308 @@
+"""Chain specs: YAML files in git, parsed strictly into a :class:`~chainplan.model.Chain`.
+
+Every problem becomes one :class:`~chainplan.errors.SpecError` naming file,
+line and field, with what would be valid.  The format is documented in
+docs/spec.md; the stage fields come from each kind's ``FIELDS`` table, which
+also generates the JSON Schema.
+"""
+from __future__ import annotations
+
+import importlib
+import math
+import re
+
+from .errors import SpecError, nearest
+from .model import Analysis, Chain, Stage
+from .stages import REGISTRY
+from .units import UnitError, parse_toleranced, parse_value
+from .yamlsrc import LDict, LList, load_file, load_text
+
+HAZARDS = ("mains", "high_voltage", "patient")
+TOP_KEYS = ("name", "description", "hazards", "temperature", "rails", "source", "stages", "analysis",
+            "requirements", "include", "candidates", "corners")
+ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None}
+NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
+
+#: Sections owned by feature modules: key -> "module:function(chain, node, path)".
+SECTION_PARSERS: dict[str, str] = {}
+
+
+class _Ctx:
+    def __init__(self, path: str):
+        self.path = path
+
+    def err(self, msg, line=None, field=None):
+        return SpecError(msg, self.path, line, field)
+
+
+def load_chain(path: str) -> Chain:
+    """Read and validate a chain spec file."""
+    return build_chain(load_file(path), path)
+
+
+def load_chain_text(text: str, path: str = "<text>") -> Chain:
+    return build_chain(load_text(text, path), path)
+
+
+def build_chain(doc, path: str) -> Chain:
+    ctx = _Ctx(path)
+    if not isinstance(doc, LDict):
+        raise ctx.err("a chain spec is a mapping with 'name:', 'source:' and 'stages:'", getattr(doc, "line", 1))
+    for key in doc:
+        if key not in TOP_KEYS:
+            raise ctx.err(f"unknown key '{key}'" + nearest(key, TOP_KEYS), doc.line_of(key), key)
+    for key in ("name", "source", "stages"):
+        if key not in doc:
+            raise ctx.err(f"missing '{key}:'", doc.line, key)
+    name = _text(ctx, doc, "name")
+    description = _text(ctx, doc, "description") if "description" in doc else ""
+    hazards = _hazards(ctx, doc)
+    temp_k = _number(ctx, doc, "temperature", "K", "300 K")
+    if temp_k <= 0:
+        raise ctx.err("temperature must be above 0 K (absolute zero)", doc.line_of("temperature"), "temperature")
+    rails = _rails(ctx, doc)
+    tolerances: dict[tuple[str, str], object] = {}
+    rail_tol = rails.pop("__tol__")
+    src_node = doc["source"]
+    if not isinstance(src_node, LDict):
+        raise ctx.err("'source' is a mapping with kind: sensor and its fields", doc.line_of("source"), "source")
+    source = _stage(ctx, src_node, rails, tolerances, default_name="sensor", is_source=True)
+    stages = _stages(ctx, doc, rails, tolerances, source)
+    chain = Chain(name=name, description=description, source=source, stages=stages,
+                  rails={k: v for k, v in rails.items()}, temp_k=temp_k, hazards=hazards, path=path)
+    chain.analysis = _analysis(ctx, doc, chain)
+    chain.extra["tolerances"] = tolerances
+    chain.extra["rail_tolerances"] = rail_tol
+    chain.extra["line"] = doc.line
+    for key, target in SECTION_PARSERS.items():
+        if key in doc:
+            mod, fn = target.split(":")
+            getattr(importlib.import_module(mod), fn)(chain, doc[key], doc.line_of(key), path)
+    return chain
+
+
+# -- small readers ---------------------------------------------------------
+
+def _text(ctx, node, key):
+    v = node[key]
+    if not isinstance(v, str) or not v.strip():
+        raise ctx.err(f"'{key}' must be text", node.line_of(key), key)
+    return v.strip()
+
+
+def _number(ctx, node, key, unit, default):
+    raw = node.get(key, default)
+    try:
+        return parse_value(raw, unit)
+    except UnitError as exc:
+        raise ctx.err(str(exc), node.line_of(key), key) from None
+
+
+def _hazards(ctx, doc):
+    raw = doc.get("hazards", [])
+    if isinstance(raw, str):
+        raw = [raw]
+    if not isinstance(raw, list):
+        raise ctx.err("'hazards' is a list of: " + ", ".join(HAZARDS), doc.line_of("hazards"), "hazards")
+    for h in raw:
+        if h not in HAZARDS:
+            raise ctx.err(f"unknown hazard '{h}'" + nearest(str(h), HAZARDS), doc.line_of("hazards"), "hazards")
+    return list(raw)
+
+
+def _rails(ctx, doc):
+    rails, tol = {}, {}
+    node = doc.get("rails", LDict())
+    if not isinstance(node, LDict):
+        raise ctx.err("'rails' maps rail names to voltages, e.g. 'vdd: 3.3 V'", doc.line_of("rails"), "rails")
+    for key, raw in node.items():
+        if not NAME_RE.match(key):
+            raise ctx.err("a rail name is a word (letters, digits, _ and -)", node.line_of(key), f"rails.{key}")
+        try:
+            rails[key], t = parse_toleranced(raw, "V")
+        except UnitError as exc:
+            raise ctx.err(str(exc), node.line_of(key), f"rails.{key}") from None
+        if t is not None:
+            tol[key] = t
+    rails["__tol__"] = tol
+    return rails
+
+
+def _stages(ctx, doc, rails, tolerances, source):
+    node = doc["stages"]
+    if not isinstance(node, LList) or not node:
+        raise ctx.err("'stages' is a list of stages, each with name: and kind:", doc.line_of("stages"), "stages")
+    stages, seen = [], {source.name: source}
+    explicit = False
+    prev = source
+    for i, item in enumerate(node):
+        if not isinstance(item, LDict):
+            raise ctx.err("each stage is a mapping with name: and kind:", node.line_of(i), f"stages[{i}]")
+        st = _stage(ctx, item, rails, tolerances, default_name=None)
+        if st.name in seen:
+            raise ctx.err(f"stage name '{st.name}' is used twice; names must be unique", item.line_of("name"), "name")
+        seen[st.name] = st
+        if "from" in item:
+            explicit = True
+            st.parent = item["from"]
+            if not isinstance(st.parent, str):
+                raise ctx.err("'from' names the stage whose output this stage reads", item.line_of("from"), "from")
+        elif prev.role == "load":
+            raise ctx.err(f"stage '{st.name}' follows the load '{prev.name}'; say which node it reads with "
+                          "'from: <stage name>'", item.line, "from")
+        else:
+            st.parent = prev.name
+        stages.append(st)
+        prev = st
+    for st in stages:
+        line = st.field_lines.get("from", st.line)
+        if st.parent not in seen:
+            raise ctx.err(f"'{st.parent}' is not a stage of this chain" + nearest(st.parent, seen), line, "from")
+        if seen[st.parent].role == "load":
+            raise ctx.err(f"'{st.parent}' is a load (kind {seen[st.parent].kind}); it has no output to read",
+                          line, "from")
+    if explicit:
+        stages = _topological(ctx, source, stages)
+    return stages
+
+
+def _topological(ctx, source, stages):
+    """Order stages parents-first; reject cycles (networkx DAG check)."""
+    import networkx as nx
+    g = nx.DiGraph()
+    g.add_node(source.name)
+    index = {st.name: i for i, st in enumerate(stages)}
+    for st in stages:
+        g.add_edge(st.parent, st.name)
+    try:
+        cycle = nx.find_cycle(g)
+    except nx.NetworkXNoCycle:
+        cycle = None
+    if cycle:
+        names = [a for a, _ in cycle]
+        first = min(names, key=lambda n: index.get(n, -1))
+        st = stages[index[first]]
+        raise ctx.err("the connections form a loop: " + " → ".join(names + [names[0]]) +
+                      "; a chain is a tree fed by its source", st.field_lines.get("from", st.line), "from")
+    order = list(nx.lexicographical_topological_sort(g, key=lambda n: index.get(n, -1)))
+    by_name = {st.name: st for st in stages}
+    return [by_name[n] for n in order if n in by_name]
+
+
+def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -> Stage:
+    if "kind" not in node:
+        raise ctx.err("missing 'kind:'" + ("" if is_source else " (e.g. kind: source_follower)"), node.line, "kind")
+    kind = node["kind"]
+    if not isinstance(kind, str) or kind not in REGISTRY:
+        raise ctx.err(f"unknown stage kind '{kind}'" + nearest(str(kind), REGISTRY), node.line_of("kind"), "kind")
+    model = REGISTRY[kind]
+    if is_source and model.role != "source":
+        raise ctx.err(f"the source must be of kind 'sensor', not '{kind}'", node.line_of("kind"), "kind")
+    if not is_source and model.role == "source":
+        raise ctx.err("a sensor is the chain's source: describe it under 'source:'", node.line_of("kind"), "kind")
+    name = node.get("name", default_name)
+    if name is None:
+        raise ctx.err("missing 'name:' (every stage has a unique name)", node.line, "name")
+    if not isinstance(name, str) or not NAME_RE.match(name):
+        raise ctx.err(f"'{name}' is not a valid stage name: use letters, digits, _ and -", node.line_of("name"), "name")
+    fields = model.FIELDS
+    st = Stage(name=name, kind=kind, params={}, parent=None, line=node.line,
+               field_lines=dict(node.key_lines))
+    allowed = set(fields) | {"name", "kind"} | (set() if is_source else {"from"})
+    for key in node:
+        if key not in allowed:
+            raise ctx.err(f"'{kind}' has no field '{key}'" + nearest(key, allowed), node.line_of(key), f"{name}.{key}")
+    for group in model.ONE_OF:
+        given = [g for g in group if g in node]
+        if len(given) != 1:
+            raise ctx.err(f"give exactly one of: {', '.join(group)}" + (f" (got {', '.join(given)})" if given else ""),
+                          node.line_of(given[1]) if len(given) > 1 else node.line, f"{name}.{group[0]}")
+    for key, f in fields.items():
+        line = node.line_of(key)
+        where = f"{name}.{key}"
+        if key not in node:
+            if f.required:
+                raise ctx.err(f"missing required field '{key}' ({f.doc})", node.line, where)
+            if f.default is None:
+                continue
+            if not isinstance(f.default, str):        # a numeric default such as ±inf limits
+                st.params[key] = f.default
+                continue
+            raw, from_default = f.default, True
+        else:
+            raw, from_default = node[key], False
+        st.params[key], tol = _field_value(ctx, f, raw, rails, line, where, st, key)
+        if not from_default:
+            st.raw[key] = raw
+        if tol is not None:
+            if not f.tolerable:
+                raise ctx.err(f"'{key}' cannot carry a tolerance", line, where)
+            tolerances[(name, key)] = tol
+    return st
+
+
+def _field_value(ctx, f, raw, rails, line, where, st, key):
+    if f.unit == "choice":
+        if raw not in f.choices:
+            raise ctx.err(f"'{raw}' is not valid" + nearest(str(raw), f.choices), line, where)
+        return raw, None
+    if isinstance(raw, str) and raw in f.choices:
+        return raw, None
+    if f.rail_ok and isinstance(raw, str) and NAME_RE.match(raw) and not _looks_numeric(raw):
+        if raw not in rails:
+            valid = sorted(set(rails) - {"__tol__"})
+            raise ctx.err(f"'{raw}' is not a declared rail" + (nearest(raw, valid) if valid else
+                          "; declare it under 'rails:' (e.g. vdd: 3.3 V)"), line, where)
+        st.raw.setdefault("__rails__", {})[key] = raw
+        return rails[raw], None
+    try:
+        value, tol = parse_toleranced(raw, f.unit)
+    except UnitError as exc:
+        raise ctx.err(str(exc), line, where) from None
+    if math.isinf(value) and not f.allow_inf:
+        raise ctx.err("must be finite here", line, where)
+    if f.positive and not value > 0:
+        raise ctx.err(f"must be greater than zero ({f.doc})", line, where)
+    if f.minimum is not None and value < f.minimum:
+        raise ctx.err(f"must be at least {f.minimum:g} ({f.doc})", line, where)
+    if key == "bits" and (value != int(value) or value > 32):
+        raise ctx.err("bits is a whole number from 1 to 32", line, where)
+    if key == "gain" and value == 0:
+        raise ctx.err("a gain of zero passes no signal; give a non-zero gain", line, where)
+    return value, tol
+
+
+def _looks_numeric(text: str) -> bool:
+    return text in ("inf",) or bool(re.match(r"^[+\-−]?(\d|\.\d)", text))
+
+
+def _analysis(ctx, doc, chain) -> Analysis:
+    node = doc.get("analysis", LDict())
+    if not isinstance(node, LDict):
+        raise ctx.err("'analysis' is a mapping (f_ref, f_start, f_stop, points, output)",
+                      doc.line_of("analysis"), "analysis")
+    a = Analysis()
+    for key in node:
+        if key not in ANALYSIS_KEYS:
+            raise ctx.err(f"unknown key '{key}'" + nearest(key, ANALYSIS_KEYS), node.line_of(key), f"analysis.{key}")
+    for key, attr in (("f_ref", "f_ref_hz"), ("f_start", "f_start_hz"), ("f_stop", "f_stop_hz")):
+        if key in node:
+            v = _number(ctx, node, key, "Hz", None)
+            if not (v > 0 and math.isfinite(v)):
+                raise ctx.err("must be a positive, finite frequency", node.line_of(key), f"analysis.{key}")
+            setattr(a, attr, v)
+    if "points" in node:
+        p = node["points"]
+        if not isinstance(p, int) or isinstance(p, bool) or not 10 <= p <= 100000:
+            raise ctx.err("points is a whole number from 10 to 100000", node.line_of("points"), "analysis.points")
+        a.points = p
+    if not a.f_start_hz < a.f_stop_hz:
+        raise ctx.err("f_start must be below f_stop", node.line_of("f_start"), "analysis.f_start")
+    if "output" in node:
+        out = node["output"]
+        names = [st.name for st in chain.all_stages]
+        if out not in names:
+            raise ctx.err(f"'{out}' is not a stage of this chain" + nearest(str(out), names),
+                          node.line_of("output"), "analysis.output")
+        a.output = out
+    return a

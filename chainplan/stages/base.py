@@ -1,0 +1,227 @@
+"""Shared machinery of every stage kind: field declarations, two-port section
+algebra, and the affine DC-state algebra.
+
+Conventions
+-----------
+* Small-signal two-ports use ABCD (chain) parameters, ``V1 = A·V2 + B·I2``,
+  ``I1 = C·V2 + D·I2`` with ``I2`` leaving port 2 (two-port network theory as in
+  Pozar, *Microwave Engineering*, ch. 4, from memory).  A stage returns the four
+  parameters as separate complex arrays broadcastable to ``(samples, freqs)``.
+* Parameter values in ``p`` are floats or ``(samples, 1)`` arrays, so the same
+  code runs one nominal analysis or a Monte Carlo batch.
+* DC uses an affine "source relation" ``e = a·V + b·I`` at a node, where ``I``
+  is the current drawn out of the node by what it drives; ``a, b, e`` are real.
+  An ideal voltage source is ``(e=V, a=1, b=0)``, an open circuit ``(0, 0, 1)``.
+  Everything stays finite: no magic large numbers for infinite impedances.
+* A DC load at a node is ``I = G·V − I0`` (a Norton equivalent).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable, NamedTuple
+
+import numpy as np
+
+#: Boltzmann constant, J/K (CODATA 2018, exact since the 2019 SI redefinition).
+K_BOLTZMANN = 1.380649e-23
+#: Elementary charge, C (CODATA 2018, exact).
+Q_ELECTRON = 1.602176634e-19
+
+
+@dataclass(frozen=True)
+class Field:
+    """One parameter of a stage kind, as written in a chain spec."""
+
+    unit: str                      # unit id for chainplan.units, or 'choice'
+    doc: str
+    required: bool = False
+    default: Any = None            # spec-style string ("0 V", "vdd", "inf"), or None = absent
+    rail_ok: bool = False          # a voltage that may name a declared rail
+    choices: tuple[str, ...] = ()  # for unit == 'choice', or extra words a voltage field accepts
+    minimum: float | None = None   # inclusive lower bound (SI)
+    positive: bool = False         # strictly > 0
+    allow_inf: bool = False        # 'inf' accepted
+    tolerable: bool = True         # may carry a ±tolerance
+
+
+class ABCD(NamedTuple):
+    A: Any
+    B: Any
+    C: Any
+    D: Any
+
+
+class DcState(NamedTuple):
+    """Affine source relation at a node: ``e = a·V + b·I`` (I drawn from the node)."""
+
+    e: Any
+    a: Any
+    b: Any
+
+
+class DcLoad(NamedTuple):
+    """DC load a node sees: current drawn ``I = G·V − I0``."""
+
+    G: Any
+    I0: Any
+
+
+NO_LOAD = DcLoad(0.0, 0.0)
+
+
+def series_z(z) -> ABCD:
+    """Series impedance two-port ``[[1, Z], [0, 1]]`` (Pozar, table 4.1, from memory)."""
+    return ABCD(1.0, z, 0.0, 1.0)
+
+
+def shunt_y(y) -> ABCD:
+    """Shunt admittance two-port ``[[1, 0], [Y, 1]]`` (Pozar, table 4.1, from memory)."""
+    return ABCD(1.0, 0.0, y, 1.0)
+
+
+def chain(m1: ABCD, m2: ABCD) -> ABCD:
+    """Cascade of two two-ports: the matrix product ``M1·M2`` written out by hand."""
+    return ABCD(
+        m1.A * m2.A + m1.B * m2.C,
+        m1.A * m2.B + m1.B * m2.D,
+        m1.C * m2.A + m1.D * m2.C,
+        m1.C * m2.B + m1.D * m2.D,
+    )
+
+
+def unilateral(y_in, inv_av, z_out) -> ABCD:
+    """Unilateral amplifier with input admittance Yin, open-circuit gain Av and
+    output impedance Zout: ``A = 1/Av, B = Zout/Av, C = Yin/Av, D = Yin·Zout/Av``
+    (derived from V2 = Av·V1 − Zout·I2 and I1 = Yin·V1).  Takes ``1/Av`` so an
+    ideal stage never divides by zero."""
+    return ABCD(inv_av, z_out * inv_av, y_in * inv_av, y_in * z_out * inv_av)
+
+
+def follower(y_series, gm, g_out, y_in_shunt=0.0) -> ABCD:
+    """Follower two-port (source or emitter follower, hybrid-π small-signal model):
+    admittance ``y`` between input and output terminals (1/rπ or sCgs), a
+    transconductance ``gm·(V1 − V2)`` into the output node, a shunt admittance
+    ``G`` at the output (1/ro, bias resistor, gmb), and optionally a shunt
+    admittance at the input (sCgd).  Solving the two node equations gives
+    ``A = 1 + G/(y+gm)``, ``B = 1/(y+gm)``, ``C = y·G/(y+gm)``, ``D = y/(y+gm)``
+    (Sedra & Smith, *Microelectronic Circuits*, follower analysis, from memory;
+    with y = 1/rπ it reproduces Rin = rπ + (β+1)R)."""
+    k = 1.0 / (y_series + gm)
+    m = ABCD(1.0 + g_out * k, k, y_series * g_out * k, y_series * k)
+    if np.any(np.asarray(y_in_shunt) != 0):
+        m = chain(shunt_y(y_in_shunt), m)
+    return m
+
+
+# --- DC algebra -----------------------------------------------------------
+
+def dc_series_r(st: DcState, r) -> DcState:
+    """Through a series resistor: V_in = V + R·I, so e = a·V + (a·R + b)·I."""
+    return DcState(st.e, st.a, st.a * r + st.b)
+
+
+def dc_shunt_r(st: DcState, r, v_ref) -> DcState:
+    """A resistor from the node to v_ref draws (V − v_ref)/R."""
+    g = _inv(r)
+    return DcState(st.e + st.b * v_ref * g, st.a + st.b * g, st.b)
+
+
+def dc_open() -> DcState:
+    """A series capacitor at DC: the far side sees an open circuit."""
+    return DcState(0.0, 0.0, 1.0)
+
+
+def dc_source(v, r_out) -> DcState:
+    """A Thevenin source: e = V + R·I."""
+    return DcState(v, 1.0, r_out)
+
+
+def dc_node_voltage(st: DcState, load: DcLoad):
+    """Solve e = a·V + b·(G·V − I0) for the node voltage (nan for a floating node)."""
+    den = np.asarray(st.a + st.b * load.G, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        v = (st.e + st.b * load.I0) / den
+    return np.where(den == 0, np.nan, v)
+
+
+def dc_with_sibling(st: DcState, sib: DcLoad) -> DcState:
+    """Absorb sibling loads at a fan-out node into the source relation seen by one branch."""
+    return DcState(st.e + st.b * sib.I0, st.a + st.b * sib.G, st.b)
+
+
+def dc_load_series_r(load: DcLoad, r) -> DcLoad:
+    """Looking into a series resistor that feeds ``load``: I = G·V/(1+R·G) − I0/(1+R·G)."""
+    k = 1.0 / (1.0 + r * load.G)
+    return DcLoad(load.G * k, load.I0 * k)
+
+
+def dc_load_shunt_r(load: DcLoad, r, v_ref) -> DcLoad:
+    g = _inv(r)
+    return DcLoad(load.G + g, load.I0 + v_ref * g)
+
+
+def _inv(x):
+    """1/x with 1/inf = 0 (exact for infinite resistances)."""
+    x = np.asarray(x)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = 1.0 / x
+    return np.where(np.isinf(x), 0.0, r)
+
+
+def parallel(*zs):
+    """Parallel combination of impedances, exact for infinite members."""
+    return _inv(sum(_inv(z) for z in zs))
+
+
+inv = _inv
+
+
+@dataclass
+class Op:
+    """Operating point of a stage: DC levels, device small-signal values and the
+    allowed input/output voltage ranges.  ``values`` is shown in reports."""
+
+    values: dict[str, Any] = field(default_factory=dict)
+    in_range: tuple[Any, Any] = (-np.inf, np.inf)
+    out_range: tuple[Any, Any] = (-np.inf, np.inf)
+    input_load: DcLoad = NO_LOAD           # DC current the stage input draws
+    problems: list[str] = field(default_factory=list)   # e.g. "out of saturation"
+
+
+class StageKind:
+    """Base class of a stage kind.  Subclasses declare FIELDS and implement the
+    small-signal two-port (``abcd``), the DC behaviour, and the noise sources."""
+
+    kind: str = ""
+    title: str = ""
+    role: str = "two_port"          # 'source', 'two_port' or 'load'
+    follower_type: bool = False     # usable as a buffer candidate
+    draws_input_current: bool = False   # DC input current depends on the operating point (base current)
+    FIELDS: dict[str, Field] = {}
+    #: groups of fields of which exactly one must be given
+    ONE_OF: tuple[tuple[str, ...], ...] = ()
+
+    # -- small signal --------------------------------------------------
+    def abcd(self, p: dict, s, op: Op) -> ABCD:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def load_admittance(self, p: dict, s, op: Op):
+        """Loads only: the input admittance."""
+        raise NotImplementedError
+
+    # -- DC --------------------------------------------------------------
+    def dc_input_load(self, p: dict, out_load: DcLoad, op: Op | None) -> DcLoad:
+        """DC load presented at the input, given the DC load at the output."""
+        return NO_LOAD
+
+    def dc_forward(self, p: dict, st_in: DcState, v_in, out_load: DcLoad) -> tuple[DcState, Op]:
+        """Source relation at the output and the operating point."""
+        raise NotImplementedError
+
+    # -- noise -------------------------------------------------------------
+    def noise(self, p: dict, s, op: Op, temp_k) -> list:
+        """Noise sources of this stage (see chainplan.noise)."""
+        return []
+
+
+Check = Callable[[dict], str | None]

@@ -1,0 +1,61 @@
+"""BJT common-emitter gain stage (NPN) with a collector resistor and optional
+emitter degeneration.
+
+Small signal (Sedra & Smith, *Microelectronic Circuits*, CE amplifier with
+emitter resistance, from memory; ro is neglected in the degeneration term):
+    Rin  = rπ + (β + 1)·RE
+    Av   = −β·(RC ‖ ro) / (rπ + (β + 1)·RE)
+    Rout = RC ‖ ro
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ..devices import bjt
+from .base import DcLoad, Field, Op, StageKind, dc_source, inv, unilateral
+
+
+class CommonEmitter(StageKind):
+    kind, title = "common_emitter", "BJT common-emitter stage (NPN)"
+    draws_input_current = True
+    FIELDS = {
+        **bjt.device_fields(),
+        "r_c": Field("ohm", "collector load resistor to the collector supply", required=True, positive=True),
+        "r_e": Field("ohm", "emitter degeneration resistor to v_low", default="0 Ω", minimum=0.0),
+    }
+
+    def dc_input_load(self, p, out_load, op):
+        return DcLoad(0.0, 0.0) if op is None else op.input_load
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        vt = bjt.thermal_voltage(p["temp_k"])
+        re = np.asarray(p["r_e"], dtype=float)
+        re_safe = np.where(re > 0, re, 1.0)
+        vc = np.asarray(p["collector"], dtype=float) + 0.0 * np.asarray(v_in)
+        for _ in range(6):  # alternate: emitter given collector, collector by KCL
+            ve_bis, _ = bjt.solve_emitter({**p, "va": p["va"]}, v_in, vc,
+                                          lambda v: (v - p["v_low"]) / re_safe, vt)
+            ve = np.where(re > 0, ve_bis, p["v_low"])
+            ic = bjt.collector_current(p["i_s"], v_in - ve, vc - ve, p["va"], vt)
+            vc = (p["collector"] / p["r_c"] + out_load.I0 - ic) / (1.0 / p["r_c"] + out_load.G)
+        gm, r_pi, ro = bjt.small_signal(ic, p["beta"], p["va"], vc - ve, vt)
+        r_out = inv(inv(p["r_c"]) + inv(ro))
+        r_in = r_pi + (p["beta"] + 1.0) * re
+        av = -p["beta"] * r_out / r_in
+        op = Op(values=dict(vbe_v=v_in - ve, ic_a=ic, ib_a=ic / p["beta"], gm_s=gm, rpi_ohm=r_pi, ro_ohm=ro,
+                            rin_ohm=r_in, av=av, rout_ohm=r_out,
+                            power_w=ic * (1 + 1 / p["beta"]) * (p["collector"] - p["v_low"])))
+        op.out_range = (ve + p["vce_sat"], p["collector"])
+        op.input_load = DcLoad(0.0, -ic / p["beta"])
+        if np.any(vc - ve < p["vce_sat"]):
+            op.problems.append(("r_c", f"the transistor saturates (VCE = {float(np.min(vc - ve)):.3g} V); "
+                                       "lower r_c or the bias current"))
+        i_out = out_load.G * vc - out_load.I0
+        return dc_source(vc + r_out * i_out, r_out), op
+
+    def abcd(self, p, s, op):
+        v = op.values
+        return unilateral(1.0 / v["rin_ohm"], 1.0 / v["av"], v["rout_ohm"])
+
+
+KINDS = [CommonEmitter]

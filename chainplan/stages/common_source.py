@@ -1,0 +1,80 @@
+"""MOSFET common-source gain stage (NMOS) with a resistor or current-source load
+and optional source degeneration, from level-1 device parameters.
+
+Small signal (Razavi, *Design of Analog CMOS Integrated Circuits*, §3.3, from memory):
+    Av   = −gm·ro·RD / (RD + ro + RS + (gm + gmb)·ro·RS)
+    Rout = RD ‖ (ro + RS + (gm + gmb)·ro·RS)
+written with gds = 1/ro so that ro → ∞ stays exact.  RD is the load resistor,
+or the current source's output resistance.  Input: the gate (open).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ..devices import mosfet
+from ..solve import bisect
+from .base import Field, Op, StageKind, dc_source, inv, unilateral
+
+
+class CommonSource(StageKind):
+    kind, title = "common_source", "MOSFET common-source stage (NMOS)"
+    FIELDS = {
+        **mosfet.device_fields(),
+        "r_d": Field("ohm", "drain load resistor to the drain supply", positive=True),
+        "i_load": Field("A", "current-source load from the drain supply (instead of r_d)", positive=True),
+        "r_load": Field("ohm", "output resistance of the current-source load", default="inf",
+                        positive=True, allow_inf=True),
+        "r_s": Field("ohm", "source degeneration resistor to v_low", default="0 Ω", minimum=0.0),
+    }
+    ONE_OF = (("r_d", "i_load"),)
+
+    def _supply(self, p):
+        if p.get("r_d") is not None:
+            return (lambda vd: (p["drain"] - vd) / p["r_d"]), p["r_d"]
+        return (lambda vd: p["i_load"] + (p["drain"] - vd) * inv(p["r_load"])), p["r_load"]
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        supply, r_load = self._supply(p)
+        v_b = mosfet.bulk_voltage(p)
+        rs = np.asarray(p["r_s"], dtype=float)
+        rs_safe = np.where(rs > 0, rs, 1.0)
+        vd = np.asarray(p["drain"], dtype=float) + 0.0 * np.asarray(v_in)
+        for _ in range(8):   # alternate: source node given drain, drain node given current
+            vs = np.where(rs > 0, mosfet.solve_source(
+                p, v_in, vd, v_b, lambda v: (v - p["v_low"]) / rs_safe)[0], p["v_low"])
+            vsb = vs - v_b if v_b is not None else 0.0 * vs
+            vth = mosfet.threshold(p["vth0"], p["gamma"], p["phi"], vsb)
+
+            def kcl(v, vs=vs, vth=vth):   # decreasing in v: supply − device − load
+                i_d = mosfet.drain_current(p["kp"], p["w_over_l"], v_in - vs - vth, v - vs, p["lambda"])
+                return supply(v) - i_d - (out_load.G * v - out_load.I0)
+            vd = bisect(kcl, vs, p["drain"] + 0.0 * vs)
+        vov = v_in - vs - vth
+        i_d = mosfet.drain_current(p["kp"], p["w_over_l"], vov, vd - vs, p["lambda"])
+        gm, gmb, ro = mosfet.small_signal(i_d, vov, vd - vs, p["lambda"], p["gamma"], p["phi"], vsb)
+        if v_b is None:
+            gmb = 0.0 * gm
+        gds = inv(ro)
+        den = 1.0 + (gm + gmb) * rs + rs * gds
+        g_out = inv(r_load) + gds / den
+        av = -gm / (den * g_out)      # = −gm / (gds + gL·den), the Razavi form divided by ro·RD
+        r_out = inv(g_out)
+        op = Op(values=dict(vgs_v=v_in - vs, vov_v=vov, vth_v=vth, id_a=i_d, gm_s=gm, gmb_s=gmb, ro_ohm=ro,
+                            av=av, rout_ohm=r_out, power_w=i_d * (p["drain"] - p["v_low"])))
+        op.out_range = (vs + vov, p["drain"])
+        op.in_range = (vs + vth, np.inf)
+        field = "r_d" if p.get("r_d") is not None else "i_load"
+        if np.any(vov <= 0):
+            op.problems.append(("vth0", "the device is cut off: the input DC level is below VS + Vth"))
+        elif np.any(vd - vs < vov - 1e-9):
+            op.problems.append((field, f"the device leaves saturation (VDS = {float(np.min(vd - vs)):.3g} V "
+                                       f"< Vov = {float(np.max(vov)):.3g} V)"))
+        i_out = out_load.G * vd - out_load.I0
+        return dc_source(vd + r_out * i_out, r_out), op
+
+    def abcd(self, p, s, op):
+        v = op.values
+        return unilateral(0.0, 1.0 / v["av"], v["rout_ohm"])
+
+
+KINDS = [CommonSource]

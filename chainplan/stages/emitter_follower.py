@@ -1,0 +1,70 @@
+"""BJT emitter follower (common collector, NPN).
+
+Hybrid-π model (Sedra & Smith, *Microelectronic Circuits*, emitter follower, from memory):
+    Rin  = rπ + (β + 1)·(RE ‖ ro ‖ RL)
+    Rout = (Rsource + rπ)/(β + 1) ‖ RE ‖ ro
+    Av   = (β + 1)·R / (rπ + (β + 1)·R)
+The two-port is bilateral (input depends on load, output on source), so the
+engine gets the full ABCD matrix and these follow from it.  The base draws
+IB = IC/β from the node that drives it.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ..devices import bjt
+from .base import DcLoad, Field, Op, StageKind, dc_source, follower, inv
+
+
+class EmitterFollower(StageKind):
+    kind, title, follower_type = "emitter_follower", "BJT emitter follower (NPN)", True
+    draws_input_current = True
+    FIELDS = {
+        **bjt.device_fields(),
+        "i_bias": Field("A", "bias current sink from the emitter to v_low", positive=True),
+        "r_e": Field("ohm", "emitter resistor to v_low (instead of i_bias)", positive=True),
+        "r_bias": Field("ohm", "output resistance of the bias current sink", default="inf",
+                        positive=True, allow_inf=True),
+        "v_compliance": Field("V", "minimum voltage across the current sink", default="0.2 V", minimum=0.0),
+    }
+    ONE_OF = (("i_bias", "r_e"),)
+
+    def _r_to_low(self, p):
+        return p["r_bias"] if p.get("i_bias") is not None else p["r_e"]
+
+    def dc_input_load(self, p, out_load, op):
+        return DcLoad(0.0, 0.0) if op is None else op.input_load
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        vt = bjt.thermal_voltage(p["temp_k"])
+        r_low = self._r_to_low(p)
+        i_src = p["i_bias"] if p.get("i_bias") is not None else 0.0
+        ve, ic = bjt.solve_emitter(
+            p, v_in, p["collector"],
+            lambda v: i_src + (v - p["v_low"]) * inv(r_low) + out_load.G * v - out_load.I0, vt)
+        gm, r_pi, ro = bjt.small_signal(ic, p["beta"], p["va"], p["collector"] - ve, vt)
+        g_out = inv(ro) + inv(r_low)
+        y = 1.0 / r_pi
+        # Any slope gives exact downstream DC levels (the load is already in the
+        # solve); the ideal-driver output resistance keeps the relation meaningful.
+        r_out = inv(g_out + gm + y)
+        op = Op(values=dict(vbe_v=v_in - ve, ic_a=ic, ib_a=ic / p["beta"], gm_s=gm, rpi_ohm=r_pi, ro_ohm=ro,
+                            power_w=ic * (1 + 1 / p["beta"]) * (p["collector"] - p["v_low"])))
+        low = p["v_low"] + (p["v_compliance"] if p.get("i_bias") is not None else 0.0)
+        op.out_range = (low, p["collector"] - p["vce_sat"])
+        op.in_range = (-np.inf, p["collector"] - p["vce_sat"] + (v_in - ve))
+        op.input_load = DcLoad(0.0, -ic / p["beta"])
+        if np.any(p["collector"] - ve < p["vce_sat"]):
+            op.problems.append(("collector", "the transistor saturates at this bias"))
+        elif p.get("i_bias") is not None and np.any(ve - p["v_low"] < p["v_compliance"]):
+            op.problems.append(("i_bias", f"the emitter sits at {float(np.min(ve)):.3g} V, below the current "
+                                          "sink's compliance; the bias current cannot flow in the active region"))
+        i_load = out_load.G * ve - out_load.I0
+        return dc_source(ve + r_out * i_load, r_out), op
+
+    def abcd(self, p, s, op):
+        v = op.values
+        return follower(1.0 / v["rpi_ohm"], v["gm_s"], inv(v["ro_ohm"]) + inv(self._r_to_low(p)))
+
+
+KINDS = [EmitterFollower]

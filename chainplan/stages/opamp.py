@@ -1,0 +1,126 @@
+"""Op-amp stages: follower, non-inverting and inverting, with a single-pole
+open-loop gain A(s) = A0/(1 + s·A0/(2π·GBW)), open-loop output resistance Ro and
+input common-mode and output swing limits measured from each rail.
+
+Two-ports are derived exactly for this macro model by nodal analysis; they
+reduce to the textbook results (Sedra & Smith, *Microelectronic Circuits*,
+op-amp chapter; Franco, *Design with Operational Amplifiers*; from memory):
+    non-inverting  G = A/(1 + A·β), β = RG/(RF + RG);  Zout = Ro/(1 + A·β)
+    inverting      G = −(RF/RG)·Aβ/(1 + Aβ),  Zin ≈ RG + RF/(1 + A)
+with Ro's loading by the feedback network kept.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .base import ABCD, DcLoad, Field, Op, StageKind, chain, dc_source, inv, shunt_y
+
+COMMON = {
+    "gbw": Field("Hz", "gain–bandwidth product", required=True, positive=True),
+    "a0": Field("dB", "open-loop DC gain", default="120 dB", positive=True),
+    "r_out": Field("ohm", "open-loop output resistance", default="0 Ω", minimum=0.0),
+    "r_in": Field("ohm", "common-mode input resistance", default="inf", positive=True, allow_inf=True),
+    "c_in": Field("F", "input capacitance", default="0 F", minimum=0.0),
+    "v_pos": Field("V", "positive supply", default="vdd", rail_ok=True),
+    "v_neg": Field("V", "negative supply", default="0 V", rail_ok=True),
+    "swing_high": Field("V", "output swing limit below the positive supply", default="0.1 V", minimum=0.0),
+    "swing_low": Field("V", "output swing limit above the negative supply", default="0.1 V", minimum=0.0),
+    "cm_high": Field("V", "input common-mode limit below the positive supply (negative: beyond it)",
+                     default="0 V"),
+    "cm_low": Field("V", "input common-mode limit above the negative supply (negative: beyond it)",
+                    default="0 V"),
+    "i_supply": Field("A", "quiescent supply current", default="0 A", minimum=0.0),
+}
+FEEDBACK = {
+    "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, minimum=0.0),
+    "r_g": Field("ohm", "gain-setting resistor (inverting input to ref)", required=True, positive=True),
+    "ref": Field("V", "reference voltage (r_g return, or the + input of the inverting stage)",
+                 default="0 V", rail_ok=True),
+}
+
+
+def inv_open_loop(p, s):
+    """1/A(s) = 1/A0 + s/(2π·GBW) for a single-pole op-amp (A0 → ∞ stays exact)."""
+    return 10.0 ** (-p["a0"] / 20.0) + s / (2 * np.pi * p["gbw"])
+
+
+class _OpAmp(StageKind):
+    def _limits(self, p):
+        out = (p["v_neg"] + p["swing_low"], p["v_pos"] - p["swing_high"])
+        cm = (p["v_neg"] + p["cm_low"], p["v_pos"] - p["cm_high"])
+        return out, cm
+
+    def _power(self, p):
+        return p["i_supply"] * (p["v_pos"] - p["v_neg"])
+
+    def _feedback(self, p):
+        """(β, 1/(RF+RG)) of the feedback network; the follower has β = 1 and no network."""
+        raise NotImplementedError
+
+    def abcd(self, p, s, op):
+        """Non-inverting topology: V1 = (β + (1 + Ro·gfb)/A)·V2 + (Ro/A)·I2, I1 = Yin·V1."""
+        beta, g_fb = self._feedback(p)
+        ia = inv_open_loop(p, s)
+        core = ABCD(beta + (1.0 + p["r_out"] * g_fb) * ia, p["r_out"] * ia, 0.0, 0.0)
+        return chain(shunt_y(inv(p["r_in"]) + s * p["c_in"]), core)
+
+    def dc_input_load(self, p, out_load, op):
+        g = inv(p["r_in"])
+        return DcLoad(g, p["_cm_ref"] * g) if "_cm_ref" in p else DcLoad(g, 0.0)
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        m = self.abcd(p, 0.0, None)
+        ref = p.get("ref", 0.0)
+        v_open = ref + (v_in - ref) / m.A
+        out, cm = self._limits(p)
+        op = Op(values=dict(power_w=self._power(p)), in_range=cm, out_range=out)
+        return dc_source(v_open, m.B / m.A), op
+
+
+class OpampFollower(_OpAmp):
+    kind, title, follower_type = "opamp_follower", "op-amp voltage follower", True
+    FIELDS = dict(COMMON)
+
+    def _feedback(self, p):
+        return 1.0, 0.0
+
+
+class OpampNoninverting(_OpAmp):
+    kind, title = "opamp_noninverting", "op-amp non-inverting amplifier, gain 1 + RF/RG"
+    FIELDS = {**COMMON, **FEEDBACK}
+
+    def _feedback(self, p):
+        return p["r_g"] / (p["r_f"] + p["r_g"]), 1.0 / (p["r_f"] + p["r_g"])
+
+
+class OpampInverting(_OpAmp):
+    kind, title = "opamp_inverting", "op-amp inverting amplifier, gain −RF/RG"
+    FIELDS = {**COMMON, **FEEDBACK,
+              "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, positive=True)}
+
+    def abcd(self, p, s, op):
+        """Nodal analysis with the inverting input at Vm, A(s) and Ro:
+        k = 1/(A − Ro/RF); Vm = −k(1 + Ro/RF)·V2 − k·Ro·I2;
+        V1 = (1 + RG/RF)·Vm − (RG/RF)·V2;  I1 = (Vm − V2)/RF."""
+        ia = inv_open_loop(p, s)
+        rf, rg, ro = p["r_f"], p["r_g"], p["r_out"]
+        k = ia / (1.0 - ro / rf * ia)
+        vm_v2 = -k * (1.0 + ro / rf)
+        vm_i2 = -k * ro
+        return ABCD((1.0 + rg / rf) * vm_v2 - rg / rf, (1.0 + rg / rf) * vm_i2,
+                    (vm_v2 - 1.0) / rf, vm_i2 / rf)
+
+    def dc_input_load(self, p, out_load, op):
+        """The input resistor returns to the virtual ground held at ref."""
+        return DcLoad(1.0 / p["r_g"], p["ref"] / p["r_g"])
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        st, op = super().dc_forward(p, st_in, v_in, out_load)
+        out, cm = self._limits(p)
+        op.in_range = (-np.inf, np.inf)
+        if np.any(p["ref"] < cm[0]) or np.any(p["ref"] > cm[1]):
+            op.problems.append(("ref", "the reference lies outside the op-amp's input common-mode range"))
+        return st, op
+
+
+KINDS = [OpampFollower, OpampNoninverting, OpampInverting]
