@@ -7,12 +7,16 @@
 """
 from __future__ import annotations
 
+import importlib
+
 from .budget import Budget, analyse
 from .model import Chain
 from .spec import load_chain, load_chain_text
 
-#: Feature hooks run on every nominal budget (noise, requirements): f(budget) -> None.
-BUDGET_HOOKS: list = []
+#: Feature hooks run on every nominal budget (noise, requirements), as
+#: "module:function" strings imported on use; each takes the Budget and adds
+#: its summary rows (``b.extra_summary``) and JSON keys (``b.extra_json``).
+BUDGET_HOOKS: list[str] = []
 
 
 def load(path: str) -> Chain:
@@ -27,6 +31,7 @@ def loads(text: str, path: str = "<text>") -> Chain:
 def budget_for(chain: Chain) -> Budget:
     """The nominal budget, with every feature's summary rows attached."""
     b = analyse(chain)
-    for hook in BUDGET_HOOKS:
-        hook(b)
+    for target in BUDGET_HOOKS:
+        mod, fn = target.split(":")
+        getattr(importlib.import_module(mod), fn)(b)
     return b
