@@ -37,6 +37,7 @@ def budget_dict(b: Budget) -> dict:
                         "z_load_ohm": r.z_load_ohm, "loading_loss_db": r.loss_db} for r in b.interfaces],
         "nodes": [{"name": n.name, "dc_v": n.dc_v, "peak_v": n.peak_v, "low_limit_v": n.low_v,
                    "high_limit_v": n.high_v, "headroom_v": n.headroom_v, "headroom_db": n.headroom_db,
+                   "low_limit_by": n.limited_by[0], "high_limit_by": n.limited_by[1],
                    "clips": n.clips} for n in b.nodes],
         **b.extra_json,
     })

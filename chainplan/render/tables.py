@@ -43,8 +43,9 @@ def budget_tables(b: Budget, console) -> None:
         t.add_column(col, justify="left" if col in ("stage", "kind") else "right")
     for s in b.stages:
         t.add_row(s.name, s.kind, eng(s.zin_ohm, "Ω"), eng(s.zout_ohm, "Ω"),
-                  "—" if s.gain is None else f"{s.gain:.4g}", db(s.gain_db))
+                  "—" if s.gain is None else f"{s.gain:.5g}", db(s.gain_db))
     console.print(t)
+    _active_table(b, console, bx)
 
     worst = b.worst_interface
     t = Table(title="Interfaces (loading)", box=bx, title_justify="left")
@@ -59,14 +60,14 @@ def budget_tables(b: Budget, console) -> None:
 
     tight = b.tightest_node
     t = Table(title=f"Nodes (DC, signal peak at {f_ref}, limits, headroom)", box=bx, title_justify="left")
-    for col in ("node", "DC", "peak", "low limit", "high limit", "headroom", "headroom dB", ""):
-        t.add_column(col, justify="left" if col in ("node", "") else "right")
+    for col in ("node", "DC", "peak", "low limit", "high limit", "headroom", "headroom dB", "set by", ""):
+        t.add_column(col, justify="left" if col in ("node", "set by", "") else "right")
     for n in b.nodes:
         mark = "CLIPS" if n.clips else ("tightest" if n is tight else "")
         style = "bold red" if n.clips else ("bold yellow" if mark else None)
         t.add_row(n.name, eng(n.dc_v, "V"), eng(n.peak_v, "V"), _lim(n.low_v), _lim(n.high_v),
                   eng(n.headroom_v, "V") if math.isfinite(n.headroom_v) else "—",
-                  db(n.headroom_db, 1) if math.isfinite(n.headroom_db) else "—", mark, style=style)
+                  db(n.headroom_db, 1) if math.isfinite(n.headroom_db) else "—", _set_by(n), mark, style=style)
     console.print(t)
 
     t = Table(title="Summary", box=bx, title_justify="left", show_header=False)
@@ -75,8 +76,10 @@ def budget_tables(b: Budget, console) -> None:
     t.add_row(f"end-to-end gain to '{b.output}' at {f_ref}", db(b.gain_db))
     t.add_row("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
                             f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")
-    if worst is not None:
+    if worst is not None and worst.loss_db < -0.005:
         t.add_row("worst interface", f"{worst.source} → {worst.to}: {db(worst.loss_db, 3)}")
+    elif worst is not None:
+        t.add_row("worst interface", "none loses more than 0.005 dB")
     if tight is not None:
         t.add_row("tightest node", f"{tight.name}: {eng(tight.headroom_v, 'V')} headroom")
     if b.signal_dbfs is not None:
@@ -86,6 +89,34 @@ def budget_tables(b: Budget, console) -> None:
     clips = [n.name for n in b.nodes if n.clips]
     if clips:
         t.add_row("clipping", ", ".join(clips), style="bold red")
+    console.print(t)
+
+
+def _set_by(n) -> str:
+    """The stage whose limit is nearer the signal."""
+    lo_by, hi_by = n.limited_by
+    if not (math.isfinite(n.low_v) or math.isfinite(n.high_v)):
+        return ""
+    up = n.high_v - (n.dc_v + n.peak_v)
+    down = (n.dc_v - n.peak_v) - n.low_v
+    return (hi_by if up <= down else lo_by) or ""
+
+
+def _active_table(b: Budget, console, bx) -> None:
+    """Operating points of the stages that draw power: what each one costs."""
+    from rich.table import Table
+    rows = [s for s in b.stages if s.op.get("power_w") is not None]
+    if not rows:
+        return
+    t = Table(title="Active stages (operating point)", box=bx, title_justify="left")
+    for col in ("stage", "bias current", "DC shift", "gm", "power"):
+        t.add_column(col, justify="left" if col == "stage" else "right")
+    dc = {n.name: n.dc_v for n in b.nodes}
+    parents = {st.name: st.parent for st in b.chain.stages}
+    for s in rows:
+        i = s.op.get("id_a", s.op.get("ic_a"))
+        shift = dc[s.name] - dc[parents[s.name]] if s.name in dc else None
+        t.add_row(s.name, eng(i, "A"), eng(shift, "V"), eng(s.op.get("gm_s"), "S"), eng(s.op["power_w"], "W"))
     console.print(t)
 
 
