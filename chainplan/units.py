@@ -120,6 +120,7 @@ UNITS: dict[str, Unit] = {u.id: u for u in (
     Unit("H", "H", "inductance", "10 µH", "henries", ("H",), allow_inf=True),
     Unit("V", "V", "voltage", "1.2 V", "volts", ("V",), allow_inf=True),
     Unit("A", "A", "current", "10 mA", "amperes", ("A",), allow_inf=True),
+    Unit("W", "W", "power", "10 mW", "watts", ("W",)),
     Unit("S", "S", "conductance", "10 mS", "siemens", ("S", "mho", "mhos")),
     Unit("Hz", "Hz", "frequency", "1 MHz", "hertz", ("Hz",), allow_inf=True),
     Unit("s", "s", "time", "10 ns", "seconds", ("s",)),
