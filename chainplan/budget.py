@@ -44,6 +44,20 @@ class Evaluation:
     def span(self) -> np.ndarray:
         return self.f_hz[1:]
 
+    @property
+    def samples(self) -> int:
+        return int(np.shape(self.gain())[0])
+
+    @property
+    def valid(self) -> np.ndarray:
+        """Per sample: every device holds its bias (``Op.bad``) and every node has a DC level, (S,)."""
+        bad = np.zeros(self.samples, dtype=bool)
+        for op in self.dc.ops.values():
+            bad = bad | np.ravel(op.bad)
+        for v in self.dc.node_v.values():
+            bad = bad | ~np.isfinite(np.ravel(v))
+        return ~bad
+
     def gain(self, node: str | None = None):
         """V_node/Vs over the grid, (S, F+1)."""
         return self.ac.node_h[node or self.output]

@@ -186,6 +186,17 @@ class Op:
     out_range: tuple[Any, Any] = (-np.inf, np.inf)
     input_load: DcLoad = NO_LOAD           # DC current the stage input draws
     problems: list[str] = field(default_factory=list)   # e.g. "out of saturation"
+    bad: Any = False                       # per-sample mask: the device cannot hold this bias
+
+    def flag(self, mask, fld: str, message: str) -> bool:
+        """Record a bias the device cannot hold: OR the per-sample ``mask`` into
+        ``bad`` (tolerance runs count those samples as failures) and, if any
+        sample is affected, add ``(field, message)`` to ``problems``."""
+        mask = np.asarray(mask, dtype=bool)
+        self.bad = self.bad | mask
+        if mask.any():
+            self.problems.append((fld, message))
+        return bool(mask.any())
 
 
 class StageKind:

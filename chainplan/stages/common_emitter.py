@@ -47,9 +47,8 @@ class CommonEmitter(StageKind):
                             power_w=ic * (1 + 1 / p["beta"]) * (p["collector"] - p["v_low"])))
         op.out_range = (ve + p["vce_sat"], p["collector"])
         op.input_load = DcLoad(0.0, -ic / p["beta"])
-        if np.any(vc - ve < p["vce_sat"]):
-            op.problems.append(("r_c", f"the transistor saturates (VCE = {float(np.min(vc - ve)):.3g} V); "
-                                       "lower r_c or the bias current"))
+        op.flag(vc - ve < p["vce_sat"], "r_c", f"the transistor saturates (VCE = {float(np.min(vc - ve)):.3g} V); "
+                "lower r_c or the bias current")
         i_out = out_load.G * vc - out_load.I0
         return dc_source(vc + r_out * i_out, r_out), op
 

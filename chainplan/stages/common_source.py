@@ -64,11 +64,9 @@ class CommonSource(StageKind):
         op.out_range = (vs + vov, p["drain"])
         op.in_range = (vs + vth, np.inf)
         field = "r_d" if p.get("r_d") is not None else "i_load"
-        if np.any(vov <= 0):
-            op.problems.append(("vth0", "the device is cut off: the input DC level is below VS + Vth"))
-        elif np.any(vd - vs < vov - 1e-9):
-            op.problems.append((field, f"the device leaves saturation (VDS = {float(np.min(vd - vs)):.3g} V "
-                                       f"< Vov = {float(np.max(vov)):.3g} V)"))
+        op.flag(vov <= 0, "vth0", "the device is cut off: the input DC level is below VS + Vth")
+        op.flag((vov > 0) & (vd - vs < vov - 1e-9), field, f"the device leaves saturation (VDS = "
+                f"{float(np.min(vd - vs)):.3g} V < Vov = {float(np.max(vov)):.3g} V)")
         i_out = out_load.G * vd - out_load.I0
         return dc_source(vd + r_out * i_out, r_out), op
 

@@ -54,11 +54,12 @@ class EmitterFollower(StageKind):
         op.out_range = (low, p["collector"] - p["vce_sat"])
         op.in_range = (-np.inf, p["collector"] - p["vce_sat"] + (v_in - ve))
         op.input_load = DcLoad(0.0, -ic / p["beta"])
-        if np.any(p["collector"] - ve < p["vce_sat"]):
-            op.problems.append(("collector", "the transistor saturates at this bias"))
-        elif p.get("i_bias") is not None and np.any(ve - p["v_low"] < p["v_compliance"]):
-            op.problems.append(("i_bias", f"the emitter sits at {float(np.min(ve)):.3g} V, below the current "
-                                          "sink's compliance; the bias current cannot flow in the active region"))
+        sat = p["collector"] - ve < p["vce_sat"]
+        op.flag(sat, "collector", "the transistor saturates at this bias")
+        if p.get("i_bias") is not None:
+            op.flag(~sat & (ve - p["v_low"] < p["v_compliance"]), "i_bias",
+                    f"the emitter sits at {float(np.min(ve)):.3g} V, below the current "
+                    "sink's compliance; the bias current cannot flow in the active region")
         i_load = out_load.G * ve - out_load.I0
         return dc_source(ve + r_out * i_load, r_out), op
 

@@ -118,8 +118,8 @@ class OpampInverting(_OpAmp):
         st, op = super().dc_forward(p, st_in, v_in, out_load)
         out, cm = self._limits(p)
         op.in_range = (-np.inf, np.inf)
-        if np.any(p["ref"] < cm[0]) or np.any(p["ref"] > cm[1]):
-            op.problems.append(("ref", "the reference lies outside the op-amp's input common-mode range"))
+        op.flag((p["ref"] < cm[0]) | (p["ref"] > cm[1]), "ref",
+                "the reference lies outside the op-amp's input common-mode range")
         return st, op
 
 

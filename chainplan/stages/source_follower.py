@@ -51,15 +51,16 @@ class SourceFollower(StageKind):
         op.out_range = (low, p["drain"] - vov)
         op.in_range = (-np.inf, p["drain"] + vth)
         field = "i_bias" if p.get("i_bias") is not None else "r_s"
-        if np.any(vov <= 0) or np.any(i_d <= 0):
-            op.problems.append((field, "the device is cut off at this bias"))
-        elif np.any(p["drain"] - vs < vov):
-            op.problems.append((field, f"the device leaves saturation (VDS = {_f(p['drain'] - vs)} V < "
-                                       f"Vov = {_f(vov)} V); lower the bias current or raise the drain supply"))
-        elif p.get("i_bias") is not None and np.any(vs - p["v_low"] < p["v_compliance"]):
-            op.problems.append((field, f"the source sits at {_f(vs)} V, leaving the current sink less than "
-                                       f"its {_f(p['v_compliance'])} V compliance; the device cannot carry "
-                                       "this bias current in saturation with this gate level"))
+        cut = (vov <= 0) | (i_d <= 0)
+        op.flag(cut, field, "the device is cut off at this bias")
+        sat = ~cut & (p["drain"] - vs < vov)
+        op.flag(sat, field, f"the device leaves saturation (VDS = {_f(p['drain'] - vs)} V < "
+                            f"Vov = {_f(vov)} V); lower the bias current or raise the drain supply")
+        if p.get("i_bias") is not None:
+            op.flag(~cut & ~sat & (vs - p["v_low"] < p["v_compliance"]), field,
+                    f"the source sits at {_f(vs)} V, leaving the current sink less than "
+                    f"its {_f(p['v_compliance'])} V compliance; the device cannot carry "
+                    "this bias current in saturation with this gate level")
         i_load = out_load.G * vs - out_load.I0
         return dc_source(vs + r_out * i_load, r_out), op
 
