@@ -16,7 +16,9 @@ from .spec import load_chain, load_chain_text
 #: Feature hooks run on every nominal budget (noise, requirements), as
 #: "module:function" strings imported on use; each takes the Budget and adds
 #: its summary rows (``b.extra_summary``) and JSON keys (``b.extra_json``).
-BUDGET_HOOKS: list[str] = []
+BUDGET_HOOKS: list[str] = [
+    "chainplan.requirements:attach_to_budget",
+]
 
 
 def load(path: str) -> Chain:

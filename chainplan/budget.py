@@ -46,7 +46,9 @@ class Evaluation:
 
     @property
     def samples(self) -> int:
-        return int(np.shape(self.gain())[0])
+        """Number of samples: the longest per-sample parameter array (1 for a nominal analysis)."""
+        return max((np.shape(v)[0] for p in self.params.values() for v in p.values() if np.ndim(v) >= 1),
+                   default=1)
 
     @property
     def valid(self) -> np.ndarray:

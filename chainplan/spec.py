@@ -24,7 +24,10 @@ ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", 
 NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 
 #: Sections owned by feature modules: key -> "module:function(chain, node, path)".
-SECTION_PARSERS: dict[str, str] = {}
+SECTION_PARSERS: dict[str, str] = {
+    "requirements": "chainplan.requirements:parse_section",
+    "corners": "chainplan.tolerances:parse_corners",
+}
 
 
 class _Ctx:

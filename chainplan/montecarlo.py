@@ -1,0 +1,193 @@
+"""Tolerance Monte Carlo: every tolerance and corner drawn per sample, the chain
+evaluated by the same engine on ``(samples, frequencies)`` arrays, in chunks so
+memory stays bounded.
+
+Per sample: the gain at f_ref, the band edges, every interface's loading loss,
+every node's headroom, the supply power, noise/SNR/ENOB when the noise
+analysis exists, and every requirement's value and pass/fail.  A sample whose
+operating point is impossible (``Evaluation.valid``) or whose drawn values
+break a field's limits fails every requirement and is left out of the metric
+statistics.
+
+Ranking of what drives the spread: a first-order (linear) variance
+decomposition — least-squares regression of the metric on the independent
+draws over the valid samples; with independent inputs the share of input i is
+``b_i²·Var(x_i)/Var(y)``, the squared standardised regression coefficient
+(Saltelli et al., *Global Sensitivity Analysis: The Primer*, Wiley 2008, §1.2,
+from memory; the same first-order sum as the law of propagation of
+uncertainty, GUM, JCGM 100:2008, eq. 10, from memory).  The shares sum to the
+regression's R²; what is missing from 1 is the non-linear part.
+"""
+from __future__ import annotations
+
+import importlib.util
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .budget import evaluate, frequency_grid
+from .model import Chain
+from .requirements import ReqResult, evaluate_requirements
+from .tolerances import Draws, draw
+
+#: working-memory budget of one chunk (bytes); the chunk size follows from it
+CHUNK_BYTES = 256e6
+#: complex (S, F) arrays alive per stage during one evaluation (measured with
+#: tracemalloc on the benchmark chain: about 12; rounded up)
+ARRAYS_PER_STAGE = 16
+PERCENTILES = (0.1, 50.0, 99.9)
+
+
+@dataclass
+class Stats:
+    mean: float
+    std: float
+    p_low: float        # 0.1 %
+    median: float
+    p_high: float       # 99.9 %
+    count: int          # finite values among the valid samples
+
+
+@dataclass
+class McResult:
+    chain: Chain
+    samples: int
+    seed: int
+    metrics: dict                       # name -> (S,)
+    requirements: list                  # ReqResult with (S,) arrays
+    valid: np.ndarray                   # (S,) bool
+    inputs: dict                        # independent draws, name -> (S,)
+    key_metric: str = "gain_db"
+    sensitivity: list = field(default_factory=list)    # [(input name, share of variance)]
+
+    @property
+    def yield_all(self) -> float:
+        """Fraction of samples that are valid and meet every requirement."""
+        ok = self.valid.copy()
+        for r in self.requirements:
+            ok &= r.passed
+        return float(ok.mean()) if self.samples else float("nan")
+
+    def yield_of(self, r: ReqResult) -> float:
+        return float(r.passed.mean()) if self.samples else float("nan")
+
+    def stats(self, name: str) -> Stats:
+        return stats(self.metrics[name], self.valid)
+
+
+def stats(x: np.ndarray, valid: np.ndarray) -> Stats:
+    """Mean, sample standard deviation and the 0.1/50/99.9 % percentiles of the valid, finite values."""
+    v = x[valid & np.isfinite(x)]
+    if v.size == 0:
+        return Stats(*(float("nan"),) * 5, 0)
+    lo, med, hi = np.percentile(v, PERCENTILES)
+    return Stats(float(v.mean()), float(v.std(ddof=1)) if v.size > 1 else 0.0, float(lo), float(med),
+                 float(hi), int(v.size))
+
+
+def metrics(ev) -> dict:
+    """Per-sample figures of an evaluation, each ``(S,)``."""
+    n = ev.samples
+    per = lambda x: np.broadcast_to(np.ravel(np.asarray(x, dtype=float)), (n,)) \
+        if np.size(x) == 1 else np.ravel(np.asarray(x, dtype=float))  # noqa: E731
+    chain = ev.chain
+    out = {"gain_db": per(20 * np.log10(np.abs(ev.gain()[:, 0])))}
+    f_lo, f_hi = ev.band_edges()
+    out["f_low_hz"], out["f_high_hz"] = per(f_lo), per(f_hi)
+    for st in chain.stages:
+        out[f"loading_loss_db.{st.name}"] = per(ev.interface_loss_db(st.name)[:, 0])
+    for node in chain.nodes:
+        out[f"headroom_v.{node}"] = per(ev.headroom(node))
+    power = buffers = 0.0
+    for st in chain.stages:
+        pw = ev.dc.ops[st.name].values.get("power_w")
+        if pw is not None:
+            power = power + per(pw)
+            buffers = buffers + (per(pw) if st.model.follower_type else 0.0)
+    out["power_w"], out["buffer_power_w"] = per(power), per(buffers)
+    if importlib.util.find_spec("chainplan.noise") is not None:
+        from .noise import analyse_noise
+        nr = analyse_noise(ev)
+        for key in ("out_vrms", "in_vrms"):
+            out[f"noise_{key}"] = per(getattr(nr, key))
+        out["snr_db"], out["enob_bits"] = per(nr.snr_db), per(nr.enob_bits)
+    return out
+
+
+def chunk_size(chain: Chain) -> int:
+    """Samples per chunk so one evaluation stays within CHUNK_BYTES."""
+    per_sample = len(frequency_grid(chain)) * 16 * ARRAYS_PER_STAGE * (len(chain.stages) + 1)
+    return int(max(50, min(5000, CHUNK_BYTES // per_sample)))
+
+
+def run(chain: Chain, samples: int, seed: int = 1, chunk: int | None = None, progress=None,
+        key: str | None = None) -> McResult:
+    """Monte Carlo over every tolerance and corner of ``chain``.  ``progress(done, total)``
+    is called after each chunk; ``key`` names the metric or requirement to rank inputs for
+    (default: the requirement with the lowest yield, else the gain)."""
+    return run_draws(draw(chain, samples, seed), seed, chunk, progress, key)
+
+
+def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None) -> McResult:
+    """Evaluate prepared draws (a Monte Carlo set or the corner combinations) in chunks."""
+    chain = d.chain
+    chunk = chunk or chunk_size(chain)
+    parts_m, parts_r, parts_v = [], [], []
+    for start in range(0, d.n, chunk):
+        sl = slice(start, min(start + chunk, d.n))
+        ev = evaluate(chain, d.params(sl))
+        n = sl.stop - sl.start
+        parts_m.append({k: np.broadcast_to(v, (n,)) for k, v in metrics(ev).items()})
+        parts_r.append(evaluate_requirements(ev))
+        parts_v.append(np.broadcast_to(ev.valid, (n,)) & d.valid[sl])
+        if progress is not None:
+            progress(sl.stop, d.n)
+    valid = np.concatenate(parts_v) if parts_v else np.zeros(0, dtype=bool)
+    mets = {k: np.concatenate([p[k] for p in parts_m]) for k in parts_m[0]} if parts_m else {}
+    reqs = [_join([p[i] for p in parts_r], valid) for i in range(len(parts_r[0]))] if parts_r else []
+    res = McResult(chain, d.n, seed, mets, reqs, valid, d.inputs)
+    res.key_metric, y = key_values(res, key)
+    res.sensitivity = rank(y, d.inputs, valid)
+    return res
+
+
+def _join(parts: list[ReqResult], valid) -> ReqResult:
+    first = parts[0]
+    cat = lambda attr: np.concatenate([getattr(p, attr) for p in parts])  # noqa: E731
+    where = None
+    if first.where is not None:
+        where = (first.where[0], np.concatenate([p.where[1] for p in parts]))
+    return ReqResult(first.name, first.kind, cat("value"), first.limit, cat("margin"), cat("passed") & valid,
+                     first.unit, first.sense, first.requirement, where)
+
+
+def key_values(res: McResult, key: str | None):
+    """The metric or requirement values to rank inputs for."""
+    if key is None:
+        failing = [r for r in res.requirements if res.yield_of(r) < 1.0]
+        if failing:
+            worst = min(failing, key=res.yield_of)
+            return worst.name, worst.value
+        return "gain_db", res.metrics["gain_db"]
+    for r in res.requirements:
+        if r.name == key:
+            return r.name, r.value
+    return key, res.metrics[key]
+
+
+def rank(y: np.ndarray, inputs: dict, valid: np.ndarray) -> list:
+    """First-order variance shares of ``y`` by input (squared standardised regression
+    coefficients; see the module docstring), largest first."""
+    ok = valid & np.isfinite(y)
+    names = [k for k, v in inputs.items() if ok.any() and np.ptp(v[ok]) > 0]
+    if not names or ok.sum() < len(names) + 3:
+        return []
+    x = np.column_stack([inputs[k][ok] for k in names])
+    yy = y[ok]
+    sy = yy.std()
+    if not sy > 0:
+        return [(k, 0.0) for k in names]
+    xs = (x - x.mean(axis=0)) / x.std(axis=0)
+    coef, *_ = np.linalg.lstsq(np.column_stack([np.ones(len(yy)), xs]), (yy - yy.mean()) / sy, rcond=None)
+    shares = coef[1:] ** 2
+    return sorted(zip(names, (float(s) for s in shares)), key=lambda t: -t[1])

@@ -1,0 +1,385 @@
+"""Requirements a chain must meet: the spec's ``requirements:`` block, parsed
+strictly, and evaluated per sample on an :class:`~chainplan.budget.Evaluation`.
+
+Spec form — a list; each item has exactly one limit key plus its options::
+
+    requirements:
+      - min_gain: 30 dB            # end-to-end gain at f_ref (or at: 2 kHz)
+      - flatness: 1 dB             # peak-to-peak gain variation over a band
+        band: [50 Hz, 5 kHz]
+      - min_headroom: 200 mV       # every node, or nodes: [gain, antialias]
+      - max_loading_loss: 1 dB     # every interface, or interfaces: [lead]
+        name: no loading           # optional; names are what CI and diffs show
+
+Every result is vectorised over samples: ``value``, ``margin`` (positive =
+met, in the requirement's unit) and ``passed`` are ``(S,)`` arrays, so the
+same code checks the nominal chain (one sample) and a Monte Carlo batch.  A
+sample whose operating point is impossible (``Evaluation.valid``) fails every
+requirement.
+"""
+from __future__ import annotations
+
+import dataclasses
+import importlib.util
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import SpecError, nearest
+from .units import UnitError, fmt, parse_value
+from .yamlsrc import LDict, LList
+
+
+@dataclass(frozen=True)
+class Kind:
+    key: str            # the spec key, e.g. 'min_gain'
+    kind: str           # the kind id with its unit, e.g. 'min_gain_db'
+    unit: str           # unit id for chainplan.units
+    symbol: str         # unit shown in tables ('bits' for ENOB)
+    sense: str          # 'min' (value ≥ limit) or 'max' (value ≤ limit)
+    options: tuple      # extra keys the item may carry
+    what: str           # one line for docs and messages
+
+
+KINDS: dict[str, Kind] = {k.key: k for k in (
+    Kind("min_gain", "min_gain_db", "dB", "dB", "min", ("at",), "end-to-end gain at f_ref (or at:)"),
+    Kind("max_gain", "max_gain_db", "dB", "dB", "max", ("at",), "end-to-end gain at f_ref (or at:)"),
+    Kind("flatness", "flatness_db", "dB", "dB", "max", ("band",), "peak-to-peak gain variation over band:"),
+    Kind("min_f_high", "min_f_high_hz", "Hz", "Hz", "min", (), "upper −3 dB band edge"),
+    Kind("max_f_low", "max_f_low_hz", "Hz", "Hz", "max", (), "lower −3 dB band edge"),
+    Kind("min_headroom", "min_headroom_v", "V", "V", "min", ("nodes",), "headroom at every node (or nodes:)"),
+    Kind("max_loading_loss", "max_loading_loss_db", "dB", "dB", "max", ("interfaces", "at"),
+         "loading loss (dB lost) at every interface (or interfaces:), at f_ref (or at:)"),
+    Kind("min_snr", "min_snr_db", "dB", "dB", "min", (), "SNR of the spec's signal at the converter"),
+    Kind("min_enob", "min_enob_bits", "1", "bits", "min", (), "effective number of bits at the converter"),
+    Kind("max_buffer_power", "max_buffer_power_w", "W", "W", "max", ("stages",),
+         "total power of the follower stages (or stages:)"),
+)}
+NOISE_KINDS = ("min_snr", "min_enob")
+
+
+@dataclass(frozen=True)
+class Requirement:
+    name: str
+    key: str                           # spec key ('min_gain', ...)
+    kind: str                          # kind id ('min_gain_db', ...)
+    limit: float                       # SI (dB, Hz, V, bits, W)
+    unit: str                          # display symbol
+    sense: str                         # 'min' or 'max'
+    text: str                          # the limit as written
+    at_hz: float | None = None
+    band_hz: tuple | None = None
+    targets: tuple | None = None       # nodes / interfaces (reading stage) / stages; None = all
+    line: int | None = None
+
+    def describe(self) -> str:
+        """The requirement in words, e.g. '≥ 30.0 dB at 1.00 kHz'."""
+        op = "≥" if self.sense == "min" else "≤"
+        s = f"{op} {show(self.limit, self.unit)}"
+        if self.at_hz is not None:
+            s += f" at {fmt(self.at_hz, 'Hz')}"
+        if self.band_hz is not None:
+            s += f" over {fmt(self.band_hz[0], 'Hz')} … {fmt(self.band_hz[1], 'Hz')}"
+        return s
+
+
+@dataclass
+class ReqResult:
+    name: str
+    kind: str
+    value: np.ndarray      # (S,)
+    limit: float
+    margin: np.ndarray     # (S,), positive = met
+    passed: np.ndarray     # (S,) bool
+    unit: str
+    sense: str
+    requirement: Requirement
+    where: tuple | None = None     # aggregates: (target names, (S,) index of the one that sets the value)
+
+
+def show(x, unit: str) -> str:
+    """A requirement value in its unit: dB with two decimals, bits with two, others in engineering notation."""
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "—"
+    if unit == "dB":
+        return ("−∞" if x < 0 else "+∞") + " dB" if math.isinf(x) else f"{x:.2f} dB".replace("-", "−")
+    if unit == "bits":
+        return f"{x:.2f} bits".replace("-", "−")
+    return fmt(x, unit)
+
+
+# -- parsing -------------------------------------------------------------------
+
+def parse_section(chain, node, line, path) -> None:
+    """SECTION_PARSERS entry for ``requirements:``; stores ``chain.extra['requirements']``."""
+    if not isinstance(node, LList):
+        raise SpecError("'requirements' is a list, e.g. '- min_gain: 20 dB'", path, line, "requirements")
+    reqs, seen = [], {}
+    for i, item in enumerate(node):
+        where = f"requirements[{i}]"
+        if not isinstance(item, LDict):
+            raise SpecError("each requirement is a mapping with one limit, e.g. 'min_headroom: 100 mV' (valid: "
+                            + ", ".join(KINDS) + ")", path, node.line_of(i), where)
+        r = _parse_item(chain, item, path, where)
+        if r.name in seen:
+            raise SpecError(f"two requirements are called '{r.name}' (the other on line {seen[r.name]}); "
+                            "give one a different 'name:'", path, item.line, where)
+        seen[r.name] = item.line
+        reqs.append(r)
+    chain.extra["requirements"] = reqs
+
+
+def _parse_item(chain, item: LDict, path, where) -> Requirement:
+    keys = [k for k in item if k in KINDS]
+    if len(keys) != 1:
+        raise SpecError("a requirement has exactly one limit key" + (f" (got {', '.join(keys)})" if keys else
+                        " (valid: " + ", ".join(KINDS) + ")"), path, item.line, where)
+    k = KINDS[keys[0]]
+    allowed = {k.key, "name", *k.options}
+    for key in item:
+        if key not in allowed:
+            hint = nearest(key, allowed)
+            if key in ("at", "band", "nodes", "interfaces", "stages"):
+                hint = f" ('{key}' does not apply to {k.key}; it takes: {', '.join(sorted(allowed - {k.key}))})"
+            raise SpecError(f"unknown key '{key}'" + hint, path, item.line_of(key), f"{where}.{key}")
+    err = lambda msg, key: SpecError(msg, path, item.line_of(key), f"{where}.{key}")  # noqa: E731
+    raw = item[k.key]
+    try:
+        limit = parse_value(raw, k.unit)
+    except UnitError as exc:
+        raise err(str(exc), k.key) from None
+    if not math.isfinite(limit):
+        raise err("a limit must be finite", k.key)
+    if k.key == "max_loading_loss":
+        limit = abs(limit)                      # '1 dB' and '−1 dB' both mean: lose at most 1 dB
+    if k.key in ("flatness", "min_f_high", "max_f_low", "max_buffer_power", "min_enob") and limit < 0:
+        raise err(f"{k.key} cannot be negative", k.key)
+    if k.key in ("min_f_high", "max_f_low") and limit == 0:
+        raise err("a band edge limit must be above 0 Hz", k.key)
+    if k.key in NOISE_KINDS and importlib.util.find_spec("chainplan.noise") is None:
+        raise err(f"{k.key} needs the noise analysis, which this version of chainplan does not have", k.key)
+    at = _freq(item, "at", err) if "at" in item else None
+    band = None
+    if k.key == "flatness":
+        if "band" not in item:
+            raise err("flatness needs 'band: [LOW, HIGH]', e.g. band: [50 Hz, 5 kHz]", k.key)
+        band = _band(item, err)
+    targets = None
+    for key, names, what in (("nodes", chain.nodes, "node"),
+                             ("interfaces", [s.name for s in chain.stages], "interface (name the stage that reads it)"),
+                             ("stages", [s.name for s in chain.stages], "stage")):
+        if key in item:
+            targets = _names(item, key, names, what, err)
+    if k.key == "max_buffer_power" and targets is not None:
+        for t in targets:
+            if chain.stage(t).role != "two_port":
+                raise err(f"'{t}' draws no supply power (kind {chain.stage(t).kind})", "stages")
+    name = item.get("name")
+    if name is not None and (not isinstance(name, str) or not name.strip()):
+        raise err("'name' must be text", "name")
+    name = name.strip() if name else _default_name(k.key, at, band, targets)
+    return Requirement(name, k.key, k.kind, limit, k.symbol, k.sense, str(raw).strip(), at, band, targets,
+                       item.line)
+
+
+def _default_name(key, at, band, targets) -> str:
+    """Stable names without the limit, so a changed limit still matches across diffs."""
+    name = key
+    if targets:
+        name += " " + ",".join(targets)
+    if at is not None:
+        name += f" at {fmt(at, 'Hz')}"
+    if band is not None:
+        name += f" {fmt(band[0], 'Hz')}…{fmt(band[1], 'Hz')}"
+    return name
+
+
+def _freq(item, key, err, raw=None):
+    try:
+        v = parse_value(item[key] if raw is None else raw, "Hz")
+    except UnitError as exc:
+        raise err(str(exc), key) from None
+    if not (v > 0 and math.isfinite(v)):
+        raise err("a frequency must be positive and finite", key)
+    return v
+
+
+def _band(item, err):
+    raw = item["band"]
+    if not isinstance(raw, list) or len(raw) != 2:
+        raise err("band is a list of two frequencies, e.g. [50 Hz, 5 kHz]", "band")
+    lo, hi = (_freq(item, "band", err, r) for r in raw)
+    if not lo < hi:
+        raise err("the band's low end must be below its high end", "band")
+    return lo, hi
+
+
+def _names(item, key, valid, what, err):
+    raw = item[key]
+    raw = [raw] if isinstance(raw, str) else raw
+    if not isinstance(raw, list) or not raw:
+        raise err(f"'{key}' is a list of names, e.g. [{valid[-1]}]", key)
+    for n in raw:
+        if n not in valid:
+            raise err(f"'{n}' is not a {what} of this chain" + nearest(str(n), valid), key)
+    return tuple(raw)
+
+
+# -- evaluation ----------------------------------------------------------------
+
+class _Views:
+    """The evaluation plus, on demand, exact gains at frequencies off the grid
+    (one extra AC pass reusing the operating points) and the noise analysis."""
+
+    def __init__(self, ev, reqs):
+        from .cascade import run_ac
+        self.ev, self.n = ev, ev.samples
+        extra = sorted({f for r in reqs for f in (r.at_hz, *(r.band_hz or ())) if f is not None}
+                       - {ev.f_hz[0]})
+        self.col = {float(ev.f_hz[0]): (ev, 0)}
+        if extra:
+            f = np.asarray(extra)
+            ev_x = dataclasses.replace(ev, f_hz=f, ac=run_ac(ev.chain, ev.params, ev.dc.ops, f))
+            self.col.update({float(x): (ev_x, i) for i, x in enumerate(extra)})
+        self._noise = None
+
+    def at(self, f_hz):
+        return self.col[float(self.ev.f_hz[0] if f_hz is None else f_hz)]
+
+    def per_sample(self, x):
+        return np.broadcast_to(np.ravel(np.asarray(x, dtype=float)), (self.n,)) if np.size(x) == 1 else \
+            np.ravel(np.asarray(x, dtype=float))
+
+    @property
+    def noise(self):
+        if self._noise is None:
+            from .noise import analyse_noise
+            self._noise = analyse_noise(self.ev)
+        return self._noise
+
+
+def _gain_db(v: _Views, r):
+    ev, j = v.at(r.at_hz)
+    return 20 * np.log10(np.abs(ev.gain()[:, j])), None
+
+
+def _flatness(v: _Views, r):
+    ev = v.ev
+    lo, hi = r.band_hz
+    inside = (ev.span >= lo) & (ev.span <= hi)
+    mags = [np.abs(ev.gain()[:, 1:][:, inside])]
+    for f in (lo, hi):
+        e, j = v.at(f)
+        mags.append(np.abs(e.gain()[:, j:j + 1]))
+    n = max(m.shape[0] for m in mags)
+    db = 20 * np.log10(np.concatenate([np.broadcast_to(m, (n, m.shape[1])) for m in mags], axis=1))
+    return db.max(axis=1) - db.min(axis=1), None
+
+
+def _f_high(v: _Views, r):
+    f = v.ev.band_edges()[1]
+    return np.where(np.isnan(f), np.inf, f), None          # no edge in the span: above it
+
+
+def _f_low(v: _Views, r):
+    f = v.ev.band_edges()[0]
+    return np.where(np.isnan(f), 0.0, f), None             # no edge in the span: below it
+
+
+def _headroom(v: _Views, r):
+    names = list(r.targets or v.ev.chain.nodes)
+    rows = np.stack([v.per_sample(v.ev.headroom(n)) for n in names])
+    return _worst(rows, names, np.argmin)
+
+
+def _loading(v: _Views, r):
+    ev, j = v.at(r.at_hz)
+    names = list(r.targets or [s.name for s in ev.chain.stages])
+    rows = np.stack([v.per_sample(-ev.interface_loss_db(n)[:, j]) for n in names])
+    return _worst(rows, names, np.argmax)
+
+
+def _worst(rows, names, pick):
+    """The extreme over the targets (rows) per sample, and which target sets it;
+    a NaN row (a sample whose DC level failed) is skipped unless all are NaN."""
+    filled = np.where(np.isnan(rows), np.inf if pick is np.argmin else -np.inf, rows)
+    idx = pick(filled, axis=0)
+    return rows[idx, np.arange(rows.shape[1])], (names, idx)
+
+
+def _snr(v: _Views, r):
+    return v.noise.snr_db, None
+
+
+def _enob(v: _Views, r):
+    return v.noise.enob_bits, None
+
+
+def _power(v: _Views, r):
+    ev = v.ev
+    names = r.targets or [s.name for s in ev.chain.stages if s.model.follower_type]
+    total = 0.0
+    for n in names:
+        total = total + v.per_sample(ev.dc.ops[n].values.get("power_w", 0.0))
+    return total + np.zeros(v.n), None
+
+
+_VALUE = {"min_gain": _gain_db, "max_gain": _gain_db, "flatness": _flatness, "min_f_high": _f_high,
+          "max_f_low": _f_low, "min_headroom": _headroom, "max_loading_loss": _loading, "min_snr": _snr,
+          "min_enob": _enob, "max_buffer_power": _power}
+
+
+def evaluate_requirements(ev, reqs=None) -> list[ReqResult]:
+    """Every requirement of the chain (or ``reqs``) on an evaluation, vectorised over its samples."""
+    reqs = ev.chain.extra.get("requirements", []) if reqs is None else reqs
+    if not reqs:
+        return []
+    views = _Views(ev, reqs)
+    valid = np.broadcast_to(ev.valid, (views.n,))
+    out = []
+    for r in reqs:
+        value, where = _VALUE[r.key](views, r)
+        value = views.per_sample(value)
+        margin = value - r.limit if r.sense == "min" else r.limit - value
+        with np.errstate(invalid="ignore"):
+            passed = (margin >= 0) & valid
+        out.append(ReqResult(r.name, r.kind, value, r.limit, margin, passed, r.unit, r.sense, r, where))
+    return out
+
+
+def where_of(res: ReqResult, i: int = 0) -> str | None:
+    """The node or interface that sets an aggregate requirement's value in sample ``i``."""
+    if res.where is None:
+        return None
+    names, idx = res.where
+    return names[int(idx[i])]
+
+
+# -- budget hook -----------------------------------------------------------------
+
+def result_dict(res: ReqResult, i: int = 0) -> dict:
+    """One requirement's outcome for sample ``i`` as plain values (JSON, diffs)."""
+    return {"name": res.name, "kind": res.kind, "limit": res.limit, "unit": res.unit, "sense": res.sense,
+            "value": float(res.value[i]), "margin": float(res.margin[i]), "passed": bool(res.passed[i]),
+            "where": where_of(res, i)}
+
+
+def attach_to_budget(b) -> None:
+    """BUDGET_HOOKS entry: requirement pass/fail in the budget summary and ``requirements[]`` in JSON."""
+    results = evaluate_requirements(b.ev)
+    if not results:
+        return
+    failing = [r.name for r in results if not r.passed[0]]
+    met = len(results) - len(failing)
+    b.extra_summary.append(("requirements", f"{met} of {len(results)} met" +
+                            (f"; failing: {', '.join(failing)}" if failing else "")))
+    b.extra_json["requirements"] = [result_dict(r) for r in results]
+
+
+def check_chain(chain) -> list[ReqResult]:
+    """The nominal chain's requirement results (an impossible nominal bias is a SpecError)."""
+    from .budget import check_operating_points, evaluate
+    ev = evaluate(chain)
+    check_operating_points(chain, ev.dc)
+    return evaluate_requirements(ev)
