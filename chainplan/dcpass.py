@@ -5,8 +5,11 @@ Loads are passed backward as Norton equivalents (I = G·V − I0), sources forwa
 as affine relations (e = a·V + b·I); active stages solve their own nonlinear
 bias with the load current included (see stages/base.py).  Base currents make
 the loads depend on the operating points, so the two passes repeat until the
-levels settle (three rounds suffice: a base current changes by a fraction of
-a per cent between rounds)."""
+levels settle.  Each stage that draws input current reports it linearised at
+its last bias (``dIB/dVB``), which makes the repetition a Newton iteration:
+a plain fixed point (constant base current) converges only while
+Rsource < (β + 1)·RE and diverges for the high-impedance sensors this tool is
+for."""
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -25,13 +28,29 @@ class DcResult:
     limit_by: dict          # node -> (stage setting the low limit, stage setting the high limit)
 
 
+#: Newton rounds at most, and the settling tolerance on every node level (V).
+MAX_ROUNDS, SETTLED_V = 60, 1e-9
+
+
 def solve_dc(chain: Chain, params: dict, rounds: int | None = None) -> DcResult:
-    rounds = rounds or (3 if any(st.model.draws_input_current for st in chain.stages) else 1)
+    """DC levels and operating points; ``rounds`` fixes the number of passes
+    (default: one, or repeat until every level moves less than SETTLED_V)."""
+    iterate = any(st.model.draws_input_current for st in chain.stages)
     ops: dict[str, Op | None] = {st.name: None for st in chain.all_stages}
-    for _ in range(rounds):
+    node_v = None
+    for _ in range(rounds or (MAX_ROUNDS if iterate else 1)):
         loads = _backward(chain, params, ops)
-        node_v, ops = _forward(chain, params, loads)
+        new_v, ops = _forward(chain, params, loads)
+        settled = node_v is not None and all(_settled(new_v[n], node_v[n]) for n in new_v)
+        node_v = new_v
+        if settled and rounds is None:
+            break
     return DcResult(node_v, ops, *_limits(chain, ops))
+
+
+def _settled(new, old) -> bool:
+    d = np.abs(np.asarray(new) - np.asarray(old))
+    return bool(np.all((d <= SETTLED_V) | (np.isnan(new) & np.isnan(old))))
 
 
 def _backward(chain, params, ops):

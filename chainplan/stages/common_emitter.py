@@ -46,7 +46,8 @@ class CommonEmitter(StageKind):
                             rin_ohm=r_in, av=av, rout_ohm=r_out,
                             power_w=ic * (1 + 1 / p["beta"]) * (p["collector"] - p["v_low"])))
         op.out_range = (ve + p["vce_sat"], p["collector"])
-        op.input_load = DcLoad(0.0, -ic / p["beta"])
+        # base current linearised at this bias (dIB/dVB = 1/Rin): a Newton step for the DC loop
+        op.input_load = DcLoad(1.0 / r_in, v_in / r_in - ic / p["beta"])
         op.flag(vc - ve < p["vce_sat"], "r_c", f"the transistor saturates (VCE = {float(np.min(vc - ve)):.3g} V); "
                 "lower r_c or the bias current")
         i_out = out_load.G * vc - out_load.I0

@@ -53,7 +53,10 @@ class EmitterFollower(StageKind):
         low = p["v_low"] + (p["v_compliance"] if p.get("i_bias") is not None else 0.0)
         op.out_range = (low, p["collector"] - p["vce_sat"])
         op.in_range = (-np.inf, p["collector"] - p["vce_sat"] + (v_in - ve))
-        op.input_load = DcLoad(0.0, -ic / p["beta"])
+        # Base current linearised at this bias, so the chain's DC loop is a Newton
+        # iteration: dIB/dVB = 1/(rπ + (β + 1)·RE_dc), RE_dc the emitter's DC load.
+        g_in = inv(r_pi + (p["beta"] + 1.0) * inv(g_out + out_load.G))
+        op.input_load = DcLoad(g_in, g_in * v_in - ic / p["beta"])
         sat = p["collector"] - ve < p["vce_sat"]
         op.flag(sat, "collector", "the transistor saturates at this bias")
         if p.get("i_bias") is not None:
