@@ -184,6 +184,7 @@ def _topological(ctx, source, stages):
     if cycle:
         names = [a for a, _ in cycle]
         first = min(names, key=lambda n: index.get(n, -1))
+        names = names[names.index(first):] + names[:names.index(first)]   # start where the message points
         st = stages[index[first]]
         raise ctx.err("the connections form a loop: " + " → ".join(names + [names[0]]) +
                       "; a chain is a tree fed by its source", st.field_lines.get("from", st.line), "from")
