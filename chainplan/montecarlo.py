@@ -59,6 +59,7 @@ class McResult:
     inputs: dict                        # independent draws, name -> (S,)
     key_metric: str = "gain_db"
     sensitivity: list = field(default_factory=list)    # [(input name, share of variance)]
+    labels: list | None = None                          # corner runs: a label per sample
 
     @property
     def yield_all(self) -> float:
@@ -105,13 +106,42 @@ def metrics(ev) -> dict:
             power = power + per(pw)
             buffers = buffers + (per(pw) if st.model.follower_type else 0.0)
     out["power_w"], out["buffer_power_w"] = per(power), per(buffers)
-    if importlib.util.find_spec("chainplan.noise") is not None:
+    if has_noise():
         from .noise import analyse_noise
         nr = analyse_noise(ev)
         for key in ("out_vrms", "in_vrms"):
             out[f"noise_{key}"] = per(getattr(nr, key))
         out["snr_db"], out["enob_bits"] = per(nr.snr_db), per(nr.enob_bits)
     return out
+
+
+#: metric key (before the '.') -> (words, unit symbol, better direction: +1 higher, −1 lower, 0 neither)
+METRICS = {"gain_db": ("gain at f_ref", "dB", 0), "f_low_hz": ("lower −3 dB edge", "Hz", 0),
+           "f_high_hz": ("upper −3 dB edge", "Hz", 0), "loading_loss_db": ("loading loss", "dB", +1),
+           "headroom_v": ("headroom", "V", +1), "power_w": ("supply power", "W", -1),
+           "buffer_power_w": ("buffer power", "W", -1), "noise_out_vrms": ("output noise", "V", -1),
+           "noise_in_vrms": ("input-referred noise", "V", -1), "snr_db": ("SNR", "dB", +1),
+           "enob_bits": ("ENOB", "bits", +1)}
+
+
+def metric_info(chain: Chain, key: str) -> tuple[str, str, int]:
+    """(label, unit, better direction) of a metric key, e.g. ('loading loss element → lead', 'dB', +1)."""
+    base, _, target = key.partition(".")
+    text, unit, better = METRICS[base]
+    if base == "loading_loss_db":
+        target = f"{chain.stage(target).parent} → {target}"
+    return (f"{text} {target}" if target else text), unit, better
+
+
+def has_noise() -> bool:
+    return importlib.util.find_spec("chainplan.noise") is not None
+
+
+def metric_names(chain: Chain) -> list:
+    """The keys :func:`metrics` returns for this chain."""
+    return (["gain_db", "f_low_hz", "f_high_hz"] + [f"loading_loss_db.{st.name}" for st in chain.stages]
+            + [f"headroom_v.{n}" for n in chain.nodes] + ["power_w", "buffer_power_w"]
+            + (["noise_out_vrms", "noise_in_vrms", "snr_db", "enob_bits"] if has_noise() else []))
 
 
 def chunk_size(chain: Chain) -> int:
@@ -145,9 +175,10 @@ def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, 
     valid = np.concatenate(parts_v) if parts_v else np.zeros(0, dtype=bool)
     mets = {k: np.concatenate([p[k] for p in parts_m]) for k in parts_m[0]} if parts_m else {}
     reqs = [_join([p[i] for p in parts_r], valid) for i in range(len(parts_r[0]))] if parts_r else []
-    res = McResult(chain, d.n, seed, mets, reqs, valid, d.inputs)
-    res.key_metric, y = key_values(res, key)
-    res.sensitivity = rank(y, d.inputs, valid)
+    res = McResult(chain, d.n, seed, mets, reqs, valid, d.inputs, labels=d.labels)
+    if d.n:
+        res.key_metric, y = key_values(res, key)
+        res.sensitivity = rank(y, d.inputs, valid)
     return res
 
 

@@ -73,10 +73,12 @@ class Requirement:
     targets: tuple | None = None       # nodes / interfaces (reading stage) / stages; None = all
     line: int | None = None
 
-    def describe(self) -> str:
-        """The requirement in words, e.g. '≥ 30.0 dB at 1.00 kHz'."""
+    def describe(self, full: bool = True) -> str:
+        """The requirement in words, e.g. '≥ 30.00 dB at 1.00 kHz' (``full=False``: '≥ 30.00 dB')."""
         op = "≥" if self.sense == "min" else "≤"
         s = f"{op} {show(self.limit, self.unit)}"
+        if not full:
+            return s
         if self.at_hz is not None:
             s += f" at {fmt(self.at_hz, 'Hz')}"
         if self.band_hz is not None:
@@ -103,9 +105,9 @@ def show(x, unit: str) -> str:
     if x is None or (isinstance(x, float) and math.isnan(x)):
         return "—"
     if unit == "dB":
-        return ("−∞" if x < 0 else "+∞") + " dB" if math.isinf(x) else f"{x:.2f} dB".replace("-", "−")
+        return ("−∞" if x < 0 else "+∞") + " dB" if math.isinf(x) else f"{round(x, 2) + 0.0:.2f} dB".replace("-", "−")
     if unit == "bits":
-        return f"{x:.2f} bits".replace("-", "−")
+        return f"{round(x, 2) + 0.0:.2f} bits".replace("-", "−")
     return fmt(x, unit)
 
 
@@ -297,7 +299,7 @@ def _loading(v: _Views, r):
     ev, j = v.at(r.at_hz)
     names = list(r.targets or [s.name for s in ev.chain.stages])
     rows = np.stack([v.per_sample(-ev.interface_loss_db(n)[:, j]) for n in names])
-    return _worst(rows, names, np.argmax)
+    return _worst(rows, [f"{ev.chain.stage(n).parent} → {n}" for n in names], np.argmax)
 
 
 def _worst(rows, names, pick):
@@ -372,8 +374,9 @@ def attach_to_budget(b) -> None:
         return
     failing = [r.name for r in results if not r.passed[0]]
     met = len(results) - len(failing)
+    shown = ", ".join(failing[:2]) + (f" and {len(failing) - 2} more" if len(failing) > 2 else "")
     b.extra_summary.append(("requirements", f"{met} of {len(results)} met" +
-                            (f"; failing: {', '.join(failing)}" if failing else "")))
+                            (f"; failing: {shown}" if failing else "")))
     b.extra_json["requirements"] = [result_dict(r) for r in results]
 
 

@@ -177,7 +177,7 @@ def corner_draws(chain: Chain) -> Draws:
     c = chain.extra.get("corners") or Corners()
     axes = []
     if c.temp_k is not None:
-        axes.append([("temperature", t, f"T {t:.0f} K") for t in c.temp_k])
+        axes.append([("temperature", t, f"{t - 273.15:.0f} °C".replace("-", "−")) for t in c.temp_k])
     if c.supply is not None:
         axes.append([("supply", 1 + s, f"supply {s * 100:+.3g} %".replace("-", "−"))
                      for s in (-c.supply, c.supply)])

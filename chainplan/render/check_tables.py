@@ -1,0 +1,38 @@
+"""Terminal tables and JSON of requirement checks (``chainplan check``)."""
+from __future__ import annotations
+
+from ..requirements import result_dict, show, where_of
+from .console import table_box
+
+
+def check_tables(checked: list, console) -> None:
+    """``checked``: (chain, [ReqResult]) pairs; one table per spec, then a tally."""
+    from rich.table import Table
+    from rich.text import Text
+    bx = table_box(console)
+    n_req = n_fail = 0
+    for chain, results in checked:
+        console.print(Text(chain.name, style="bold"), Text(f"  ({chain.path})" if chain.path else ""))
+        if not results:
+            console.print("  no requirements in this spec (add a 'requirements:' block)")
+            continue
+        t = Table(box=bx)
+        for col in ("requirement", "value", "limit", "margin", "result", "set by"):
+            t.add_column(col, justify="left" if col in ("requirement", "result", "set by") else "right")
+        for r in results:
+            ok = bool(r.passed[0])
+            t.add_row(r.name, show(float(r.value[0]), r.unit), r.requirement.describe(full=False),
+                      show(float(r.margin[0]), r.unit), "pass" if ok else "FAIL", where_of(r) or "",
+                      style=None if ok else "bold red")
+            n_fail += not ok
+        n_req += len(results)
+        console.print(t)
+    console.print(f"{len(checked)} spec{'s' * (len(checked) != 1)}, {n_req} requirement{'s' * (n_req != 1)}: "
+                  f"{n_req - n_fail} met, {n_fail} failing", style="bold red" if n_fail else "bold")
+
+
+def check_dict(checked: list) -> dict:
+    from .json_out import clean
+    specs = [{"chain": c.name, "file": c.path, "passed": all(bool(r.passed[0]) for r in res),
+              "requirements": [result_dict(r) for r in res]} for c, res in checked]
+    return clean({"passed": all(s["passed"] for s in specs), "specs": specs})
