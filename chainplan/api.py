@@ -17,6 +17,7 @@ from .spec import load_chain, load_chain_text
 #: "module:function" strings imported on use; each takes the Budget and adds
 #: its summary rows (``b.extra_summary``) and JSON keys (``b.extra_json``).
 BUDGET_HOOKS: list[str] = [
+    "chainplan.noise:attach_to_budget",
     "chainplan.requirements:attach_to_budget",
 ]
 

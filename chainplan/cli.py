@@ -13,6 +13,7 @@ from .errors import SpecError, UsageError
 #: command name -> (module, one-line help).  Modules import heavy libraries inside run().
 COMMANDS = {
     "budget": ("chainplan.commands.budget", "compute and print the budget of a chain"),
+    "noise": ("chainplan.commands.noise", "noise contributors, SNR, dynamic range and ENOB at the converter"),
     "check": ("chainplan.commands.check", "check the requirements of one or more chains (exit 1 if any fails)"),
     "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, yield, what drives the spread"),
     "compare": ("chainplan.commands.compare", "what a change did to the budget: two specs, or one at two git revisions"),

@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 
 from .base import DcLoad, Field, Op, StageKind, dc_source, inv, unilateral
+from .noise_sources import NoiseSource, density, input_noise_fields
 
 
 class Amplifier(StageKind):
@@ -24,12 +25,20 @@ class Amplifier(StageKind):
         "out_high": Field("V", "highest output voltage", default=np.inf, rail_ok=True),
         "in_low": Field("V", "lowest allowed input voltage", default=-np.inf, rail_ok=True),
         "in_high": Field("V", "highest allowed input voltage", default=np.inf, rail_ok=True),
+        **input_noise_fields(),
     }
 
     def abcd(self, p, s, op):
         """Single pole: Av(s) = gain/(1 + s/ωp)."""
         inv_av = (1.0 + s * inv(2 * np.pi * p["f_3db"])) / p["gain"]
         return unilateral(inv(p["r_in"]) + s * p["c_in"], inv_av, p["r_out"])
+
+    def noise(self, p, s, op, temp_k):
+        """Data-sheet input noise: en acts behind the input impedance (the input
+        current Yin·V1 does not see it: in_i = Yin·in_v), in flows into the input."""
+        y_in = inv(p["r_in"]) + s * p["c_in"]
+        return [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=1.0, in_i=y_in),
+                NoiseSource("in", density(p["in"], s, p["in_corner"]), in_i=1.0)]
 
     def dc_input_load(self, p, out_load, op):
         g = inv(p["r_in"])

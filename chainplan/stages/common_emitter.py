@@ -13,6 +13,7 @@ import numpy as np
 
 from ..devices import bjt
 from .base import DcLoad, Field, Op, StageKind, dc_source, inv, unilateral
+from .noise_sources import NoiseSource, shot, thermal_i, thermal_v
 
 
 class CommonEmitter(StageKind):
@@ -52,6 +53,19 @@ class CommonEmitter(StageKind):
                 "lower r_c or the bias current")
         i_out = out_load.G * vc - out_load.I0
         return dc_source(vc + r_out * i_out, r_out), op
+
+    def noise(self, p, s, op, temp_k):
+        """Shot noise 2qIC and 2qIB (Gray & Meyer, noise chapter, from memory) and the
+        thermal noise of RE and RC.  Solving the degenerated stage (ro neglected, as
+        in abcd) with each generator in place: collector shot ≡ EMF (1 + RE/rπ)/gm
+        with a correlated input current 1/β; base shot ≡ EMF RE with input current 1;
+        RE's EMF acts at the base unchanged; RC's 4kT/RC enters the collector node."""
+        v = op.values
+        gm, r_pi, re = v["gm_s"], v["rpi_ohm"], p["r_e"]
+        return [NoiseSource("collector shot", shot(v["ic_a"]), in_v=(1.0 + re / r_pi) / gm, in_i=1.0 / p["beta"]),
+                NoiseSource("base shot", shot(v["ib_a"]), in_v=re, in_i=1.0),
+                NoiseSource("r_e thermal", thermal_v(re, temp_k), in_v=1.0),
+                NoiseSource("r_c thermal", thermal_i(p["r_c"], temp_k), out_i=1.0)]
 
     def abcd(self, p, s, op):
         v = op.values

@@ -14,6 +14,8 @@ import numpy as np
 from ..devices import mosfet
 from ..solve import bisect
 from .base import Field, Op, StageKind, dc_source, inv, unilateral
+from .noise_sources import (NoiseSource, density, mosfet_channel_psd, mosfet_noise_fields, sink_noise_field,
+                            thermal_i, thermal_v)
 
 
 class CommonSource(StageKind):
@@ -25,6 +27,8 @@ class CommonSource(StageKind):
         "r_load": Field("ohm", "output resistance of the current-source load", default="inf",
                         positive=True, allow_inf=True),
         "r_s": Field("ohm", "source degeneration resistor to v_low", default="0 Ω", minimum=0.0),
+        **mosfet_noise_fields(),
+        **sink_noise_field("i_load"),
     }
     ONE_OF = (("r_d", "i_load"),)
 
@@ -69,6 +73,21 @@ class CommonSource(StageKind):
                 f"{float(np.min(vd - vs)):.3g} V < Vov = {float(np.max(vov)):.3g} V)")
         i_out = out_load.G * vd - out_load.I0
         return dc_source(vd + r_out * i_out, r_out), op
+
+    def noise(self, p, s, op, temp_k):
+        """Channel noise referred to the gate, 4kTγ/gm (exact: the drain current is
+        gm·(vg + i/gm − vs) + …); RS's EMF acts at the gate times (gm + gmb + gds)/gm;
+        the load resistor's 4kT/RD, or the current source's noise, enters the drain node."""
+        v = op.values
+        gm = v["gm_s"]
+        out = [NoiseSource("channel", mosfet_channel_psd(p, s, gm, temp_k), in_v=1.0 / gm),
+               NoiseSource("r_s thermal", thermal_v(p["r_s"], temp_k),
+                           in_v=(gm + v["gmb_s"] + inv(v["ro_ohm"])) / gm)]
+        if p.get("r_d") is not None:
+            out.append(NoiseSource("r_d thermal", thermal_i(p["r_d"], temp_k), out_i=1.0))
+        else:
+            out.append(NoiseSource("i_load noise", density(p["i_load_noise"], s, 0.0), out_i=1.0))
+        return out
 
     def abcd(self, p, s, op):
         v = op.values

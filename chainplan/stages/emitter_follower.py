@@ -14,6 +14,7 @@ import numpy as np
 
 from ..devices import bjt
 from .base import DcLoad, Field, Op, StageKind, dc_source, follower, inv
+from .noise_sources import NoiseSource, density, shot, sink_noise_field, thermal_i
 
 
 class EmitterFollower(StageKind):
@@ -26,6 +27,7 @@ class EmitterFollower(StageKind):
         "r_bias": Field("ohm", "output resistance of the bias current sink", default="inf",
                         positive=True, allow_inf=True),
         "v_compliance": Field("V", "minimum voltage across the current sink", default="0.2 V", minimum=0.0),
+        **sink_noise_field("i_bias"),
     }
     ONE_OF = (("i_bias", "r_e"),)
 
@@ -65,6 +67,20 @@ class EmitterFollower(StageKind):
                     "sink's compliance; the bias current cannot flow in the active region")
         i_load = out_load.G * ve - out_load.I0
         return dc_source(ve + r_out * i_load, r_out), op
+
+    def noise(self, p, s, op, temp_k):
+        """Shot noise (Gray & Meyer, noise chapter, from memory): 2qIC flows from the
+        collector (AC ground) into the emitter, the output node; 2qIB leaves the base
+        node and enters the emitter node (one generator acting at both, correlated).
+        RE's 4kT/RE, or the sink's noise current, enters the emitter node."""
+        v = op.values
+        out = [NoiseSource("collector shot", shot(v["ic_a"]), out_i=1.0),
+               NoiseSource("base shot", shot(v["ib_a"]), in_i=1.0, out_i=1.0)]
+        if p.get("i_bias") is not None:
+            out.append(NoiseSource("i_bias noise", density(p["i_bias_noise"], s, 0.0), out_i=1.0))
+        else:
+            out.append(NoiseSource("r_e thermal", thermal_i(p["r_e"], temp_k), out_i=1.0))
+        return out
 
     def abcd(self, p, s, op):
         v = op.values

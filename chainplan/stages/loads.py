@@ -4,7 +4,10 @@ The ADC input is modelled as R ‖ C returning to a reference voltage; its
 full-scale range sets the allowed range at the node it reads."""
 from __future__ import annotations
 
+import numpy as np
+
 from .base import DcLoad, Field, Op, StageKind, inv
+from .noise_sources import NoiseSource, thermal_i
 
 
 class _Load(StageKind):
@@ -24,6 +27,10 @@ class _Load(StageKind):
     def op(self, p):
         return Op()
 
+    def noise(self, p, s, op, temp_k):
+        """Thermal noise of the input resistance: a current 4kT/R at the node (Nyquist, 1928)."""
+        return [NoiseSource("r_in thermal", thermal_i(p["r_in"], temp_k), in_i=1.0)]
+
 
 class Adc(_Load):
     kind, title = "adc", "ADC input (R ‖ C, full-scale range, resolution)"
@@ -34,10 +41,20 @@ class Adc(_Load):
         "r_in": Field("ohm", "input resistance", default="inf", positive=True, allow_inf=True),
         "c_in": Field("F", "input capacitance (sampling capacitor, averaged)", default="0 F", minimum=0.0),
         "ref": Field("V", "voltage the input resistance returns to", default="0 V", rail_ok=True),
+        "noise_rms": Field("V", "the converter's own noise referred to its input, rms, besides quantisation "
+                           "(data sheet: transition noise, input-referred noise)", default="0 V", minimum=0.0),
     }
 
     def op(self, p):
         return Op(in_range=(p["fs_low"], p["fs_high"]))
+
+    def noise(self, p, s, op, temp_k):
+        """Quantisation noise q²/12 with q = FS/2^N, uniform error over one step
+        (Kester, *Taking the Mystery out of the Infamous Formula SNR = 6.02N + 1.76 dB*,
+        Analog Devices MT-001, from memory), and the converter's own rms noise."""
+        q = np.abs(p["fs_high"] - p["fs_low"]) / 2.0 ** p["bits"]
+        return [*super().noise(p, s, op, temp_k), NoiseSource("quantisation", power_v2=q * q / 12.0),
+                NoiseSource("converter noise", power_v2=np.asarray(p["noise_rms"], dtype=float) ** 2)]
 
 
 class Load(_Load):

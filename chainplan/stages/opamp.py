@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 
 from .base import ABCD, DcLoad, Field, Op, StageKind, chain, dc_source, inv, shunt_y
+from .noise_sources import NoiseSource, density, input_noise_fields, thermal_v
 
 COMMON = {
     "gbw": Field("Hz", "gain–bandwidth product", required=True, positive=True),
@@ -30,6 +31,7 @@ COMMON = {
     "cm_low": Field("V", "input common-mode limit above the negative supply (negative: beyond it)",
                     default="0 V"),
     "i_supply": Field("A", "quiescent supply current", default="0 A", minimum=0.0),
+    **input_noise_fields(),
 }
 FEEDBACK = {
     "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, minimum=0.0),
@@ -67,6 +69,30 @@ class _OpAmp(StageKind):
     def dc_input_load(self, p, out_load, op):
         g = inv(p["r_in"])
         return DcLoad(g, p["_cm_ref"] * g) if "_cm_ref" in p else DcLoad(g, 0.0)
+
+    def noise(self, p, s, op, temp_k):
+        """en at the + input, in+ into it, in− into the − node, and the thermal noise
+        of RF and RG.  Nodal analysis of the macro model with the generators in
+        place gives V+ = Vc + Σ c·n, the noise behind the input shunt Yin (so
+        in_i = Yin·in_v), with 1/A = ia and Rp = RF ‖ RG:
+        c(en) = −1;  c(v_RF) = −β − Ro·ia·gfb;  c(v_RG) = 1 − β − Ro·ia·gfb;
+        c(in−) = Rp − Ro·ia·β.  For ia → 0 the output sees en, in−·RF, v_RF and
+        v_RG·RF/RG times the noise gain 1/β (Franco, *Design with Operational
+        Amplifiers*, noise chapter, from memory)."""
+        beta, g_fb = self._feedback(p)
+        ro_ia = p["r_out"] * inv_open_loop(p, s)
+        y_in = inv(p["r_in"]) + s * p["c_in"]
+        i_psd = density(p["in"], s, p["in_corner"])
+        out = [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=-1.0, in_i=-y_in),
+               NoiseSource("in+", i_psd, in_i=1.0)]
+        c_minus = -ro_ia * beta
+        if "r_f" in p:
+            r_p = p["r_f"] * p["r_g"] / (p["r_f"] + p["r_g"])
+            c_minus = c_minus + r_p
+            for name, c in (("r_f", -beta - ro_ia * g_fb), ("r_g", 1.0 - beta - ro_ia * g_fb)):
+                out.append(NoiseSource(f"{name} thermal", thermal_v(p[name], temp_k), in_v=c, in_i=c * y_in))
+        out.append(NoiseSource("in−", i_psd, in_v=c_minus, in_i=c_minus * y_in))
+        return out
 
     def dc_forward(self, p, st_in, v_in, out_load):
         m = self.abcd(p, 0.0, None)
@@ -109,6 +135,24 @@ class OpampInverting(_OpAmp):
         vm_i2 = -k * ro
         return ABCD((1.0 + rg / rf) * vm_v2 - rg / rf, (1.0 + rg / rf) * vm_i2,
                     (vm_v2 - 1.0) / rf, vm_i2 / rf)
+
+    def noise(self, p, s, op, temp_k):
+        """en, in−, RF and RG thermal noise; the + input sits at ref (a stiff
+        source), so in+ does nothing.  Nodal analysis of the macro model with
+        the generators in place (k and Vm as in abcd, kA = 1/(1 − Ro·ia/RF)):
+        Vm gains kA·en + k·(Ro/RF)·v_RF; then e_n = (1 + RG/RF)·Vm_n + (RG/RF)·v_RF
+        − RG·in− − v_RG and i_n = Vm_n/RF + v_RF/RF − in−.  For A → ∞ this is the
+        noise gain 1 + RF/(RG + Rsource) on en (Franco, noise chapter, from memory)."""
+        rf, rg, ro = p["r_f"], p["r_g"], p["r_out"]
+        ia = inv_open_loop(p, s)
+        ka = 1.0 / (1.0 - ro / rf * ia)
+        k_vf = ka * ia * ro / rf
+        i_psd = density(p["in"], s, p["in_corner"])
+        return [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=(1.0 + rg / rf) * ka, in_i=ka / rf),
+                NoiseSource("in−", i_psd, in_v=-rg, in_i=-1.0),
+                NoiseSource("r_f thermal", thermal_v(rf, temp_k), in_v=(1.0 + rg / rf) * k_vf + rg / rf,
+                            in_i=(k_vf + 1.0) / rf),
+                NoiseSource("r_g thermal", thermal_v(rg, temp_k), in_v=-1.0)]
 
     def dc_input_load(self, p, out_load, op):
         """The input resistor returns to the virtual ground held at ref."""

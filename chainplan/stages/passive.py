@@ -12,12 +12,14 @@ from typing import NamedTuple
 
 from .base import (ABCD, DcLoad, DcState, Field, Op, StageKind, chain, dc_load_series_r,
                    dc_load_shunt_r, dc_open, dc_series_r, dc_shunt_r, inv, series_z, shunt_y)
+from .noise_sources import NoiseSource, thermal_i, thermal_v
 
 
 class Section(NamedTuple):
     what: str          # 'series_r', 'series_c', 'shunt_r', 'shunt_c'
     value: object      # ohms or farads
     v_ref: object = 0.0   # shunt_r only: the voltage the resistor returns to
+    name: str = ""        # the spec field it comes from, for noise reports
 
 
 def section_abcd(sec: Section, s) -> ABCD:
@@ -74,6 +76,21 @@ class Passive(StageKind):
     def dc_forward(self, p, st_in, v_in, out_load):
         return ladder_dc_forward(self.sections(p), st_in), Op()
 
+    def noise(self, p, s, op, temp_k):
+        """Thermal noise of every resistor: a series R is an EMF 4kTR where it sits,
+        a shunt R a current 4kT/R at its node.  Each is carried to the stage input
+        through the sections before it, M: an EMF e there is (in_v, in_i) = (M_A, M_C)·e,
+        a current i is (M_B, M_D)·i (chain noise representation, Hillbrand & Russer 1976)."""
+        out, m = [], ABCD(1.0, 0.0, 0.0, 1.0)
+        for sec in self.sections(p):
+            label = f"{sec.name or sec.what} thermal"
+            if sec.what == "series_r":
+                out.append(NoiseSource(label, thermal_v(sec.value, temp_k), in_v=m.A, in_i=m.C))
+            elif sec.what == "shunt_r":
+                out.append(NoiseSource(label, thermal_i(sec.value, temp_k), in_v=m.B, in_i=m.D))
+            m = chain(m, section_abcd(sec, s))
+        return out
+
 
 _R = dict(unit="ohm", positive=True)
 _C = dict(unit="F", positive=True)
@@ -84,7 +101,7 @@ class SeriesR(Passive):
     FIELDS = {"r": Field(doc="resistance", required=True, **_R)}
 
     def sections(self, p):
-        return [Section("series_r", p["r"])]
+        return [Section("series_r", p["r"], name="r")]
 
 
 class ShuntR(Passive):
@@ -93,7 +110,7 @@ class ShuntR(Passive):
               "ref": Field("V", "voltage the resistor returns to", default="0 V", rail_ok=True)}
 
     def sections(self, p):
-        return [Section("shunt_r", p["r"], p["ref"])]
+        return [Section("shunt_r", p["r"], p["ref"], "r")]
 
 
 class ShuntC(Passive):
@@ -110,7 +127,7 @@ class RcLowpass(Passive):
               "c": Field(doc="shunt capacitance", required=True, **_C)}
 
     def sections(self, p):
-        return [Section("series_r", p["r"]), Section("shunt_c", p["c"])]
+        return [Section("series_r", p["r"], name="r"), Section("shunt_c", p["c"])]
 
 
 class RcHighpass(Passive):
@@ -120,7 +137,7 @@ class RcHighpass(Passive):
               "ref": Field("V", "voltage the shunt resistor returns to", default="0 V", rail_ok=True)}
 
     def sections(self, p):
-        return [Section("series_c", p["c"]), Section("shunt_r", p["r"], p["ref"])]
+        return [Section("series_c", p["c"]), Section("shunt_r", p["r"], p["ref"], "r")]
 
 
 class Divider(Passive):
@@ -130,7 +147,7 @@ class Divider(Passive):
               "ref": Field("V", "voltage the bottom resistor returns to", default="0 V", rail_ok=True)}
 
     def sections(self, p):
-        return [Section("series_r", p["r_top"]), Section("shunt_r", p["r_bottom"], p["ref"])]
+        return [Section("series_r", p["r_top"], name="r_top"), Section("shunt_r", p["r_bottom"], p["ref"], "r_bottom")]
 
 
 class AcCoupling(Passive):
@@ -140,7 +157,7 @@ class AcCoupling(Passive):
               "bias": Field("V", "bias voltage the node is pulled to", required=True, rail_ok=True)}
 
     def sections(self, p):
-        return [Section("series_c", p["c"]), Section("shunt_r", p["r_bias"], p["bias"])]
+        return [Section("series_c", p["c"]), Section("shunt_r", p["r_bias"], p["bias"], "r_bias")]
 
 
 class Cable(Passive):
@@ -151,7 +168,7 @@ class Cable(Passive):
                                default="0 Ω/m", minimum=0.0)}
 
     def sections(self, p):
-        return [Section("series_r", p["r_per_m"] * p["length"]),
+        return [Section("series_r", p["r_per_m"] * p["length"], name="conductor"),
                 Section("shunt_c", p["c_per_m"] * p["length"])]
 
 

@@ -4,7 +4,10 @@ with a long lead).  Thevenin's theorem; the source noise is the Nyquist noise
 4kT·Re(Zs) of its impedance (Nyquist, Phys. Rev. 32, 1928)."""
 from __future__ import annotations
 
+import numpy as np
+
 from .base import DcState, Field, Op, StageKind, inv
+from .noise_sources import NoiseSource, thermal_v
 
 
 class Sensor(StageKind):
@@ -26,9 +29,14 @@ class Sensor(StageKind):
     def dc_forward(self, p, st_in, v_in, out_load):
         return self.dc_state(p), Op()
 
+    def noise(self, p, s, op, temp_k):
+        """Nyquist noise of the source impedance: an EMF of PSD 4kT·Re(Zs) in series
+        with the source (Nyquist, Phys. Rev. 32, 1928); none for an open source."""
+        re_z = np.real(self.z_source(p, s))
+        return [NoiseSource("r thermal", thermal_v(np.where(np.isfinite(re_z), re_z, 0.0), temp_k), out_v=1.0)]
+
 
 def _is_inf(x):
-    import numpy as np
     return bool(np.all(np.isinf(x)))
 
 

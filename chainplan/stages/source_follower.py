@@ -14,6 +14,8 @@ import numpy as np
 
 from ..devices import mosfet
 from .base import Field, Op, StageKind, dc_source, follower, inv
+from .noise_sources import (NoiseSource, density, mosfet_channel_psd, mosfet_noise_fields, sink_noise_field,
+                            thermal_i)
 
 
 class SourceFollower(StageKind):
@@ -27,6 +29,8 @@ class SourceFollower(StageKind):
         "v_compliance": Field("V", "minimum voltage across the current sink", default="0.2 V", minimum=0.0),
         "cgs": Field("F", "gate–source capacitance", default="0 F", minimum=0.0),
         "cgd": Field("F", "gate–drain capacitance", default="0 F", minimum=0.0),
+        **mosfet_noise_fields(),
+        **sink_noise_field("i_bias"),
     }
     ONE_OF = (("i_bias", "r_s"),)
 
@@ -63,6 +67,17 @@ class SourceFollower(StageKind):
                     "this bias current in saturation with this gate level")
         i_load = out_load.G * vs - out_load.I0
         return dc_source(vs + r_out * i_load, r_out), op
+
+    def noise(self, p, s, op, temp_k):
+        """The channel noise current flows from the drain (AC ground) into the
+        source, the output node: exact, Cgs/Cgd included.  The source resistor's
+        4kT/RS or the sink's noise current enter the same node."""
+        out = [NoiseSource("channel", mosfet_channel_psd(p, s, op.values["gm_s"], temp_k), out_i=1.0)]
+        if p.get("i_bias") is not None:
+            out.append(NoiseSource("i_bias noise", density(p["i_bias_noise"], s, 0.0), out_i=1.0))
+        else:
+            out.append(NoiseSource("r_s thermal", thermal_i(p["r_s"], temp_k), out_i=1.0))
+        return out
 
     def abcd(self, p, s, op):
         v = op.values

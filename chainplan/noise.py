@@ -1,0 +1,266 @@
+"""Noise analysis and the converter budget: every stage's noise generators
+carried to the chain output through the rows the cascade already computed,
+integrated over the analysis span, and the SNR, dynamic range and ENOB at the
+converter.
+
+Transfer to the output (derivation in docs/noise.md).  The forward pass keeps
+for every node a row ``(A_n, B_n)`` with ``Vs = A_n·V + B_n·I`` (cascade.py),
+and ``H = V_out/Vs``.  A stage's generator ``n`` is described by where it acts
+(stages/noise_sources.py: ``in_v, in_i, out_v, out_i``, the chain noise
+representation of a two-port, Hillbrand & Russer, IEEE Trans. CAS 23, 1976,
+from memory).  With ``(a, b)`` the row at the stage input (fan-out siblings
+folded in) and ``(A_k, B_k)`` the row at its output node::
+
+    Vs = a·V1 + b·I1 = (A_k, B_k)·(V2 − out_v·n, I2 − out_i·n) + (a·in_v + b·in_i)·n
+
+so the generator acts as an extra source EMF ``ΔVs = (A_k·out_v + B_k·out_i −
+a·in_v − b·in_i)·n`` and reaches the output as ``H·ΔVs``.  A stage off the
+signal path that reads a node ``m`` on it (a load, a bias network, the first
+stage of a side branch) draws ``I1 = Yin·(V − in_v·n) + in_i·n``, which is
+``ΔVs = B_m·(Yin·in_v − in_i)·n``; its output-side generators and anything
+deeper in a side branch are neglected (listed in ``NoiseResult.neglected``).
+
+Independent generators add in power; the output PSD is integrated over the
+analysis span (or a brick-wall band the caller asks for) with the trapezoid
+rule.  Converter noise (quantisation q²/12, the converter's own rms noise) is a
+power, spread flat over the integration band.  Everything is vectorised over
+``(samples, frequencies)``; the only Python loop runs over the generators.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from .budget import Budget, Evaluation
+from .cascade import run_ac
+
+#: Full-scale sine SNR of an ideal N-bit converter is 6.02·N + 1.76 dB, hence
+#: ENOB = (SNR − 1.76)/6.02 (Kester, Analog Devices MT-001, from memory).
+ENOB_OFFSET_DB, DB_PER_BIT = 1.76, 6.02
+SQRT2 = np.sqrt(2.0)
+
+
+@dataclass
+class NoiseResult:
+    f_hz: np.ndarray              # (F,) the analysis span
+    out_density: np.ndarray       # (S, F) V/√Hz at the output node
+    contributors: list            # [(name, out_psd (S, F) V²/Hz)], in chain order
+    shares: dict                  # name -> (S,) fraction of the total output noise power
+    out_vrms: np.ndarray          # (S,) integrated output noise, converter noise included
+    in_vrms: np.ndarray           # (S,) out_vrms / |gain at f_ref|
+    snr_fs_db: np.ndarray         # (S,) full-scale sine vs noise (nan without a converter)
+    snr_db: np.ndarray            # (S,) the spec's signal vs noise
+    dynamic_range_db: np.ndarray  # (S,) largest sine the output node carries vs noise
+    enob_bits: np.ndarray         # (S,) (snr_fs_db − 1.76)/6.02
+    output: str = ""              # the output node
+    converter: str | None = None  # the ADC reading the output node
+    band_hz: tuple = (np.nan, np.nan)   # integration band
+    gain_ref: np.ndarray | None = None  # (S,) |V_out/Vs| at f_ref
+    vrms: dict = field(default_factory=dict)   # name -> (S,) each contributor's rms at the output
+    stage_of: dict = field(default_factory=dict)   # name -> stage name
+    neglected: list = field(default_factory=list)  # stages whose noise is not carried to the output
+    notes: list = field(default_factory=list)      # e.g. stages given no noise data
+
+    @property
+    def ranked(self) -> list:
+        """Contributor names, largest share (of the first sample) first."""
+        return sorted(self.shares, key=lambda n: -np.nan_to_num(self.shares[n][0]))
+
+
+def analyse_noise(ev: Evaluation, bandwidth_hz=None) -> NoiseResult:
+    """Noise at the output node of an evaluation.  ``bandwidth_hz``: None integrates
+    over the whole span; a number ``B`` integrates from the span's start to ``B``;
+    a pair ``(low, high)`` integrates between them (brick-wall edges)."""
+    band = integration_band(ev.span, bandwidth_hz)
+    w = band_weights(ev.span, *band)
+    gens = output_psds(ev, float(np.sum(w)))
+    shape = ev.gain().shape
+    total = np.zeros(shape)
+    contributors, powers = [], {}
+    for _, name, psd, power in gens:
+        power = np.broadcast_to(psd[:, 1:] @ w if power is None else power, (shape[0],))
+        contributors.append((name, psd[:, 1:]))
+        powers[name] = power
+        total = total + psd
+    p_tot = sum(powers.values(), np.zeros(shape[0]))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        shares = {n: p / p_tot for n, p in powers.items()}
+        out_vrms = np.sqrt(p_tot)
+        gain_ref = np.abs(ev.gain()[:, 0])
+        in_vrms = out_vrms / gain_ref
+        conv, fs = converter(ev)
+        amp = np.ravel(np.asarray(ev.params[ev.chain.source.name]["amplitude"], dtype=float))
+        snr_fs = _db(fs / (2 * SQRT2), out_vrms) if conv else np.full(shape[0], np.nan)
+        snr = _db(amp * gain_ref / SQRT2, out_vrms)
+        dr = _db(_largest_sine(ev) / SQRT2, out_vrms)
+    return NoiseResult(
+        f_hz=ev.span, out_density=np.sqrt(total[:, 1:]), contributors=contributors, shares=shares,
+        out_vrms=out_vrms, in_vrms=in_vrms, snr_fs_db=snr_fs, snr_db=snr, dynamic_range_db=dr,
+        enob_bits=(snr_fs - ENOB_OFFSET_DB) / DB_PER_BIT, output=ev.output, converter=conv, band_hz=band,
+        gain_ref=gain_ref, vrms={n: np.sqrt(p) for n, p in powers.items()},
+        stage_of={name: stage for stage, name, _, _ in gens},
+        neglected=neglected_stages(ev), notes=noise_notes(ev))
+
+
+def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):
+    """Exact output noise densities at chosen frequencies (one extra AC pass with
+    the same operating points): (total V/√Hz (S, K), |gain| (S, K), contributors
+    [(name, V²/Hz (S, K))]).  Converter noise is spread as in analyse_noise."""
+    f_hz = np.asarray(f_hz, dtype=float)
+    band = integration_band(ev.span, bandwidth_hz)
+    bw = float(np.sum(band_weights(ev.span, *band)))
+    grid = np.concatenate(([ev.f_hz[0]], f_hz))
+    ev_k = replace(ev, f_hz=grid, ac=run_ac(ev.chain, ev.params, ev.dc.ops, grid))
+    gens = [(name, psd[:, 1:]) for _, name, psd, _ in output_psds(ev_k, bw)]
+    total = sum((psd for _, psd in gens), np.zeros((ev_k.gain().shape[0], f_hz.size)))
+    return np.sqrt(total), np.abs(ev_k.gain()[:, 1:]), gens
+
+
+# -- carrying the generators to the output ---------------------------------------
+
+def output_psds(ev: Evaluation, bandwidth: float) -> list:
+    """Every generator's PSD at the output over ev.f_hz: [(stage, name, (S, F+1)
+    V²/Hz, power (S,) or None)].  Converter powers come with a flat PSD power/bandwidth."""
+    chain, ac = ev.chain, ev.ac
+    out = ev.output
+    s = (2j * np.pi * ev.f_hz)[None, :]
+    h = ev.gain()
+    shape = h.shape
+    on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
+    conv, _ = converter(ev)
+    res = []
+    for st in chain.all_stages:
+        if st.name not in on_path and st.parent not in on_path:
+            continue
+        p = ev.params[st.name]
+        for g in st.model.noise(p, s, ev.dc.ops[st.name], p["temp_k"]):
+            name = f"{st.name}: {g.label}"
+            if g.power_v2 is not None:
+                if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
+                    power = np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float)), (shape[0],))
+                    res.append((st.name, name, np.broadcast_to(power[:, None] / bandwidth, shape), power))
+                continue
+            if not np.any(np.asarray(g.psd) != 0):
+                continue
+            if st.name in on_path:
+                big_a, big_b = ac.row[st.name]
+                a, b = ac.branch_row.get(st.name, (0.0, 0.0))
+                dvs = big_a * g.out_v + big_b * g.out_i - a * g.in_v - b * g.in_i
+            else:
+                dvs = ac.row[st.parent][1] * (ac.y_in[st.name] * g.in_v - g.in_i)
+            res.append((st.name, name, np.broadcast_to(g.psd * np.abs(h * dvs) ** 2, shape), None))
+    return res
+
+
+def neglected_stages(ev: Evaluation) -> list:
+    """Stages whose noise is not carried to the output: side branches beyond the
+    stage that reads the signal path (a first side stage's input-side noise counts)."""
+    chain = ev.chain
+    on_path = {chain.source.name, *(st.name for st in chain.path_to(ev.output))}
+    return [st.name for st in chain.stages if st.name not in on_path and st.parent not in on_path]
+
+
+def noise_notes(ev: Evaluation) -> list:
+    """Remarks a reader should see: stages with data-sheet noise fields left at zero."""
+    notes = []
+    on_path = {st.name for st in ev.chain.path_to(ev.output)}
+    for st in ev.chain.stages:
+        p = ev.params[st.name]
+        if st.name in on_path and "en" in p and not np.any(p["en"]) and not np.any(p["in"]):
+            notes.append(f"'{st.name}' has no en/in given: its {st.kind} counts as noiseless "
+                         "(only its resistors add noise)")
+    return notes
+
+
+def converter(ev: Evaluation):
+    """(name of the ADC reading the output node or None, full-scale span (S,) V)."""
+    adc = next((st for st in ev.chain.readers(ev.output) if st.kind == "adc"), None)
+    if adc is None:
+        return None, None
+    p = ev.params[adc.name]
+    return adc.name, np.ravel(np.abs(np.asarray(p["fs_high"] - p["fs_low"], dtype=float)))
+
+
+def _largest_sine(ev: Evaluation):
+    """Peak of the largest sine the output node carries: the distance from its DC
+    level to the nearer limit (converter full scale, swing limits), (S,)."""
+    node = ev.output
+    lo, hi = ev.dc.limits[node]
+    dc = np.ravel(ev.dc.node_v[node])
+    room = np.minimum(np.ravel(hi) - dc, dc - np.ravel(lo))
+    return np.where(np.isfinite(room), np.maximum(room, 0.0), np.nan)
+
+
+def _db(signal_rms, noise_rms):
+    return 20.0 * np.log10(np.asarray(signal_rms, dtype=float) / noise_rms)
+
+
+# -- integration ---------------------------------------------------------------
+
+def integration_band(span, bandwidth_hz=None) -> tuple:
+    """(low, high) of the integration band, clipped to the span; ValueError when
+    the requested band misses the span."""
+    lo, hi = float(span[0]), float(span[-1])
+    if bandwidth_hz is None:
+        return lo, hi
+    if np.ndim(bandwidth_hz) == 0:
+        b_lo, b_hi = lo, float(bandwidth_hz)
+    else:
+        b_lo, b_hi = (float(x) for x in bandwidth_hz)
+    b_lo, b_hi = max(b_lo, lo), min(b_hi, hi)
+    if not b_lo < b_hi:
+        raise ValueError(f"the band {bandwidth_hz} lies outside the analysis span {lo:g}…{hi:g} Hz")
+    return b_lo, b_hi
+
+
+def band_weights(f_hz, lo, hi) -> np.ndarray:
+    """Weights w with Σ w·y = ∫ y df over [lo, hi] for y linear between the grid
+    points: the trapezoid rule, with band edges inside a segment cut exactly."""
+    f = np.asarray(f_hz, dtype=float)
+    f0, f1 = f[:-1], f[1:]
+    a, b = np.clip(lo, f0, f1), np.clip(hi, f0, f1)
+    h = f1 - f0
+    int_t = 0.5 * (((b - f0) / h) ** 2 - ((a - f0) / h) ** 2) * h    # ∫ (f − f0)/h df over [a, b]
+    w = np.zeros_like(f)
+    w[:-1] += (b - a) - int_t
+    w[1:] += int_t
+    return w
+
+
+# -- budget hook -----------------------------------------------------------------
+
+def attach_to_budget(b: Budget) -> None:
+    """Budget hook: noise rows in the summary, noise keys in --json."""
+    from .units import fmt
+    r = analyse_noise(b.ev)
+    f = lambda x: float(np.ravel(x)[0])  # noqa: E731
+    rows = [("noise at the output (rms)", fmt(f(r.out_vrms), "V")),
+            ("noise referred to the input (rms)", fmt(f(r.in_vrms), "V")),
+            ("SNR of the signal", _db_text(f(r.snr_db)))]
+    if r.converter:
+        rows += [("SNR of a full-scale sine", _db_text(f(r.snr_fs_db))),
+                 ("ENOB", f"{f(r.enob_bits):.2f} bits")]
+    top = r.ranked[0] if r.ranked else None
+    if top is not None:
+        rows.append(("largest noise contributor", f"{top} ({100 * f(r.shares[top]):.0f} %)"))
+    b.extra_summary.extend(rows)
+    b.extra_json.update(noise_json(r, brief=True))
+
+
+def noise_json(r: NoiseResult, brief: bool = False) -> dict:
+    """JSON keys of a noise result (first sample); ``brief``: the budget's subset."""
+    f = lambda x: float(np.ravel(x)[0])  # noqa: E731
+    d = {"noise_out_vrms": f(r.out_vrms), "noise_in_vrms": f(r.in_vrms), "snr_db": f(r.snr_db),
+         "snr_fs_db": f(r.snr_fs_db), "dynamic_range_db": f(r.dynamic_range_db), "enob_bits": f(r.enob_bits),
+         "contributors": [{"name": n, "stage": r.stage_of[n], "share": f(r.shares[n]), "vrms": f(r.vrms[n])}
+                          for n in r.ranked]}
+    if not brief:
+        d.update({"output": r.output, "converter": r.converter,
+                  "band_hz": [float(r.band_hz[0]), float(r.band_hz[1])],
+                  "neglected": r.neglected, "notes": r.notes})
+    return d
+
+
+def _db_text(x: float) -> str:
+    return "—" if not np.isfinite(x) else f"{x:.1f} dB".replace("-", "−")
