@@ -17,6 +17,8 @@ COMMANDS = {
     "check": ("chainplan.commands.check", "check the requirements of one or more chains (exit 1 if any fails)"),
     "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, yield, what drives the spread"),
     "compare": ("chainplan.commands.compare", "what a change did to the budget: two specs, or one at two git revisions"),
+    "netlist": ("chainplan.commands.netlist", "export a chain as a SPICE netlist (op, AC and noise analyses)"),
+    "schema": ("chainplan.commands.schema", "print the JSON Schema of chain specs (for editors)"),
 }
 
 
