@@ -118,8 +118,11 @@ def _edge(span, ref, logf, mask, last):
 def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None = None) -> Evaluation:
     params = params if params is not None else nominal_params(chain)
     f_hz = frequency_grid(chain) if f_hz is None else f_hz
-    dc = solve_dc(chain, params)
-    ac = run_ac(chain, params, dc.ops, f_hz)
+    # A floating node or an impossible bias gives non-finite numbers in some samples;
+    # they are reported per sample (check_operating_points, valid), not as numpy warnings.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        dc = solve_dc(chain, params)
+        ac = run_ac(chain, params, dc.ops, f_hz)
     return Evaluation(chain, params, f_hz, dc, ac, chain.output_node())
 
 

@@ -52,6 +52,8 @@ CASES = {
     "zero-gain": (HEAD + "  - name: amp\n    kind: amplifier\n    gain: 0  #<\n", "amp.gain", ["gain of zero"]),
     "bias-current-too-large": (HEAD + FOLLOWER.replace("i_bias: 50 µA", "i_bias: 20 mA  #<"), "sf.i_bias",
                                ["cannot carry this bias current in saturation"]),
+    "floating-node": (HEAD.replace("  r: 1k", "  r: inf").replace("  name: src", "  name: src  #<") + FOLLOWER,
+                      "src", ["no DC path"]),
     "cycle": (HEAD + FOLLOWER + "  - name: a\n    kind: series_r\n    r: 1k\n    from: b  #<\n"
               "  - name: b\n    kind: series_r\n    r: 1k\n    from: a\n", "from", ["loop", "a → b → a"]),
     "dangling-from": (HEAD + FOLLOWER + "  - name: lp\n    kind: rc_lowpass\n    from: sff  #<\n"
@@ -88,9 +90,10 @@ def test_each_case_is_valid_without_its_fault(spec_file, cli):
     assert (rc, err) == (0, "")
 
 
-@pytest.mark.parametrize("case", ["yaml-tab", "bias-current-too-large"])
+@pytest.mark.parametrize("case", ["yaml-tab", "bias-current-too-large", "floating-node"])
 def test_bad_spec_in_a_real_process(case, spec_file):
-    """The same through a separate Python process: exit status 2, one line on stderr, no traceback."""
+    """The same through a separate Python process: exit status 2, one line on stderr, no traceback
+    and no numpy warnings (pytest would swallow those in-process)."""
     text = CASES[case][0]
     path = spec_file(text)
     proc = subprocess.run([sys.executable, "-m", "chainplan.cli", "budget", path], capture_output=True, text=True,
