@@ -54,7 +54,12 @@ def _convert(node, loader, path):
 
 def load_text(text: str, path: str):
     """Parse YAML text; syntax errors become SpecError with the line."""
-    loader = yaml.SafeLoader(text)
+    try:
+        loader = yaml.SafeLoader(text)      # the reader already rejects control characters
+    except yaml.reader.ReaderError as exc:
+        char = exc.character if isinstance(exc.character, int) else ord(exc.character)
+        raise SpecError(f"character U+{char:04X} is not allowed in YAML ({exc.reason})", path,
+                        text.count("\n", 0, exc.position) + 1) from None
     try:
         node = loader.get_single_node()
         if node is None:

@@ -38,6 +38,7 @@ CASES = {
     # id: (spec text, field named in the message or None, words the message must contain)
     "yaml-indentation": (HEAD.replace("  r: 1k", " r: 1k  #<") + FOLLOWER, None, ["YAML"]),
     "yaml-tab": (HEAD.replace("  dc: 2 V", "\tdc: 2 V  #<") + FOLLOWER, None, ["YAML", "\\t"]),
+    "yaml-control-character": (HEAD.replace("  dc: 2 V", "  dc: 2 V\x01  #<") + FOLLOWER, None, ["U+0001"]),
     "unknown-kind": (HEAD + FOLLOWER.replace("kind: source_follower", "kind: source_folower  #<"),
                      "kind", ["source_folower", "did you mean 'source_follower'"]),
     "unknown-key": (HEAD + FOLLOWER.replace("w_over_l: 50", "w_over_1: 50  #<"),
@@ -52,6 +53,8 @@ CASES = {
     "zero-gain": (HEAD + "  - name: amp\n    kind: amplifier\n    gain: 0  #<\n", "amp.gain", ["gain of zero"]),
     "bias-current-too-large": (HEAD + FOLLOWER.replace("i_bias: 50 µA", "i_bias: 20 mA  #<"), "sf.i_bias",
                                ["cannot carry this bias current in saturation"]),
+    "adc-empty-range": (HEAD + FOLLOWER + "  - name: adc\n    kind: adc\n    bits: 12\n    fs_low: 3 V\n"
+                        "    fs_high: 1 V  #<\n", "adc.fs_high", ["full-scale range is empty"]),
     "floating-node": (HEAD.replace("  r: 1k", "  r: inf").replace("  name: src", "  name: src  #<") + FOLLOWER,
                       "src", ["no DC path"]),
     "cycle": (HEAD + FOLLOWER + "  - name: a\n    kind: series_r\n    r: 1k\n    from: b  #<\n"

@@ -46,7 +46,10 @@ class Adc(_Load):
     }
 
     def op(self, p):
-        return Op(in_range=(p["fs_low"], p["fs_high"]))
+        op = Op(in_range=(p["fs_low"], p["fs_high"]))
+        op.flag(np.asarray(p["fs_high"]) <= np.asarray(p["fs_low"]), "fs_high",
+                "the full-scale range is empty: fs_high must be above fs_low")
+        return op
 
     def noise(self, p, s, op, temp_k):
         """Quantisation noise q²/12 with q = FS/2^N, uniform error over one step
