@@ -280,3 +280,48 @@ CL 4 0 1e-9
     np.testing.assert_allclose(1 / ev.ac.y_in["amp"][0],
                                _numeric(lcapy.Circuit(net.replace("Rs 1 2 1000", "")).impedance(2, 0), FREQS),
                                rtol=REL)
+
+
+NONINV = """
+name: noninv-ac
+rails: {vdd: 5 V, vss: -5 V}
+source: {name: src, kind: sensor, amplitude: 10 mV, r: 10k}
+stages:
+  - name: amp
+    kind: opamp_noninverting
+    gbw: 2 MHz
+    a0: 70 dB
+    r_out: 200
+    r_in: 1meg
+    c_in: 5 pF
+    r_f: 9k
+    r_g: 1k
+    v_neg: vss
+  - {name: rl, kind: load, r_in: 600, c_in: 2 nF}
+"""
+
+
+def test_opamp_noninverting_network(lcapy):
+    """Non-inverting stage, same element-level op-amp as above, with its input R ‖ C
+    and Ro loaded by the feedback divider and a 600 Ω ‖ 2 nF load."""
+    ev = evaluate(chain_from(NONINV), f_hz=FREQS)
+    a0 = 10 ** (70 / 20)
+    net = f"""
+Rs 1 2 10000
+Rin 2 0 1000000
+Cin 2 0 5e-12
+Ga x 0 2 3 {a0!r}
+Rx x 0 1
+Cx x 0 {a0 / (2 * np.pi * 2e6)!r}
+E1 y 0 x 0 1
+Ro y 4 200
+Rf 4 3 9000
+Rg 3 0 1000
+RL 4 0 600
+CL 4 0 2e-9
+"""
+    for name, n in (("src", 2), ("amp", 4)):
+        np.testing.assert_allclose(ev.gain(name)[0], transfer(lcapy, net, n), rtol=REL, err_msg=name)
+    a, b = ev.ac.row["amp"]
+    unloaded = net.replace("RL 4 0 600", "").replace("CL 4 0 2e-9", "")
+    np.testing.assert_allclose((b / a)[0], impedance(lcapy, unloaded, 4), rtol=REL)

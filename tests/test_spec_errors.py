@@ -43,8 +43,8 @@ CASES = {
                      "kind", ["source_folower", "did you mean 'source_follower'"]),
     "unknown-key": (HEAD + FOLLOWER.replace("w_over_l: 50", "w_over_1: 50  #<"),
                     "sf.w_over_1", ["did you mean 'w_over_l'"]),
-    "missing-required": (HEAD + FOLLOWER.replace("  - name: sf", "  - name: sf  #<").replace("    kp: 100 µA/V²\n", ""),
-                         "sf.kp", ["missing required field 'kp'"]),
+    "missing-required": (HEAD + FOLLOWER.replace("  - name: sf", "  - name: sf  #<")
+                         .replace("    kp: 100 µA/V²\n", ""), "sf.kp", ["missing required field 'kp'"]),
     "bad-prefix": (HEAD.replace("  r: 1k", "  r: 4.7q  #<") + FOLLOWER, "src.r", ["'4.7q'", "resistance"]),
     "volts-for-ohms": (HEAD.replace("  r: 1k", "  r: 3 V  #<") + FOLLOWER, "src.r",
                        ["volts given where a resistance"]),
