@@ -6,10 +6,10 @@ as affine relations (e = a·V + b·I); active stages solve their own nonlinear
 bias with the load current included (see stages/base.py).  Base currents make
 the loads depend on the operating points, so the two passes repeat until the
 levels settle.  Each stage that draws input current reports it linearised at
-its last bias (``dIB/dVB``), which makes the repetition a Newton iteration:
-a plain fixed point (constant base current) converges only while
-Rsource < (β + 1)·RE and diverges for the high-impedance sensors this tool is
-for."""
+its last bias (``dIB/dVB``), which makes the repetition a Newton iteration
+(Newton–Raphson, any numerical-analysis text): a plain fixed point (constant
+base current) contracts by Rsource/(rπ + (β + 1)·RE) per round, so it crawls
+or diverges for the high-impedance sensors this tool is for."""
 from __future__ import annotations
 
 from dataclasses import dataclass
