@@ -13,12 +13,32 @@ from ..errors import UsageError
 def ensure_folder(folder: str) -> str:
     """Create ``folder`` if needed; a folder that cannot be made or written is a UsageError."""
     folder = folder or "."
+    if os.path.exists(folder) and not os.path.isdir(folder):
+        raise UsageError(f"cannot write to the folder '{folder}': it is a file, not a folder")
     try:
         os.makedirs(folder, exist_ok=True)
     except OSError as exc:
         raise UsageError(f"cannot write to the folder '{folder}': {exc.strerror or exc}") from None
     if not os.path.isdir(folder) or not os.access(folder, os.W_OK | os.X_OK):
         raise UsageError(f"cannot write to the folder '{folder}': not a writable folder")
+    return folder
+
+
+def check_folder(folder: str) -> str:
+    """Refuse, before any work is done, a folder that could not be created or written
+    (nothing is created here: that waits until there is something to write)."""
+    folder = folder or "."
+    probe = os.path.abspath(folder)
+    while not os.path.exists(probe):
+        parent = os.path.dirname(probe)
+        if parent == probe:
+            break
+        probe = parent
+    if not os.path.isdir(probe):
+        what = "it is a file, not a folder" if probe == os.path.abspath(folder) else f"'{probe}' is a file"
+        raise UsageError(f"cannot write to the folder '{folder}': {what}")
+    if not os.access(probe, os.W_OK | os.X_OK):
+        raise UsageError(f"cannot write to the folder '{folder}': '{probe}' is not writable")
     return folder
 
 
@@ -33,6 +53,7 @@ def write_atomic(files: dict[str, bytes | str]) -> list[str]:
             staged.append((tmp, path))
             with os.fdopen(fd, "wb") as fh:
                 fh.write(content.encode("utf-8") if isinstance(content, str) else content)
+            os.chmod(tmp, 0o666 & ~_umask())        # as an ordinary new file, not mkstemp's 0600
         for tmp, path in staged:
             if os.path.isdir(path):
                 raise UsageError(f"cannot write '{path}': a folder of that name exists")
@@ -45,6 +66,12 @@ def write_atomic(files: dict[str, bytes | str]) -> list[str]:
         _discard(staged)
         raise
     return [path for _, path in staged]
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def _discard(staged):

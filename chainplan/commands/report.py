@@ -1,0 +1,29 @@
+"""``chainplan report FILE``: one self-contained HTML review report (tables and figures)."""
+from __future__ import annotations
+
+import os
+
+from .common import add_analysis_options
+from .plot import add_montecarlo_options, analyse_for_pictures
+
+
+def add_arguments(p):
+    p.add_argument("file", help="chain spec (YAML)")
+    p.add_argument("-o", "--output", metavar="PATH",
+                   help="the HTML file to write (default: <spec name>-report.html in the current folder)")
+    add_montecarlo_options(p)
+    add_analysis_options(p)
+
+
+def run(args) -> int:
+    from ..errors import UsageError
+    from ..render.files import check_folder, write_atomic
+    if args.json:
+        raise UsageError("report writes an HTML file; for JSON use 'chainplan budget --json'")
+    path = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-report.html"
+    check_folder(os.path.dirname(path))          # refuse a bad folder before any work
+    b, noise, mc = analyse_for_pictures(args)
+    from ..render.report import report_html
+    write_atomic({path: report_html(b, noise, mc)})
+    print(path)
+    return 0
