@@ -144,13 +144,18 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
             if not np.any(np.asarray(g.psd) != 0):
                 continue
             if st.name in on_path:
-                big_a, big_b = ac.row[st.name]
                 a, b = ac.branch_row.get(st.name, (0.0, 0.0))
-                dvs = big_a * g.out_v + big_b * g.out_i - a * g.in_v - b * g.in_i
+                dvs = _combine((*ac.row[st.name], a, b), (g.out_v, g.out_i, -g.in_v, -g.in_i))
             else:
-                dvs = ac.row[st.parent][1] * (ac.y_in[st.name] * g.in_v - g.in_i)
-            res.append((st.name, name, np.broadcast_to(g.psd * np.abs(h * dvs) ** 2, shape), None))
+                dvs = ac.row[st.parent][1] * _combine((ac.y_in[st.name], -1.0), (g.in_v, g.in_i))
+            t = h * dvs
+            res.append((st.name, name, np.broadcast_to(g.psd * (t.real ** 2 + t.imag ** 2), shape), None))
     return res
+
+
+def _combine(rows, coefs):
+    """Σ row·coef over the coefficients that are not all zero."""
+    return sum((r * c for r, c in zip(rows, coefs) if np.any(np.asarray(c) != 0)), 0.0)
 
 
 def neglected_stages(ev: Evaluation) -> list:

@@ -276,3 +276,46 @@ def test_common_source_with_degeneration():
     res, _ = compare(CS_CHAIN, CS_NET, "d")
     for name in ("cs: r_s thermal", "cs: channel", "cs: r_d thermal", "src: r thermal"):
         assert res.shares[name][0] > 0.05, name
+
+
+# ---------------------------------------------------------------------------
+# Passive fan-out: a R ‖ C sensor, an AC coupling, a divider and an RC on the
+# path (resistors inside ladders, after series sections), and, reading the
+# coupled node, a side divider and a side load (noise entering from off the path).
+
+FANOUT_CHAIN = """
+name: fanout-noise
+temperature: 27 °C
+source: {name: src, kind: sensor, amplitude: 10 mV, r: 10k, c: 1 nF}
+stages:
+  - {name: cpl, kind: ac_coupling, c: 100 nF, r_bias: 100k, bias: 0 V}
+  - {name: side, kind: divider, from: cpl, r_top: 10k, r_bottom: 20k}
+  - {name: meter, kind: load, from: cpl, r_in: 47k}
+  - {name: div, kind: divider, from: cpl, r_top: 4.7k, r_bottom: 10k}
+  - {name: rc, kind: rc_lowpass, r: 1k, c: 10 nF}
+  - {name: out, kind: load, r_in: 100k}
+analysis: {f_ref: 1 kHz, f_start: 1 Hz, f_stop: 10 MHz, points: 701, output: out}
+"""
+FANOUT_NET = """
+Vsrc e 0 dc 0 ac 1
+Rs e n0 10k
+Cs n0 0 1n
+Ccpl n0 n1 100n
+Rb n1 0 100k
+Rst n1 n2 10k
+Rsb n2 0 20k
+Rm n1 0 47k
+Rdt n1 n3 4.7k
+Rdb n3 0 10k
+Rr n3 n4 1k
+Cr n4 0 10n
+Ro n4 0 100k
+"""
+
+
+def test_passive_fanout_with_side_branch():
+    res, _ = compare(FANOUT_CHAIN, FANOUT_NET, "n4")
+    assert res.neglected == []
+    for name in ("side: r_top thermal", "side: r_bottom thermal", "meter: r_in thermal", "cpl: r_bias thermal",
+                 "div: r_bottom thermal"):
+        assert res.shares[name][0] > 0.002, name

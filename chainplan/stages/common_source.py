@@ -28,7 +28,7 @@ class CommonSource(StageKind):
                         positive=True, allow_inf=True),
         "r_s": Field("ohm", "source degeneration resistor to v_low", default="0 Ω", minimum=0.0),
         **mosfet_noise_fields(),
-        **sink_noise_field("i_load"),
+        **sink_noise_field("i_load", "current-source load"),
     }
     ONE_OF = (("r_d", "i_load"),)
 

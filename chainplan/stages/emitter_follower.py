@@ -27,7 +27,7 @@ class EmitterFollower(StageKind):
         "r_bias": Field("ohm", "output resistance of the bias current sink", default="inf",
                         positive=True, allow_inf=True),
         "v_compliance": Field("V", "minimum voltage across the current sink", default="0.2 V", minimum=0.0),
-        **sink_noise_field("i_bias"),
+        **sink_noise_field("i_bias", "bias current sink"),
     }
     ONE_OF = (("i_bias", "r_e"),)
 

@@ -91,10 +91,10 @@ def mosfet_channel_psd(p, s, gm, temp_k):
     return 4.0 * K_BOLTZMANN * temp_k * gamma * gm * flicker(s, p["flicker_corner"])
 
 
-def sink_noise_field(what: str) -> dict:
-    """The noise current of an ideal bias current source (zero: noiseless)."""
-    return {f"{what}_noise": Field("A/rtHz", f"noise current density of the {what.replace('_', ' ')} source "
-                                   "(an ideal source is noiseless)", default="0 A/√Hz", minimum=0.0)}
+def sink_noise_field(current: str, what: str) -> dict:
+    """``<current>_noise``: the noise current density of a bias current source (zero: noiseless)."""
+    return {f"{current}_noise": Field("A/rtHz", f"noise current density of the {what} (0: an ideal, noiseless "
+                                      "source)", default="0 A/√Hz", minimum=0.0)}
 
 
 def input_noise_fields() -> dict:

@@ -30,7 +30,7 @@ class SourceFollower(StageKind):
         "cgs": Field("F", "gate–source capacitance", default="0 F", minimum=0.0),
         "cgd": Field("F", "gate–drain capacitance", default="0 F", minimum=0.0),
         **mosfet_noise_fields(),
-        **sink_noise_field("i_bias"),
+        **sink_noise_field("i_bias", "bias current sink"),
     }
     ONE_OF = (("i_bias", "r_s"),)
 
