@@ -67,7 +67,7 @@ class Evaluation:
     def peak(self, node: str):
         """Signal peak at a node at the reference frequency, (S,)."""
         amp = self.params[self.chain.source.name]["amplitude"]
-        return np.abs(np.asarray(self.ac.node_h[node])[..., 0]) * np.ravel(amp)
+        return np.abs(self.ac.node_h.at(node, 0)) * np.ravel(amp)
 
     def headroom(self, node: str):
         """Distance from the signal's extremes to the nearer limit (V), (S,)."""
@@ -76,10 +76,11 @@ class Evaluation:
         pk = self.peak(node)
         return np.minimum(np.ravel(hi) - (dc + pk), (dc - pk) - np.ravel(lo))
 
-    def interface_loss_db(self, stage: str):
-        """Loading loss where ``stage`` reads its node: 20·log10|1/(1 + Zth·Yin)| (S, F+1)."""
-        a, b = self.ac.branch_row[stage]
-        return 20 * np.log10(np.abs(a / (a + b * self.ac.y_in[stage])))
+    def interface_loss_db(self, stage: str, col=slice(None)):
+        """Loading loss where ``stage`` reads its node: 20·log10|1/(1 + Zth·Yin)| (S, F+1);
+        ``col`` picks frequency columns (``col=0``: the reference frequency, (S,))."""
+        a, b = (np.asarray(x)[:, col] for x in self.ac.branch_row[stage])
+        return 20 * np.log10(np.abs(a / (a + b * np.asarray(self.ac.y_in[stage])[:, col])))
 
     def band_edges(self, node: str | None = None):
         """−3 dB edges around the reference frequency, per sample (nan where the

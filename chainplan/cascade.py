@@ -19,6 +19,7 @@ ideal output has B = 0) with no stand-in large numbers.  All arrays are shaped
 """
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass
 
 import numpy as np
@@ -26,10 +27,29 @@ import numpy as np
 from .model import Chain
 
 
+class NodeGains(dict):
+    """node -> V_node/Vs = 1/(A_n + B_n·Y_n), (S, F), computed when first read:
+    most nodes are only ever read at the reference frequency (``at(node, 0)``)."""
+
+    def __init__(self, row: dict, node_y: dict):
+        super().__init__()
+        self.row, self.node_y = row, node_y
+
+    def __missing__(self, node):
+        h = self[node] = self.at(node)
+        return h
+
+    def at(self, node, col=slice(None)):
+        """V_node/Vs at frequency columns ``col`` only."""
+        a, b = (x[:, col] for x in self.row[node])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return 1.0 / (a + b * self.node_y[node][:, col])
+
+
 @dataclass
 class AcResult:
     f_hz: np.ndarray          # (F,)
-    node_h: dict              # node -> V_node/Vs, (S, F)
+    node_h: NodeGains         # node -> V_node/Vs, (S, F), computed on first use
     node_y: dict              # node -> total load admittance, (S, F)
     row: dict                 # node -> (A_n, B_n), driver row without siblings
     branch_row: dict          # stage -> (A, B) row seen at its input, siblings folded in
@@ -55,14 +75,12 @@ def run_ac(chain: Chain, params: dict, ops: dict, f_hz: np.ndarray) -> AcResult:
     zs = src.model.z_source(params[src.name], s)
     row = {src.name: (np.ones_like(s) + 0.0 * zs, zs + 0.0 * s)}
     branch_row = {}
+    readers = Counter(st.parent for st in chain.stages)
     for st in chain.stages:                                 # forward: Thevenin rows
         a, b = row[st.parent]
-        y_sib = node_y[st.parent] - y_in[st.name]
-        a_br = a + b * y_sib
+        a_br = a + b * (node_y[st.parent] - y_in[st.name]) if readers[st.parent] > 1 else a   # siblings
         branch_row[st.name] = (a_br, b)
         if st.role == "two_port":
             m = abcd[st.name]
             row[st.name] = (a_br * m.A + b * m.C, a_br * m.B + b * m.D)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        node_h = {n: 1.0 / (row[n][0] + row[n][1] * node_y[n]) for n in chain.nodes}
-    return AcResult(np.asarray(f_hz, dtype=float), node_h, node_y, row, branch_row, y_in, abcd)
+    return AcResult(np.asarray(f_hz, dtype=float), NodeGains(row, node_y), node_y, row, branch_row, y_in, abcd)

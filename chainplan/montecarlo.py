@@ -96,7 +96,7 @@ def metrics(ev) -> dict:
     f_lo, f_hi = ev.band_edges()
     out["f_low_hz"], out["f_high_hz"] = per(f_lo), per(f_hi)
     for st in chain.stages:
-        out[f"loading_loss_db.{st.name}"] = per(ev.interface_loss_db(st.name)[:, 0])
+        out[f"loading_loss_db.{st.name}"] = per(ev.interface_loss_db(st.name, 0))
     for node in chain.nodes:
         out[f"headroom_v.{node}"] = per(ev.headroom(node))
     power = buffers = 0.0

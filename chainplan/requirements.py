@@ -298,7 +298,7 @@ def _headroom(v: _Views, r):
 def _loading(v: _Views, r):
     ev, j = v.at(r.at_hz)
     names = list(r.targets or [s.name for s in ev.chain.stages])
-    rows = np.stack([v.per_sample(-ev.interface_loss_db(n)[:, j]) for n in names])
+    rows = np.stack([v.per_sample(-ev.interface_loss_db(n, j)) for n in names])
     return _worst(rows, [f"{ev.chain.stage(n).parent} → {n}" for n in names], np.argmax)
 
 
