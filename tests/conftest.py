@@ -10,6 +10,20 @@ REPO = Path(__file__).resolve().parent.parent
 DEMO_CHAINS = sorted((REPO / "chains").glob("*.yaml"))
 
 
+#: One node ('feed') driving three branches: RC into an ADC, a loaded divider, a cable.
+FAN_OUT_SPEC = """
+name: fan
+source: {name: src, kind: sensor, amplitude: 1 V, r: 2k, c: 1 nF}
+stages:
+  - {name: feed, kind: series_r, r: 1k}
+  - {name: lp, kind: rc_lowpass, from: feed, r: 4.7k, c: 10 nF}
+  - {name: adc, kind: adc, from: lp, bits: 12, fs_low: -5 V, fs_high: 5 V, r_in: 50k, c_in: 20 pF}
+  - {name: div, kind: divider, from: feed, r_top: 10k, r_bottom: 10k}
+  - {name: meter, kind: load, from: div, r_in: 20k}
+  - {name: cab, kind: cable, from: feed, length: 10 m, c_per_m: 100 pF/m, r_per_m: 0.1 Ω/m}
+"""
+
+
 def chain_from(text: str, path: str = "<test>"):
     """A validated Chain from (indented) YAML text."""
     from chainplan.spec import load_chain_text

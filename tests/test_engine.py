@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from chainplan.budget import evaluate, nominal_params
-from conftest import DEMO_CHAINS, chain_from
+from conftest import DEMO_CHAINS, FAN_OUT_SPEC, chain_from
 from chainplan.spec import load_chain
 
 EXTRA_CHAINS = {
@@ -114,17 +114,7 @@ def par(*zs):
 def test_fan_out_node_is_thevenin_into_parallel_branches():
     """V = Vth·ZL/(ZL + Zth) at the fan-out node, ZL the parallel of every branch's input
     impedance (Thevenin's theorem; branch impedances written out by hand)."""
-    chain = chain_from("""
-        name: fan
-        source: {name: src, kind: sensor, amplitude: 1 V, r: 2k, c: 1 nF}
-        stages:
-          - {name: feed, kind: series_r, r: 1k}
-          - {name: lp, kind: rc_lowpass, from: feed, r: 4.7k, c: 10 nF}
-          - {name: adc, kind: adc, from: lp, bits: 12, fs_low: -5 V, fs_high: 5 V, r_in: 50k, c_in: 20 pF}
-          - {name: div, kind: divider, from: feed, r_top: 10k, r_bottom: 10k}
-          - {name: meter, kind: load, from: div, r_in: 20k}
-          - {name: cab, kind: cable, from: feed, length: 10 m, c_per_m: 100 pF/m, r_per_m: 0.1 Ω/m}
-    """)
+    chain = chain_from(FAN_OUT_SPEC)
     ev = evaluate(chain, f_hz=F)
     s = 2j * np.pi * F
     zth = par(2e3, 1 / (s * 1e-9)) + 1e3                 # sensor R ‖ C, then the series resistor

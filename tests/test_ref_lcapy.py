@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from chainplan.budget import evaluate
-from conftest import chain_from
+from conftest import FAN_OUT_SPEC, chain_from
 
 FREQS = np.array([10.0, 300.0, 1591.5494, 5e3, 1e5, 1e7])
 REL = 1e-9
@@ -107,17 +107,6 @@ def test_naive_macro_model_would_fail_here(lcapy):
 
 # ---------------------------------------------------------------------------
 
-FAN = """
-name: fan
-source: {name: src, kind: sensor, amplitude: 1 V, r: 2k, c: 1 nF}
-stages:
-  - {name: feed, kind: series_r, r: 1k}
-  - {name: lp, kind: rc_lowpass, from: feed, r: 4.7k, c: 10 nF}
-  - {name: adc, kind: adc, from: lp, bits: 12, fs_low: -5 V, fs_high: 5 V, r_in: 50k, c_in: 20 pF}
-  - {name: div, kind: divider, from: feed, r_top: 10k, r_bottom: 10k}
-  - {name: meter, kind: load, from: div, r_in: 20k}
-  - {name: cab, kind: cable, from: feed, length: 10 m, c_per_m: 100 pF/m, r_per_m: 0.1 Ω/m}
-"""
 FAN_NET = """
 Rs 1 2 2000
 Cs 1 2 1e-9
@@ -136,7 +125,7 @@ Ccab 6 0 1e-9
 
 def test_fan_out(lcapy):
     """One node (feed) driving three branches; each branch sees the source loaded by its siblings."""
-    ev = evaluate(chain_from(FAN), f_hz=FREQS)
+    ev = evaluate(chain_from(FAN_OUT_SPEC), f_hz=FREQS)
     for name, n in (("src", 2), ("feed", 3), ("lp", 4), ("div", 5), ("cab", 6)):
         np.testing.assert_allclose(ev.gain(name)[0], transfer(lcapy, FAN_NET, n), rtol=REL, err_msg=name)
     # Thevenin impedance the divider branch sees at 'feed': source + series R ‖ the other two branches
@@ -240,6 +229,15 @@ RL 4 0 1000
 
 # ---------------------------------------------------------------------------
 
+def opamp_elements(a0_db, gbw, r_out, plus, minus, out):
+    """A single-pole op-amp built from elements: a VCCS of A0·(V+ − V−) into 1 Ω ‖ C with
+    C = A0/(2π·GBW) gives A(s) = A0/(1 + s·A0/(2π·GBW)); a unity VCVS and Ro follow
+    (the macro model of Franco, *Design with Operational Amplifiers*, from memory)."""
+    a0 = 10 ** (a0_db / 20)
+    return (f"Ga x 0 {plus} {minus} {a0!r}\nRx x 0 1\nCx x 0 {a0 / (2 * np.pi * gbw)!r}\n"
+            f"E1 y 0 x 0 1\nRo y {out} {r_out}")
+
+
 INV = """
 name: inv-ac
 rails: {vdd: 5 V, vss: -5 V}
@@ -258,20 +256,13 @@ stages:
 
 
 def test_opamp_inverting_network(lcapy):
-    """Inverting stage with a single-pole op-amp built from elements: a VCCS of A0
-    into 1 Ω ‖ C with C = A0/(2π·GBW) gives A(s) = A0/(1 + s·A0/(2π·GBW)), then a
-    unity buffer and Ro (the macro model of Franco, *Design with Operational
-    Amplifiers*, from memory)."""
+    """Inverting stage around the element-level single-pole op-amp (opamp_elements)."""
     ev = evaluate(chain_from(INV), f_hz=FREQS)
     net = f"""
 Rs 1 2 1000
 Rg 2 3 4700
 Rf 3 4 47000
-Ga x 0 0 3 10000
-Rx x 0 1
-Cx x 0 {1e4 / (2 * np.pi * 1e6)!r}
-E1 y 0 x 0 1
-Ro y 4 100
+{opamp_elements(80, 1e6, 100, plus="0", minus="3", out="4")}
 RL 4 0 2000
 CL 4 0 1e-9
 """
@@ -305,16 +296,11 @@ def test_opamp_noninverting_network(lcapy):
     """Non-inverting stage, same element-level op-amp as above, with its input R ‖ C
     and Ro loaded by the feedback divider and a 600 Ω ‖ 2 nF load."""
     ev = evaluate(chain_from(NONINV), f_hz=FREQS)
-    a0 = 10 ** (70 / 20)
     net = f"""
 Rs 1 2 10000
 Rin 2 0 1000000
 Cin 2 0 5e-12
-Ga x 0 2 3 {a0!r}
-Rx x 0 1
-Cx x 0 {a0 / (2 * np.pi * 2e6)!r}
-E1 y 0 x 0 1
-Ro y 4 200
+{opamp_elements(70, 2e6, 200, plus="2", minus="3", out="4")}
 Rf 4 3 9000
 Rg 3 0 1000
 RL 4 0 600
