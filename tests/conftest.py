@@ -24,6 +24,11 @@ stages:
 """
 
 
+def par(*zs):
+    """Parallel combination of impedances (numbers or arrays)."""
+    return 1 / sum(1 / z for z in zs)
+
+
 def chain_from(text: str, path: str = "<test>"):
     """A validated Chain from (indented) YAML text."""
     from chainplan.spec import load_chain_text

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from chainplan.budget import evaluate, nominal_params
-from conftest import DEMO_CHAINS, FAN_OUT_SPEC, chain_from
+from conftest import DEMO_CHAINS, FAN_OUT_SPEC, chain_from, par
 from chainplan.spec import load_chain
 
 EXTRA_CHAINS = {
@@ -105,10 +105,6 @@ def test_samples_are_independent():
 # Fan-out
 
 F = np.array([10.0, 1e3, 30e3, 1e6])
-
-
-def par(*zs):
-    return 1 / sum(1 / z for z in zs)
 
 
 def test_fan_out_node_is_thevenin_into_parallel_branches():

@@ -15,7 +15,7 @@ import pytest
 from scipy.optimize import brentq
 
 from chainplan.budget import analyse, evaluate
-from conftest import chain_from
+from conftest import chain_from, par
 
 # CODATA 2018 (exact in the 2019 SI), written out here rather than imported.
 K_B, Q_E = 1.380649e-23, 1.602176634e-19
@@ -31,10 +31,6 @@ def node(b, name):
 
 def iface(b, to):
     return next(r for r in b.interfaces if r.to == to)
-
-
-def par(*rs):
-    return 1.0 / sum(1.0 / r for r in rs)
 
 
 # ---------------------------------------------------------------------------
