@@ -75,7 +75,7 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None) -> NoiseResult:
     band = integration_band(ev.span, bandwidth_hz)
     w = band_weights(ev.span, *band)
     gens = output_psds(ev, float(np.sum(w)))
-    shape = ev.gain().shape
+    shape = (ev.samples, len(ev.f_hz))          # the gain may not vary with every varied input (temperature)
     total = np.zeros(shape)
     contributors, powers = [], {}
     for _, name, psd, power in gens:
@@ -126,7 +126,7 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
     out = ev.output
     s = (2j * np.pi * ev.f_hz)[None, :]
     h = ev.gain()
-    shape = h.shape
+    shape = (ev.samples, h.shape[1])
     on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
     conv, _ = converter(ev)
     res = []

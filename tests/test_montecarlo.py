@@ -222,3 +222,16 @@ def test_spread_usage_errors(cli, spec_file):
     assert cli("spread", path, "-n", "0")[0] == 2
     rc, _, err = cli("spread", path, "--rank", "gain")
     assert rc == 2 and "did you mean 'gain_db'" in err
+
+
+def test_temperature_corners_reach_the_noise_of_a_passive_chain():
+    """Only temperature varies: the gain stays (1, F) while the noise varies per sample.
+    Resistor noise only, so v_rms ∝ √T (Johnson–Nyquist, v² = 4kTR·B; Nyquist, Phys. Rev. 32, 1928)."""
+    if not mc.has_noise():
+        pytest.skip("no noise analysis in this version")
+    c = chain_from(DIVIDER.format(ra="10k", rb="10k").replace("analysis:", "corners: {temperature: [250 K, 350 K]}\n"
+                                                                           "analysis:"))
+    res = mc.run_draws(corner_draws(c))
+    lo, hi = res.metrics["noise_out_vrms"]
+    assert hi / lo == pytest.approx(math.sqrt(350 / 250), rel=1e-9)
+    assert res.metrics["gain_db"][0] == res.metrics["gain_db"][1]
