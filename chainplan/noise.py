@@ -113,7 +113,7 @@ def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):
     grid = np.concatenate(([ev.f_hz[0]], f_hz))
     ev_k = replace(ev, f_hz=grid, ac=run_ac(ev.chain, ev.params, ev.dc.ops, grid))
     gens = [(name, psd[:, 1:]) for _, name, psd, _ in output_psds(ev_k, bw)]
-    total = sum((psd for _, psd in gens), np.zeros((ev_k.gain().shape[0], f_hz.size)))
+    total = sum((psd for _, psd in gens), np.zeros((ev_k.samples, f_hz.size)))
     return np.sqrt(total), np.abs(ev_k.gain()[:, 1:]), gens
 
 
@@ -221,7 +221,8 @@ def integration_band(span, bandwidth_hz=None) -> tuple:
 
 def band_weights(f_hz, lo, hi) -> np.ndarray:
     """Weights w with Σ w·y = ∫ y df over [lo, hi] for y linear between the grid
-    points: the trapezoid rule, with band edges inside a segment cut exactly."""
+    points: the trapezoid rule (Press et al., *Numerical Recipes*, ch. 4, from
+    memory), with band edges inside a segment cut exactly."""
     f = np.asarray(f_hz, dtype=float)
     f0, f1 = f[:-1], f[1:]
     a, b = np.clip(lo, f0, f1), np.clip(hi, f0, f1)

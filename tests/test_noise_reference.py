@@ -23,6 +23,11 @@ def contributor_density(ev, name, f_hz):
     return float(np.sqrt(dict(gens)[name][0, 0])), float(gain[0, 0])
 
 
+def assert_densities(ev, expect, f_hz=1e3):
+    for name, value in expect.items():
+        assert contributor_density(ev, name, f_hz)[0] == pytest.approx(value, rel=1e-6), name
+
+
 # -- resistor thermal noise ---------------------------------------------------------
 
 def test_resistor_thermal_density_handbook_value():
@@ -116,8 +121,8 @@ OPAMP = "gbw: 100 GHz, a0: 200 dB, en: 10 nV/√Hz, in: 2 pA/√Hz, v_neg: -5 V"
 
 
 def test_noninverting_noise_gain():
-    # e_out² = en²·G² + (in·Rs·G)² + (in·RF)²‖… with G = 1 + RF/RG, ideal op-amp:
-    # en and in+·Rs see G, RG's EMF sees RF/RG, RF's EMF sees 1, in− sees RF.
+    # ideal op-amp, noise gain G = 1 + RF/RG: en, the source's EMF and in+·Rs see G,
+    # RG's EMF sees RF/RG, RF's EMF sees 1, in− sees RF.
     ev, _ = noise_of(f"""
         name: noninv
         temperature: 300 K
@@ -130,9 +135,7 @@ def test_noninverting_noise_gain():
     expect = {"amp: en": 10e-9 * 10, "amp: in+": 2e-12 * 100e3 * 10, "amp: in−": 2e-12 * 9e3,
               "amp: r_g thermal": np.sqrt(four_kt * 1e3) * 9, "amp: r_f thermal": np.sqrt(four_kt * 9e3),
               "src: r thermal": np.sqrt(four_kt * 100e3) * 10}
-    for name, value in expect.items():
-        d, _ = contributor_density(ev, name, 1e3)
-        assert d == pytest.approx(value, rel=1e-6), name
+    assert_densities(ev, expect)
 
 
 def test_inverting_noise_gain():
@@ -150,9 +153,7 @@ def test_inverting_noise_gain():
     expect = {"amp: en": 10e-9 * (1 + 30 / 3), "amp: in−": 2e-12 * 30e3,
               "amp: r_g thermal": np.sqrt(four_kt * 2e3) * 10, "amp: r_f thermal": np.sqrt(four_kt * 30e3),
               "src: r thermal": np.sqrt(four_kt * 1e3) * 10}
-    for name, value in expect.items():
-        d, _ = contributor_density(ev, name, 1e3)
-        assert d == pytest.approx(value, rel=1e-6), name
+    assert_densities(ev, expect)
 
 
 def test_flicker_corner_integral():
@@ -294,3 +295,26 @@ def test_samples_run_through_the_same_path():
         for attr in ("out_vrms", "in_vrms", "snr_db", "snr_fs_db", "enob_bits", "dynamic_range_db"):
             assert getattr(batch, attr)[i] == pytest.approx(getattr(one, attr)[0], rel=1e-12), attr
         np.testing.assert_allclose(batch.out_density[i], one.out_density[0], rtol=1e-12)
+
+
+def test_samples_where_only_noise_data_vary():
+    # a per-sample en leaves the gain one row wide; the noise still has one row per sample
+    chain = chain_from(f"""
+        name: en-spread
+        rails: {{vdd: 5 V}}
+        source: {{name: src, kind: sensor, amplitude: 1 mV}}
+        stages:
+          - {{name: amp, kind: opamp_noninverting, {OPAMP}, r_f: 0, r_g: 1k}}
+          - {{name: adc, kind: adc, bits: 24, fs_low: -2 V, fs_high: 2 V, noise_rms: 1 nV}}
+        analysis: {{f_start: 1 Hz, f_stop: 10 kHz, points: 201}}
+        """)
+    params = nominal_params(chain)
+    params["amp"] = {**params["amp"], "en": np.array([[5e-9], [10e-9]]), "in": 0.0}
+    ev = evaluate(chain, params)
+    res = analyse_noise(ev)
+    # unity gain (RF = 0): en over 1 Hz … 10 kHz, plus the converter's noise
+    q2 = (4 / 2 ** 24) ** 2 / 12
+    expect = np.sqrt(np.array([5e-9, 10e-9]) ** 2 * (1e4 - 1) + q2 + 1e-18)
+    np.testing.assert_allclose(res.out_vrms, expect, rtol=1e-6)
+    dens, _, _ = density_at(ev, [100.0])
+    assert dens.shape == (2, 1) and dens[1, 0] > 1.9 * dens[0, 0]
