@@ -76,9 +76,9 @@ class _OpAmp(StageKind):
         place gives V+ = Vc + Σ c·n, the noise behind the input shunt Yin (so
         in_i = Yin·in_v), with 1/A = ia and Rp = RF ‖ RG:
         c(en) = −1;  c(v_RF) = −β − Ro·ia·gfb;  c(v_RG) = 1 − β − Ro·ia·gfb;
-        c(in−) = Rp − Ro·ia·β.  For ia → 0 the output sees en, in−·RF, v_RF and
-        v_RG·RF/RG times the noise gain 1/β (Franco, *Design with Operational
-        Amplifiers*, noise chapter, from memory)."""
+        c(in−) = Rp − Ro·ia·β.  For ia → 0 the output sees each coefficient times
+        the noise gain 1/β: en·(1 + RF/RG), v_RF, v_RG·RF/RG and in−·RF (Franco,
+        *Design with Operational Amplifiers*, noise chapter, from memory)."""
         beta, g_fb = self._feedback(p)
         ro_ia = p["r_out"] * inv_open_loop(p, s)
         y_in = inv(p["r_in"]) + s * p["c_in"]
