@@ -183,5 +183,5 @@ def test_demo_chains_with_requirements_pass_or_fail_as_described(cli):
         if not c.extra.get("requirements"):
             continue
         rc, out, err = cli("check", str(path))
-        meant_to_fail = "fails on purpose" in c.description
+        meant_to_fail = "fail on purpose" in c.description
         assert rc == (1 if meant_to_fail else 0), (path, out, err)

@@ -7,6 +7,9 @@ from ..montecarlo import McResult, metric_info, metrics, stats
 from ..requirements import evaluate_requirements, show
 from .console import table_box
 
+#: inputs with a smaller share of the variance are summarised in one row
+MIN_SHARE = 5e-4
+
 def _rows(res: McResult, nominal):
     """(key, nominal value, Stats) of every metric with a finite spread to show."""
     nom = metrics(nominal)
@@ -64,8 +67,11 @@ def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
                   title_justify="left")
         t.add_column("input")
         t.add_column("share", justify="right")
-        for name, share in res.sensitivity[:10]:
+        shown = [(n, s) for n, s in res.sensitivity if s >= MIN_SHARE][:10]
+        for name, share in shown:
             t.add_row(name, _pct(share))
+        if len(shown) < len(res.sensitivity):
+            t.add_row(f"({len(res.sensitivity) - len(shown)} more inputs, each below {_pct(MIN_SHARE)})", "")
         rest = 1.0 - sum(s for _, s in res.sensitivity)
         t.add_row("(non-linear and interaction part)", _pct(max(rest, 0.0)))
         console.print(t)
