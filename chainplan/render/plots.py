@@ -249,10 +249,10 @@ def gain_plot(b: Budget):
     at_ref = min(20 * np.log10(max(abs(complex(np.ravel(ev.gain(n))[0])), 1e-300)) for n in chain.nodes)
     ax.set_ylim(max(min(at_ref, b.gain_db, top) - 40, top - 140), top + 8)
     ax.axvline(chain.analysis.f_ref_hz, color=QUIET, ls=":", lw=1)
-    ax.text(chain.analysis.f_ref_hz, top + 6, f" f_ref {fmt(chain.analysis.f_ref_hz, 'Hz')}", fontsize=7.5,
+    ax.text(chain.analysis.f_ref_hz * 1.08, top + 6, f"f_ref {fmt(chain.analysis.f_ref_hz, 'Hz')}", fontsize=7.5,
             color=QUIET, va="top")
     ax.axhline(b.gain_db - 3.0103, color=CLIP, ls=":", lw=0.8)
-    ax.text(f[-1], b.gain_db - 3.0103, "−3 dB ", fontsize=7.5, color=CLIP, ha="right", va="bottom")
+    ax.text(f[-1] / 1.08, b.gain_db - 3.0103, "−3 dB", fontsize=7.5, color=CLIP, ha="right", va="bottom")
     for edge, name in ((b.f_low_hz, "f_low"), (b.f_high_hz, "f_high")):
         if edge:
             ax.axvline(edge, color=CLIP, ls="--", lw=1, gid=f"edge:{name}")
@@ -302,7 +302,7 @@ def noise_plot(nr, chain, top: int = 6):
     vals = [100 * v for _, v in shares][::-1]
     axs.barh(names, vals, color=BAND, gid="shares")
     for i, v in enumerate(vals):
-        axs.text(v, i, f" {v:.1f} %", va="center", fontsize=7.5)
+        axs.text(v + 1.5, i, f"{v:.1f} %", va="center", fontsize=7.5)
     axs.set_xlabel("share of output noise power, %")
     axs.set_xlim(0, 115)
     axs.tick_params(axis="y", labelsize=8)
@@ -350,8 +350,8 @@ def montecarlo_plot(mc, nominal: dict | None = None, max_panels: int = 9):
             ax.axvline(nominal[name], color="black", lw=1.2, gid=f"nominal:{name}")
         head = label if yld is None else f"{label}: yield {100 * yld:.1f} %"
         ax.set_title(head, fontsize=8.5, loc="left", color=CLIP if (yld is not None and yld < 1) else "black")
-        axis = unit + (f"   limit {show(limit, unit)}" if limit is not None else "")
-        ax.set_xlabel(axis + ("   black: nominal" if name in nominal else ""), fontsize=7.5)
+        axis = unit + (f" · limit {show(limit, unit)}" if limit is not None else "")
+        ax.set_xlabel(axis + (" · black line: nominal" if name in nominal else ""), fontsize=7.5)
         ax.tick_params(labelsize=7)
     if not panels:
         fig.text(0.5, 0.5, "no finite values to show", ha="center")

@@ -42,15 +42,16 @@ def _e(x) -> str:
     return html.escape(str(x), quote=True)
 
 
-def _table(head: list[str], rows: list[tuple], left: int = 1, classes: list[str] | None = None) -> str:
-    """An HTML table; the first ``left`` columns are left-aligned text."""
-    th = "".join(f'<th class="{"l" if i < left else ""}">{_e(h)}</th>' for i, h in enumerate(head))
+def _table(head: list[str] | None, rows: list[tuple], left: int = 1, classes: list[str] | None = None) -> str:
+    """An HTML table (no header row for ``head=None``); the first ``left`` columns are left-aligned text."""
+    th = "".join(f'<th class="{"l" if i < left else ""}">{_e(h)}</th>' for i, h in enumerate(head or []))
     body = []
     for k, row in enumerate(rows):
         cls = f' class="{classes[k]}"' if classes and classes[k] else ""
         tds = "".join(f'<td class="{"l" if i < left else ""}">{_e(c)}</td>' for i, c in enumerate(row))
         body.append(f"<tr{cls}>{tds}</tr>")
-    return f"<table><thead><tr>{th}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+    thead = f"<thead><tr>{th}</tr></thead>" if head else ""
+    return f"<table>{thead}<tbody>{''.join(body)}</tbody></table>"
 
 
 def _svg(fig) -> str:
@@ -78,7 +79,7 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
         out.append(f'<div class="desc">{_e(c.description.strip())}</div>')
 
     out.append("<h2>Summary</h2>")
-    out.append(_table(["", ""], _summary_rows(b), left=1))
+    out.append(_table(None, _summary_rows(b), left=1))
 
     reqs = _requirement_rows(b)
     if reqs:
@@ -198,7 +199,9 @@ def _montecarlo_html(mc) -> list[str]:
         if st.count == 0:
             continue
         label, unit, _ = metric_info(mc.chain, name)
-        rows.append((label, *(show(x, unit) for x in (st.mean, st.std, st.p_low, st.median, st.p_high))))
+        sigma = st.std if st.std > 1e-9 * abs(st.mean) else 0.0        # rounding noise of a fixed value
+        rows.append((label, show(st.mean, unit), show(sigma, unit),
+                     *(show(x, unit) for x in (st.p_low, st.median, st.p_high))))
     out.append(_table(["metric", "mean", "σ", "0.1 %", "median", "99.9 %"], rows))
     if mc.sensitivity:
         out.append(f"<p>What drives the spread of <b>{_e(mc.key_metric)}</b> (first-order share of variance):</p>")
