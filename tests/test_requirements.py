@@ -185,3 +185,11 @@ def test_demo_chains_with_requirements_pass_or_fail_as_described(cli):
         rc, out, err = cli("check", str(path))
         meant_to_fail = "fail on purpose" in c.description
         assert rc == (1 if meant_to_fail else 0), (path, out, err)
+
+
+def test_every_requirement_kind_is_documented():
+    from conftest import REPO
+    from chainplan.requirements import KINDS
+    text = (REPO / "docs" / "requirements.md").read_text(encoding="utf-8")
+    for k in KINDS.values():
+        assert f"| `{k.key}` | `{k.kind}` |" in text, k.key
