@@ -104,7 +104,7 @@ def test_bad_spec_in_a_real_process(case, spec_file):
     assert proc.returncode == 2
     assert proc.stdout == ""
     assert "Traceback" not in proc.stderr
-    assert proc.stderr.count("\n") == 1 and f"{path}:{expected_line(text)}:" in proc.stderr
+    assert proc.stderr.count("\n") == 1 and f"{path}:{expected_line(text)}:" in proc.stderr, proc.stderr
 
 
 def test_missing_file(cli, tmp_path):
