@@ -386,3 +386,23 @@ def check_chain(chain) -> list[ReqResult]:
     ev = evaluate(chain)
     check_operating_points(chain, ev.dc)
     return evaluate_requirements(ev)
+
+
+def __getattr__(name):
+    """``SCHEMAS``: the JSON Schema of the ``requirements:`` section for chainplan.schema,
+    built from KINDS when asked for (keeps the schema module out of every start-up)."""
+    if name != "SCHEMAS":
+        raise AttributeError(name)
+    from .schema import field_schema
+    from .stages.base import Field
+    value = lambda unit, doc: field_schema(Field(unit, doc, tolerable=False))  # noqa: E731
+    names = {"anyOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}, "minItems": 1}]}
+    props = {k.key: value(k.unit, k.what) for k in KINDS.values()}
+    props.update(name={"type": "string", "description": "what tables, JUnit and diffs call it"},
+                 at=value("Hz", "frequency (default: f_ref)"),
+                 band={"type": "array", "items": value("Hz", "band end"), "minItems": 2, "maxItems": 2},
+                 nodes=names, interfaces=names, stages=names)
+    item = {"type": "object", "properties": props, "additionalProperties": False,
+            "oneOf": [{"required": [k]} for k in KINDS]}
+    return {"requirements": {"type": "array", "items": item,
+                             "description": "requirements the chain must meet (docs/requirements.md)"}}

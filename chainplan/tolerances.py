@@ -210,3 +210,21 @@ def _apply_shared(d: Draws, rails: dict, temp) -> None:
         if bad is not None and bad.any():
             d.valid &= ~bad
             d.assign[(st, fld)] = np.where(bad, d.chain.stage(st).params[fld], v)
+
+
+def __getattr__(name):
+    """``SCHEMAS``: the JSON Schema of the ``corners:`` section for chainplan.schema (built when asked for)."""
+    if name != "SCHEMAS":
+        raise AttributeError(name)
+    from .schema import field_schema
+    from .stages.base import Field
+    temp = field_schema(Field("K", "temperature"))
+    return {"corners": {"type": "object", "additionalProperties": False, "properties": {
+        "temperature": {"anyOf": [{"type": "array", "items": temp, "minItems": 2, "maxItems": 2},
+                                  {"type": "string", "pattern": temp["anyOf"][1]["pattern"]}],
+                        "description": "[LOW, HIGH] or 'MID ±HALF-WIDTH'"},
+        "supply": {"type": "string", "pattern": r"^\s*(±|\+/-|\+-)?\s*\d+(\.\d*)?\s*%\s*$",
+                   "description": "deviation that scales every rail (or the listed ones) together, e.g. '±5 %'"},
+        "rails": {"anyOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}, "minItems": 1}],
+                  "description": "rails the supply corner moves (default: all)"}},
+        "description": "global corners for tolerance runs (docs/requirements.md)"}}

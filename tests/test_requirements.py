@@ -193,3 +193,18 @@ def test_every_requirement_kind_is_documented():
     text = (REPO / "docs" / "requirements.md").read_text(encoding="utf-8")
     for k in KINDS.values():
         assert f"| `{k.key}` | `{k.kind}` |" in text, k.key
+
+
+def test_schema_describes_requirements_and_corners():
+    jsonschema = pytest.importorskip("jsonschema")
+    import yaml
+    from chainplan.schema import chain_schema
+    schema = chain_schema()
+    good = yaml.safe_load(RC_CHAIN + "requirements:\n  - min_gain: -10 dB\n  - flatness: 1 dB\n    band: [1 Hz, 1 kHz]\n"
+                          "corners: {temperature: [0 °C, 50 °C], supply: ±5 %}\n")
+    jsonschema.validate(good, schema)
+    for bad in ("requirements:\n  - min_gain: 1 dB\n    max_gain: 2 dB\n",     # two limits in one item
+                "requirements:\n  - min_gain: 3 V\n",                          # wrong unit
+                "corners: {supply: 5 V}\n"):
+        with pytest.raises(jsonschema.ValidationError):
+            jsonschema.validate(yaml.safe_load(RC_CHAIN + bad), schema)
