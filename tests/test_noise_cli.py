@@ -60,7 +60,7 @@ def test_noise_tables(cli):
 
 
 def test_noise_json_keys_and_density_points(cli, spec_file):
-    rc, out, err = cli("noise", spec_file(spec()), "--json", "--at", "10 Hz, 1 kHz,100kHz")
+    rc, out, err = cli("noise", spec_file(spec()), "--json", "--spot", "10 Hz, 1 kHz,100kHz")
     assert rc == 0, err
     d = json.loads(out)
     for key in ("noise_out_vrms", "noise_in_vrms", "snr_db", "snr_fs_db", "dynamic_range_db", "enob_bits"):
@@ -97,7 +97,7 @@ def test_budget_json_carries_the_noise_keys(cli, spec_file):
 @pytest.mark.parametrize("args, words", [
     (["--bandwidth", "1 THz:2 THz"], "--bandwidth"),
     (["--bandwidth", "1 kV"], "--bandwidth"),
-    (["--at", "1 kHz,oops"], "--at"),
+    (["--spot", "1 kHz,oops"], "--spot"),
 ])
 def test_bad_options(cli, spec_file, args, words):
     rc, out, err = cli("noise", spec_file(spec()), *args)

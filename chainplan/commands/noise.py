@@ -4,17 +4,16 @@ the converter budget (SNR, dynamic range, ENOB)."""
 from __future__ import annotations
 
 import math
-from types import SimpleNamespace
 
 from .common import _freq, apply_analysis_options
 
 
 def add_arguments(p):
     p.add_argument("file", help="chain spec (YAML)")
-    p.add_argument("--at", metavar="FREQS",
-                   help="frequencies of the density table, comma-separated, e.g. '10 Hz,1 kHz,100 kHz' "
+    p.add_argument("--spot", metavar="FREQS",
+                   help="spot-noise frequencies of the density table, comma-separated, e.g. '10 Hz,1 kHz,100 kHz' "
                         "(default: f_ref and the decades of the span)")
-    p.add_argument("--ref", metavar="FREQ", help="reference frequency of the signal and of the input "
+    p.add_argument("--at", metavar="FREQ", help="reference frequency of the signal and of the input "
                                                  "referral, e.g. '1 kHz' (default: the spec's f_ref)")
     p.add_argument("--span", metavar="LOW:HIGH", help="analysis span, e.g. '1 Hz:10 MHz' (default: the spec's)")
     p.add_argument("--bandwidth", metavar="BAND",
@@ -30,7 +29,7 @@ def run(args) -> int:
     from ..errors import UsageError
     from ..noise import analyse_noise, density_at, noise_json
     from ..spec import load_chain
-    chain = apply_analysis_options(load_chain(args.file), SimpleNamespace(at=args.ref, span=args.span))
+    chain = apply_analysis_options(load_chain(args.file), args)
     band = _band(args.bandwidth)
     ev = evaluate(chain)
     check_operating_points(chain, ev.dc)
@@ -38,7 +37,7 @@ def run(args) -> int:
         res = analyse_noise(ev, band)
     except ValueError as exc:
         raise UsageError(f"--bandwidth: {exc}") from None
-    freqs = _freqs(args.at) if args.at else default_freqs(ev.span, chain.analysis.f_ref_hz)
+    freqs = _freqs(args.spot) if args.spot else default_freqs(ev.span, chain.analysis.f_ref_hz)
     dens, gain, gens = density_at(ev, freqs, band)
     if args.json:
         from ..render.json_out import clean, dumps
@@ -64,10 +63,10 @@ def default_freqs(span, f_ref: float) -> list:
 
 
 def _freqs(text: str) -> list:
-    out = [_freq(part, "--at") for part in text.split(",") if part.strip()]
+    out = [_freq(part, "--spot") for part in text.split(",") if part.strip()]
     if not out:
         from ..errors import UsageError
-        raise UsageError("--at takes comma-separated frequencies, e.g. '10 Hz,1 kHz'")
+        raise UsageError("--spot takes comma-separated frequencies, e.g. '10 Hz,1 kHz'")
     return sorted(set(out))
 
 
