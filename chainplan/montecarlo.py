@@ -27,7 +27,7 @@ import numpy as np
 
 from .budget import evaluate, frequency_grid
 from .model import Chain
-from .requirements import ReqResult, evaluate_requirements
+from .requirements import ReqResult, evaluate_requirements, per_sample
 from .tolerances import Draws, draw
 
 #: working-memory budget of one chunk (bytes); the chunk size follows from it
@@ -89,8 +89,7 @@ def stats(x: np.ndarray, valid: np.ndarray) -> Stats:
 def metrics(ev) -> dict:
     """Per-sample figures of an evaluation, each ``(S,)``."""
     n = ev.samples
-    per = lambda x: np.broadcast_to(np.ravel(np.asarray(x, dtype=float)), (n,)) \
-        if np.size(x) == 1 else np.ravel(np.asarray(x, dtype=float))  # noqa: E731
+    per = lambda x: per_sample(x, n)  # noqa: E731
     chain = ev.chain
     out = {"gain_db": per(20 * np.log10(np.abs(ev.gain()[:, 0])))}
     f_lo, f_hi = ev.band_edges()

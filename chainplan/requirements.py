@@ -20,6 +20,7 @@ requirement.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import importlib.util
 import math
 from dataclasses import dataclass
@@ -230,6 +231,11 @@ def _names(item, key, valid, what, err):
 
 # -- evaluation ----------------------------------------------------------------
 
+def per_sample(x, n: int) -> np.ndarray:
+    """A figure as one value per sample, (n,): a scalar or a (1,) array is broadcast."""
+    return np.broadcast_to(np.ravel(np.asarray(x, dtype=float)), (n,))
+
+
 class _Views:
     """The evaluation plus, on demand, exact gains at frequencies off the grid
     (one extra AC pass reusing the operating points) and the noise analysis."""
@@ -244,21 +250,18 @@ class _Views:
             f = np.asarray(extra)
             ev_x = dataclasses.replace(ev, f_hz=f, ac=run_ac(ev.chain, ev.params, ev.dc.ops, f))
             self.col.update({float(x): (ev_x, i) for i, x in enumerate(extra)})
-        self._noise = None
 
     def at(self, f_hz):
         return self.col[float(self.ev.f_hz[0] if f_hz is None else f_hz)]
 
-    def per_sample(self, x):
-        return np.broadcast_to(np.ravel(np.asarray(x, dtype=float)), (self.n,)) if np.size(x) == 1 else \
-            np.ravel(np.asarray(x, dtype=float))
+    @functools.cached_property
+    def edges(self):
+        return self.ev.band_edges()
 
-    @property
+    @functools.cached_property
     def noise(self):
-        if self._noise is None:
-            from .noise import analyse_noise
-            self._noise = analyse_noise(self.ev)
-        return self._noise
+        from .noise import analyse_noise
+        return analyse_noise(self.ev)
 
 
 def _gain_db(v: _Views, r):
@@ -280,25 +283,25 @@ def _flatness(v: _Views, r):
 
 
 def _f_high(v: _Views, r):
-    f = v.ev.band_edges()[1]
+    f = v.edges[1]
     return np.where(np.isnan(f), np.inf, f), None          # no edge in the span: above it
 
 
 def _f_low(v: _Views, r):
-    f = v.ev.band_edges()[0]
+    f = v.edges[0]
     return np.where(np.isnan(f), 0.0, f), None             # no edge in the span: below it
 
 
 def _headroom(v: _Views, r):
     names = list(r.targets or v.ev.chain.nodes)
-    rows = np.stack([v.per_sample(v.ev.headroom(n)) for n in names])
+    rows = np.stack([per_sample(v.ev.headroom(n), v.n) for n in names])
     return _worst(rows, names, np.argmin)
 
 
 def _loading(v: _Views, r):
     ev, j = v.at(r.at_hz)
     names = list(r.targets or [s.name for s in ev.chain.stages])
-    rows = np.stack([v.per_sample(-ev.interface_loss_db(n, j)) for n in names])
+    rows = np.stack([per_sample(-ev.interface_loss_db(n, j), v.n) for n in names])
     return _worst(rows, [f"{ev.chain.stage(n).parent} → {n}" for n in names], np.argmax)
 
 
@@ -323,7 +326,7 @@ def _power(v: _Views, r):
     names = r.targets or [s.name for s in ev.chain.stages if s.model.follower_type]
     total = 0.0
     for n in names:
-        total = total + v.per_sample(ev.dc.ops[n].values.get("power_w", 0.0))
+        total = total + per_sample(ev.dc.ops[n].values.get("power_w", 0.0), v.n)
     return total + np.zeros(v.n), None
 
 
@@ -342,7 +345,7 @@ def evaluate_requirements(ev, reqs=None) -> list[ReqResult]:
     out = []
     for r in reqs:
         value, where = _VALUE[r.key](views, r)
-        value = views.per_sample(value)
+        value = per_sample(value, views.n)
         margin = value - r.limit if r.sense == "min" else r.limit - value
         with np.errstate(invalid="ignore"):
             passed = (margin >= 0) & valid

@@ -39,7 +39,7 @@ def run(args) -> int:
     nominal = evaluate(chain)
     check_operating_points(chain, nominal.dc)
     _check_rank(chain, args.rank)
-    with _progress(args.samples) as tick:
+    with _Progress(args.samples) as tick:
         res = run_mc(chain, args.samples, args.seed, progress=tick, key=args.rank)
     from ..montecarlo import run_draws
     from ..tolerances import corner_draws
@@ -66,7 +66,7 @@ def _check_rank(chain, key):
         raise UsageError(f"--rank: '{key}' is not a metric or requirement of this chain" + nearest(key, names))
 
 
-class _progress:
+class _Progress:
     """A rich progress bar on stderr for long runs, only when stderr is a terminal."""
 
     def __init__(self, total):

@@ -1,6 +1,8 @@
 """Terminal tables, JSON and Markdown (for a pull-request comment) of a spec diff."""
 from __future__ import annotations
 
+import math
+
 from ..diffing import Diff
 from ..requirements import show
 from .console import table_box
@@ -9,8 +11,7 @@ MARK = {"worse": "worse", "clips now": "CLIPS NOW", "fails now": "FAILS NOW"}
 
 
 def _delta(c) -> str:
-    if c.old is None or c.new is None or c.old != c.old or c.new != c.new or abs(c.old) == float("inf") \
-            or abs(c.new) == float("inf"):
+    if c.old is None or c.new is None or not (math.isfinite(c.old) and math.isfinite(c.new)):
         return ""
     d = show(c.new - c.old, c.unit)
     return d if d.startswith("−") else "+" + d
