@@ -208,3 +208,17 @@ def test_schema_describes_requirements_and_corners():
                 "corners: {supply: 5 V}\n"):
         with pytest.raises(jsonschema.ValidationError):
             jsonschema.validate(yaml.safe_load(RC_CHAIN + bad), schema)
+
+
+def test_snr_and_enob_requirements_read_the_noise_analysis():
+    pytest.importorskip("chainplan.noise")
+    from chainplan.budget import evaluate
+    from chainplan.noise import analyse_noise
+    c = rc_with("  - min_snr: 60 dB\n  - min_enob: 16\n")
+    ev = evaluate(c)
+    snr, enob = evaluate_requirements(ev)
+    nr = analyse_noise(ev)
+    assert snr.value[0] == pytest.approx(float(np.ravel(nr.snr_db)[0]), rel=1e-12)
+    assert enob.value[0] == pytest.approx(float(np.ravel(nr.enob_bits)[0]), rel=1e-12)
+    # a 12-bit converter cannot reach 16 bits: ENOB ≤ N (ideal ADC, 6.02·N + 1.76 dB, common practice)
+    assert enob.value[0] <= 12 and not enob.passed[0]
