@@ -77,7 +77,7 @@ def rss_mb() -> float:
     return float("nan")
 
 
-def child_run(samples: int, noise: bool) -> None:
+def child_run(samples: int, noise: bool, workers: int) -> None:
     """Run in a fresh process: one full Monte Carlo; print time and memory as JSON."""
     from chainplan import montecarlo as mc
     if not noise:
@@ -86,7 +86,7 @@ def child_run(samples: int, noise: bool) -> None:
     mc.run(chain, 500, seed=0)                               # warm caches and imports
     base = rss_mb()
     t0 = time.perf_counter()
-    res = mc.run(chain, samples, seed=1)
+    res = mc.run(chain, samples, seed=1, workers=workers)
     dt = time.perf_counter() - t0
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(json.dumps({"seconds": dt, "peak_mb": peak, "base_mb": base, "chunk": mc.chunk_size(chain),
@@ -94,9 +94,9 @@ def child_run(samples: int, noise: bool) -> None:
                       "noise": noise and mc.has_noise()}))
 
 
-def full_run(samples: int, noise: bool) -> dict:
-    out = subprocess.run([sys.executable, __file__, "--child", str(samples)] + ([] if noise else ["--no-noise"]),
-                         capture_output=True, text=True, check=True)
+def full_run(samples: int, noise: bool, workers: int) -> dict:
+    out = subprocess.run([sys.executable, __file__, "--child", str(samples), "--workers", str(workers)]
+                         + ([] if noise else ["--no-noise"]), capture_output=True, text=True, check=True)
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
@@ -246,22 +246,25 @@ def main():
     ap.add_argument("--spice", type=int, default=200, help="samples for ngspice (0: skip)")
     ap.add_argument("--child", type=int, help=argparse.SUPPRESS)
     ap.add_argument("--no-noise", action="store_true", help=argparse.SUPPRESS)
+    ap.add_argument("--workers", type=int, default=1, help=argparse.SUPPRESS)
     a = ap.parse_args()
     if a.child:
-        return child_run(a.child, noise=not a.no_noise)
+        return child_run(a.child, noise=not a.no_noise, workers=a.workers)
     from chainplan.montecarlo import has_noise
     chain = load()
     F = len(__import__("chainplan.budget", fromlist=["x"]).frequency_grid(chain))
     print(f"chain: {len(chain.stages)} stages, {F} frequencies, {len(chain.extra['tolerances'])} part tolerances, "
           f"{len(chain.extra['rail_tolerances'])} rail tolerances, supply corner")
-    runs = [False] + ([True] if has_noise() else [])
+    print(f"load average before the run: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
     vec = {}
-    for noise in runs:
-        r = full_run(a.samples, noise)
-        vec[noise] = r["seconds"] / a.samples
-        print(f"Monte Carlo {a.samples} samples{' with noise analysis' if noise else ' (no noise analysis)'}: "
-              f"{r['seconds']:.2f} s, peak RSS {r['peak_mb']:.0f} MB (after imports {r['base_mb']:.0f} MB), "
-              f"chunk {r['chunk']} samples, yield {100 * r['yield']:.1f} %, valid {100 * r['valid']:.2f} %")
+    for noise, workers in [(False, 1), (False, os.cpu_count() or 1)] + ([(True, 1)] if has_noise() else []):
+        r = full_run(a.samples, noise, workers)
+        vec[noise, workers] = r["seconds"] / a.samples
+        print(f"Monte Carlo {a.samples} samples{' with noise analysis' if noise else ' (no noise analysis)'}, "
+              f"{workers} thread{'s' * (workers > 1)}: {r['seconds']:.2f} s, peak RSS {r['peak_mb']:.0f} MB "
+              f"(after imports {r['base_mb']:.0f} MB), chunk {r['chunk']} samples, yield {100 * r['yield']:.1f} %, "
+              f"valid {100 * r['valid']:.2f} %")
+    vec[False] = vec[False, 1]
     per_loop = loop_run(a.loop)
     print(f"Python loop of single analyses ({a.loop} samples, no noise): {1e3 * per_loop:.2f} ms/sample; "
           f"vectorised {1e6 * vec[False]:.1f} µs/sample -> {per_loop / vec[False]:.0f}× faster")
@@ -278,7 +281,8 @@ def main():
         dev = np.max(np.abs(20 * np.log10(gains) - ours)) if gains else float("nan")
         print(f"ngspice ({a.spice} samples, one process, .control loop with alter + ac, 197 points): "
               f"{1e3 * per:.2f} ms/sample (start-up {t0:.2f} s excluded); chainplan {1e6 * vec[False]:.1f} µs/sample "
-              f"-> {per / vec[False]:.0f}× faster per sample; same circuit: gain at 1 kHz agrees within "
+              f"-> {per / vec[False]:.0f}× faster per sample on one thread, "
+              f"{per / vec[False, os.cpu_count() or 1]:.0f}× with {os.cpu_count()}; same circuit: gain at 1 kHz agrees within "
               f"{dev:.4f} dB over {len(gains)} samples")
     elif a.spice:
         print("ngspice not installed: skipped")

@@ -21,6 +21,7 @@ regression's R²; what is missing from 1 is the non-linear part.
 from __future__ import annotations
 
 import importlib.util
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -36,6 +37,8 @@ CHUNK_BYTES = 256e6
 #: tracemalloc on the benchmark chain: about 12; rounded up)
 ARRAYS_PER_STAGE = 16
 PERCENTILES = (0.1, 50.0, 99.9)
+#: threads evaluating chunks at once
+MAX_WORKERS = 4
 
 
 @dataclass
@@ -150,27 +153,40 @@ def chunk_size(chain: Chain) -> int:
 
 
 def run(chain: Chain, samples: int, seed: int = 1, chunk: int | None = None, progress=None,
-        key: str | None = None) -> McResult:
+        key: str | None = None, workers: int | None = None) -> McResult:
     """Monte Carlo over every tolerance and corner of ``chain``.  ``progress(done, total)``
     is called after each chunk; ``key`` names the metric or requirement to rank inputs for
     (default: the requirement with the lowest yield, else the gain)."""
-    return run_draws(draw(chain, samples, seed), seed, chunk, progress, key)
+    return run_draws(draw(chain, samples, seed), seed, chunk, progress, key, workers)
 
 
-def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None) -> McResult:
-    """Evaluate prepared draws (a Monte Carlo set or the corner combinations) in chunks."""
-    chain = d.chain
-    chunk = chunk or chunk_size(chain)
+def _chunk(d: Draws, sl: slice):
+    """(metrics, requirement results, validity) of samples ``sl``."""
+    ev = evaluate(d.chain, d.params(sl))
+    n = sl.stop - sl.start
+    return ({k: np.broadcast_to(v, (n,)) for k, v in metrics(ev).items()}, evaluate_requirements(ev),
+            np.broadcast_to(ev.valid, (n,)) & d.valid[sl])
+
+
+def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None,
+              workers: int | None = None) -> McResult:
+    """Evaluate prepared draws (a Monte Carlo set or the corner combinations) in chunks.
+    Chunks run on ``workers`` threads (default: one per core, at most 4): numpy releases
+    the interpreter lock in its array arithmetic, and results are collected in order,
+    so the numbers do not depend on the thread count."""
+    from concurrent.futures import ThreadPoolExecutor
+    chunk = chunk or chunk_size(d.chain)
+    slices = [slice(i, min(i + chunk, d.n)) for i in range(0, d.n, chunk)]
+    workers = min(workers or os.cpu_count() or 1, MAX_WORKERS, max(len(slices), 1))
     parts_m, parts_r, parts_v = [], [], []
-    for start in range(0, d.n, chunk):
-        sl = slice(start, min(start + chunk, d.n))
-        ev = evaluate(chain, d.params(sl))
-        n = sl.stop - sl.start
-        parts_m.append({k: np.broadcast_to(v, (n,)) for k, v in metrics(ev).items()})
-        parts_r.append(evaluate_requirements(ev))
-        parts_v.append(np.broadcast_to(ev.valid, (n,)) & d.valid[sl])
-        if progress is not None:
-            progress(sl.stop, d.n)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        for sl, (m, r, v) in zip(slices, pool.map(lambda sl: _chunk(d, sl), slices)):
+            parts_m.append(m)
+            parts_r.append(r)
+            parts_v.append(v)
+            if progress is not None:
+                progress(sl.stop, d.n)
+    chain = d.chain
     valid = np.concatenate(parts_v) if parts_v else np.zeros(0, dtype=bool)
     mets = {k: np.concatenate([p[k] for p in parts_m]) for k in parts_m[0]} if parts_m else {}
     reqs = [_join([p[i] for p in parts_r], valid) for i in range(len(parts_r[0]))] if parts_r else []
