@@ -31,10 +31,10 @@ from .model import Chain
 from .requirements import ReqResult, evaluate_requirements, per_sample
 from .tolerances import Draws, draw
 
-#: working-memory budget of one chunk (bytes); the chunk size follows from it
+#: working-memory budget of one chunk (bytes; one chunk per thread); the chunk size follows from it
 CHUNK_BYTES = 256e6
-#: complex (S, F) arrays alive per stage during one evaluation (measured with
-#: tracemalloc on the benchmark chain: about 12; rounded up)
+#: complex (S, F) arrays alive per stage during one evaluation (from the peak RSS of
+#: benchmarks/bench_montecarlo.py: about 11 per stage; rounded up)
 ARRAYS_PER_STAGE = 16
 PERCENTILES = (0.1, 50.0, 99.9)
 #: threads evaluating chunks at once
@@ -186,11 +186,10 @@ def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, 
             parts_v.append(v)
             if progress is not None:
                 progress(sl.stop, d.n)
-    chain = d.chain
     valid = np.concatenate(parts_v) if parts_v else np.zeros(0, dtype=bool)
     mets = {k: np.concatenate([p[k] for p in parts_m]) for k in parts_m[0]} if parts_m else {}
     reqs = [_join([p[i] for p in parts_r], valid) for i in range(len(parts_r[0]))] if parts_r else []
-    res = McResult(chain, d.n, seed, mets, reqs, valid, d.inputs, labels=d.labels)
+    res = McResult(d.chain, d.n, seed, mets, reqs, valid, d.inputs, labels=d.labels)
     if d.n:
         res.key_metric, y = key_values(res, key)
         res.sensitivity = rank(y, d.inputs, valid)
