@@ -37,34 +37,38 @@ def headline(d: Diff) -> str:
     return "; ".join(parts) + f" ({d.unchanged} figures unchanged)"
 
 
+def sections(d: Diff) -> list:
+    """The changed rows, shared by the terminal and Markdown forms: (title, columns
+    (name, right-aligned), [(cells, regression)]) per non-empty section."""
+    dash = lambda x: "—" if x is None else x  # noqa: E731
+    out = []
+    if d.params:
+        out.append(("Parameters", [("where", False), ("was", False), ("now", False)],
+                    [((p.where, dash(p.old), dash(p.new)), False) for p in d.params]))
+    if d.budget:
+        out.append(("Budget (nominal)", [("figure", False), ("was", True), ("now", True), ("change", True),
+                                         ("", False)],
+                    [((c.label, show(c.old, c.unit), show(c.new, c.unit), _delta(c), MARK.get(c.verdict, c.verdict)),
+                      c.regression) for c in d.budget]))
+    if d.requirements:
+        out.append(("Requirements", [("requirement", False), ("was", False), ("now", False), ("", False)],
+                    [((r.name, _req_cell(r.old), _req_cell(r.new), MARK.get(r.verdict, r.verdict)), r.regression)
+                     for r in d.requirements]))
+    return out
+
+
 def compare_tables(d: Diff, console) -> None:
     from rich.table import Table
     from rich.text import Text
     bx = table_box(console)
     console.print(Text(f"{d.old.label}  →  {d.new.label}", style="bold"))
     console.print(headline(d), style="bold red" if d.regressions else "bold")
-    if d.params:
-        t = Table(title="Parameters", box=bx, title_justify="left")
-        for col in ("where", "was", "now"):
-            t.add_column(col)
-        for p in d.params:
-            t.add_row(p.where, p.old if p.old is not None else "—", p.new if p.new is not None else "—")
-        console.print(t)
-    if d.budget:
-        t = Table(title="Budget (nominal)", box=bx, title_justify="left")
-        for col in ("figure", "was", "now", "change", ""):
-            t.add_column(col, justify="left" if col in ("figure", "") else "right")
-        for c in d.budget:
-            t.add_row(c.label, show(c.old, c.unit), show(c.new, c.unit), _delta(c), MARK.get(c.verdict, c.verdict),
-                      style="bold red" if c.regression else None)
-        console.print(t)
-    if d.requirements:
-        t = Table(title="Requirements", box=bx, title_justify="left")
-        for col in ("requirement", "was", "now", ""):
-            t.add_column(col)
-        for r in d.requirements:
-            t.add_row(r.name, _req_cell(r.old), _req_cell(r.new), MARK.get(r.verdict, r.verdict),
-                      style="bold red" if r.regression else None)
+    for title, cols, rows in sections(d):
+        t = Table(title=title, box=bx, title_justify="left")
+        for name, right in cols:
+            t.add_column(name, justify="right" if right else "left")
+        for cells, regression in rows:
+            t.add_row(*cells, style="bold red" if regression else None)
         console.print(t)
 
 
@@ -90,26 +94,19 @@ def compare_markdown(d: Diff) -> str:
     out = [f"### chainplan: `{_md(d.new.chain.name)}` budget change", "",
            f"`{_md(d.old.label)}` → `{_md(d.new.label)}`", "",
            ("**" + headline(d) + "**") if d.regressions else headline(d), ""]
-    if d.params:
-        out += ["#### Parameters", "", "| where | was | now |", "|---|---|---|"]
-        out += [f"| `{_md(p.where)}` | {_code(p.old)} | {_code(p.new)} |" for p in d.params]
-        out.append("")
-    if d.budget:
-        out += ["#### Budget (nominal)", "", "| figure | was | now | change | |", "|---|---:|---:|---:|---|"]
-        for c in d.budget:
-            mark = MARK.get(c.verdict, c.verdict)
-            out.append(f"| {_md(c.label)} | {show(c.old, c.unit)} | {show(c.new, c.unit)} | {_delta(c)} | "
-                       + (f"**{mark}**" if c.regression else mark) + " |")
-        out.append("")
-    if d.requirements:
-        out += ["#### Requirements", "", "| requirement | was | now | |", "|---|---|---|---|"]
-        for r in d.requirements:
-            mark = MARK.get(r.verdict, r.verdict)
-            out.append(f"| {_md(r.name)} | {_req_cell(r.old)} | {_req_cell(r.new)} | "
-                       + (f"**{mark}**" if r.regression else mark) + " |")
+    for title, cols, rows in sections(d):
+        out += [f"#### {title}", "", "| " + " | ".join(n for n, _ in cols) + " |",
+                "|" + "|".join("---:" if right else "---" for _, right in cols) + "|"]
+        for cells, regression in rows:
+            cells = [_code(c) if title == "Parameters" and i else _md(c) for i, c in enumerate(cells)]
+            if title == "Parameters":
+                cells[0] = f"`{cells[0]}`"
+            if regression:
+                cells[-1] = f"**{cells[-1]}**"
+            out.append("| " + " | ".join(cells) + " |")
         out.append("")
     return "\n".join(out)
 
 
 def _code(x) -> str:
-    return "—" if x is None else f"`{_md(x)}`"
+    return x if x == "—" else f"`{_md(x)}`"
