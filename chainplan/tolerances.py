@@ -173,7 +173,7 @@ def draw(chain: Chain, samples: int, seed: int) -> Draws:
 
 def corner_draws(chain: Chain) -> Draws:
     """Every combination of the corner extremes (parts at nominal): one sample each,
-    labelled like 'T 273 K, supply −5 %'."""
+    labelled like '0 °C, supply −5 %'."""
     c = chain.extra.get("corners") or Corners()
     axes = []
     if c.temp_k is not None:
