@@ -64,7 +64,8 @@ class _OpAmp(StageKind):
         beta, g_fb = self._feedback(p)
         ia = inv_open_loop(p, s)
         core = ABCD(beta + (1.0 + p["r_out"] * g_fb) * ia, p["r_out"] * ia, 0.0, 0.0)
-        return chain(shunt_y(inv(p["r_in"]) + s * p["c_in"]), core)
+        y_in = inv(p["r_in"]) + s * p["c_in"]
+        return chain(shunt_y(y_in), core) if np.any(y_in != 0) else core   # an ideal input adds nothing
 
     def dc_input_load(self, p, out_load, op):
         g = inv(p["r_in"])
