@@ -75,6 +75,7 @@ def test_markdown_for_a_pull_request(cli, spec_file):
     rc, out, _ = cli("compare", old, new, "--markdown")
     assert rc == 0 and out.startswith("### chainplan: `amp` budget change")
     assert "| `gain.r_f` | `19k` | `8k` |" in out
+    # gains 1 + RF/RG = 20 and 9 → 26.02 dB and 19.08 dB (non-inverting amplifier, common practice)
     assert "| min_gain | pass (26.02 dB) | FAIL (19.08 dB) | **FAILS NOW** |" in out
 
 
