@@ -180,10 +180,7 @@ def test_opamp_inverting_stage():
 
 
 # ---------------------------------------------------------------------------
-# BJT stages (Gummel–Poon with IS and BF only): shot noise and resistors.  No
-# Early voltage: Gummel–Poon leaves the Early factor out of IB (so its β grows
-# with VCE) while chainplan keeps IB = IC/β; that DC difference, not the noise
-# model, would show in the base shot noise.
+# BJT stages (Gummel–Poon with IS and BF only): shot noise and resistors.
 
 EF_CHAIN = """
 name: ef-noise

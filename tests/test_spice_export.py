@@ -24,9 +24,6 @@ from helpers_ngspice import needs_ngspice, run, run_ac, run_noise, run_op
 BJT_MIX = """
 name: bjt-mix
 description: test chain - bipolar stages, a series resistor, AC coupling, a plain load
-# A finite Early voltage only where the base is driven from a low impedance: SPICE's
-# Gummel-Poon base current IS/BF*exp(VBE/VT) lacks the Early factor that chainplan's
-# IB = IC/beta carries, so behind a high source resistance the DC levels would part.
 temperature: 320 K
 rails: {vdd: 5 V, vmid: 2.5 V}
 source: {name: src, kind: sensor, amplitude: 10 mV, dc: 2.0 V, r: 100, c: 100 nF}

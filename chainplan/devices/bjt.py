@@ -1,9 +1,12 @@
 """Bipolar transistor (NPN) DC and small-signal equations, vectorised.
 
 Sources (from memory): Sedra & Smith, *Microelectronic Circuits*, BJT chapter
-(IC = IS·exp(VBE/VT), gm = IC/VT, rπ = β/gm, ro = VA/IC); the SPICE
-Gummel–Poon model with only IS, BF and VAF set reduces to these, with the
-Early factor (1 + VCE/VA) kept in IC and ro = (VA + VCE)/IC.
+(IC = IS·exp(VBE/VT), gm = IC/VT, rπ = β/gm, ro = VA/IC), written as the
+SPICE Gummel–Poon model reduces with only IS, BF and VAF set (ngspice manual,
+BJT model): the Early factor acts on the collector current through VCB,
+IC = IS·exp(VBE/VT)·(1 + VCB/VA), while the base current IB = (IS/BF)·exp(VBE/VT)
+has none — so the effective current gain IC/IB grows with VCB, and
+ro = (VA + VCB)/IC, rπ = VT/IB.
 """
 from __future__ import annotations
 
@@ -18,28 +21,33 @@ def thermal_voltage(temp_k):
     return K_BOLTZMANN * temp_k / Q_ELECTRON
 
 
-def collector_current(i_s, vbe, vce, va, vt):
-    """IC = IS·exp(VBE/VT)·(1 + VCE/VA) in the forward-active region."""
-    early = 1.0 + vce / va
-    return i_s * np.exp(np.minimum(vbe / vt, 200.0)) * early
+def collector_current(i_s, vbe, vcb, va, vt):
+    """IC = IS·exp(VBE/VT)·(1 + VCB/VA) in the forward-active region."""
+    return i_s * np.exp(np.minimum(vbe / vt, 200.0)) * (1.0 + vcb / va)
 
 
-def small_signal(i_c, beta, va, vce, vt):
-    """gm = IC/VT, rπ = β/gm, ro = (VA + VCE)/IC."""
-    gm = i_c / vt
-    r_pi = beta / gm
-    ro = (va + vce) / i_c
-    return gm, r_pi, ro
+def base_current(i_s, vbe, beta, vt):
+    """IB = (IS/β)·exp(VBE/VT): no Early factor (Gummel–Poon with VAF only)."""
+    return i_s / beta * np.exp(np.minimum(vbe / vt, 200.0))
+
+
+def small_signal(i_c, i_b, va, vcb, vt):
+    """gm = IC/VT, rπ = VT/IB, ro = (VA + VCB)/IC."""
+    return i_c / vt, vt / i_b, (va + vcb) / i_c
 
 
 def solve_emitter(p, v_b, v_c, i_out, vt):
-    """Emitter voltage with IE(VE) = i_out(VE); IE = IC·(β+1)/β falls as VE rises."""
+    """Emitter voltage with IE(VE) = IC + IB = i_out(VE); IE falls as VE rises.
+    Returns VE, IC, IB."""
+    def currents(ve):
+        return (collector_current(p["i_s"], v_b - ve, v_c - v_b, p["va"], vt),
+                base_current(p["i_s"], v_b - ve, p["beta"], vt))
+
     def mismatch(ve):
-        ic = collector_current(p["i_s"], v_b - ve, v_c - ve, p["va"], vt)
-        return ic * (p["beta"] + 1.0) / p["beta"] - i_out(ve)
+        ic, ib = currents(ve)
+        return ic + ib - i_out(ve)
     ve = bisect(mismatch, np.minimum(v_b, v_c) - 50.0, v_b + 0.0)
-    ic = collector_current(p["i_s"], v_b - ve, v_c - ve, p["va"], vt)
-    return ve, ic
+    return (ve, *currents(ve))
 
 
 def device_fields():

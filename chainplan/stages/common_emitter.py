@@ -34,21 +34,21 @@ class CommonEmitter(StageKind):
         re_safe = np.where(re > 0, re, 1.0)
         vc = np.asarray(p["collector"], dtype=float) + 0.0 * np.asarray(v_in)
         for _ in range(6):  # alternate: emitter given collector, collector by KCL
-            ve_bis, _ = bjt.solve_emitter({**p, "va": p["va"]}, v_in, vc,
-                                          lambda v: (v - p["v_low"]) / re_safe, vt)
+            ve_bis = bjt.solve_emitter(p, v_in, vc, lambda v: (v - p["v_low"]) / re_safe, vt)[0]
             ve = np.where(re > 0, ve_bis, p["v_low"])
-            ic = bjt.collector_current(p["i_s"], v_in - ve, vc - ve, p["va"], vt)
+            ic = bjt.collector_current(p["i_s"], v_in - ve, vc - v_in, p["va"], vt)
             vc = (p["collector"] / p["r_c"] + out_load.I0 - ic) / (1.0 / p["r_c"] + out_load.G)
-        gm, r_pi, ro = bjt.small_signal(ic, p["beta"], p["va"], vc - ve, vt)
+        ib = bjt.base_current(p["i_s"], v_in - ve, p["beta"], vt)
+        gm, r_pi, ro = bjt.small_signal(ic, ib, p["va"], vc - v_in, vt)
+        beta = ic / ib          # effective current gain at this bias
         r_out = inv(inv(p["r_c"]) + inv(ro))
-        r_in = r_pi + (p["beta"] + 1.0) * re
-        av = -p["beta"] * r_out / r_in
-        op = Op(values=dict(vbe_v=v_in - ve, ic_a=ic, ib_a=ic / p["beta"], gm_s=gm, rpi_ohm=r_pi, ro_ohm=ro,
-                            rin_ohm=r_in, av=av, rout_ohm=r_out,
-                            power_w=ic * (1 + 1 / p["beta"]) * (p["collector"] - p["v_low"])))
+        r_in = r_pi + (beta + 1.0) * re
+        av = -beta * r_out / r_in
+        op = Op(values=dict(vbe_v=v_in - ve, ic_a=ic, ib_a=ib, gm_s=gm, rpi_ohm=r_pi, ro_ohm=ro,
+                            rin_ohm=r_in, av=av, rout_ohm=r_out, power_w=(ic + ib) * (p["collector"] - p["v_low"])))
         op.out_range = (ve + p["vce_sat"], p["collector"])
         # base current linearised at this bias (dIB/dVB = 1/Rin): a Newton step for the DC loop
-        op.input_load = DcLoad(1.0 / r_in, v_in / r_in - ic / p["beta"])
+        op.input_load = DcLoad(1.0 / r_in, v_in / r_in - ib)
         op.flag(vc - ve < p["vce_sat"], "r_c", f"the transistor saturates (VCE = {float(np.min(vc - ve)):.3g} V); "
                 "lower r_c or the bias current")
         i_out = out_load.G * vc - out_load.I0
@@ -62,7 +62,7 @@ class CommonEmitter(StageKind):
         RE's EMF acts at the base unchanged; RC's 4kT/RC enters the collector node."""
         v = op.values
         gm, r_pi, re = v["gm_s"], v["rpi_ohm"], p["r_e"]
-        return [NoiseSource("collector shot", shot(v["ic_a"]), in_v=(1.0 + re / r_pi) / gm, in_i=1.0 / p["beta"]),
+        return [NoiseSource("collector shot", shot(v["ic_a"]), in_v=(1.0 + re / r_pi) / gm, in_i=v["ib_a"] / v["ic_a"]),
                 NoiseSource("base shot", shot(v["ib_a"]), in_v=re, in_i=1.0),
                 NoiseSource("r_e thermal", thermal_v(re, temp_k), in_v=1.0),
                 NoiseSource("r_c thermal", thermal_i(p["r_c"], temp_k), out_i=1.0)]

@@ -41,24 +41,25 @@ class EmitterFollower(StageKind):
         vt = bjt.thermal_voltage(p["temp_k"])
         r_low = self._r_to_low(p)
         i_src = p["i_bias"] if p.get("i_bias") is not None else 0.0
-        ve, ic = bjt.solve_emitter(
+        ve, ic, ib = bjt.solve_emitter(
             p, v_in, p["collector"],
             lambda v: i_src + (v - p["v_low"]) * inv(r_low) + out_load.G * v - out_load.I0, vt)
-        gm, r_pi, ro = bjt.small_signal(ic, p["beta"], p["va"], p["collector"] - ve, vt)
+        gm, r_pi, ro = bjt.small_signal(ic, ib, p["va"], p["collector"] - v_in, vt)
+        beta = ic / ib          # effective current gain at this bias
         g_out = inv(ro) + inv(r_low)
         y = 1.0 / r_pi
         # Any slope gives exact downstream DC levels (the load is already in the
         # solve); the ideal-driver output resistance keeps the relation meaningful.
         r_out = inv(g_out + gm + y)
-        op = Op(values=dict(vbe_v=v_in - ve, ic_a=ic, ib_a=ic / p["beta"], gm_s=gm, rpi_ohm=r_pi, ro_ohm=ro,
-                            power_w=ic * (1 + 1 / p["beta"]) * (p["collector"] - p["v_low"])))
+        op = Op(values=dict(vbe_v=v_in - ve, ic_a=ic, ib_a=ib, gm_s=gm, rpi_ohm=r_pi, ro_ohm=ro,
+                            power_w=(ic + ib) * (p["collector"] - p["v_low"])))
         low = p["v_low"] + (p["v_compliance"] if p.get("i_bias") is not None else 0.0)
         op.out_range = (low, p["collector"] - p["vce_sat"])
         op.in_range = (-np.inf, p["collector"] - p["vce_sat"] + (v_in - ve))
         # Base current linearised at this bias, so the chain's DC loop is a Newton
         # iteration: dIB/dVB = 1/(rπ + (β + 1)·RE_dc), RE_dc the emitter's DC load.
-        g_in = inv(r_pi + (p["beta"] + 1.0) * inv(g_out + out_load.G))
-        op.input_load = DcLoad(g_in, g_in * v_in - ic / p["beta"])
+        g_in = inv(r_pi + (beta + 1.0) * inv(g_out + out_load.G))
+        op.input_load = DcLoad(g_in, g_in * v_in - ib)
         sat = p["collector"] - ve < p["vce_sat"]
         op.flag(sat, "collector", "the transistor saturates at this bias")
         if p.get("i_bias") is not None:
