@@ -174,6 +174,8 @@ class Budget:
     f_high_hz: float | None
     output: str
     signal_dbfs: float | None = None
+    peak_gain_db: float | None = None   # largest gain over the span
+    f_peak_hz: float | None = None
     #: filled by feature modules (noise, requirements): summary rows and JSON keys
     extra_summary: list = field(default_factory=list)
     extra_json: dict = field(default_factory=dict)
@@ -247,4 +249,7 @@ def analyse(chain: Chain) -> Budget:
         pk = _f(ev.peak(out))
         dbfs = 20 * np.log10(pk / half) if pk > 0 else -np.inf
     nan2none = lambda x: None if not np.isfinite(x) else float(x)  # noqa: E731
-    return Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs)
+    span_db = 20 * np.log10(np.abs(ev.gain()[0, 1:]))
+    k = int(np.argmax(span_db))
+    return Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs,
+                  peak_gain_db=float(span_db[k]), f_peak_hz=float(ev.span[k]))

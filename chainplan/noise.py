@@ -248,7 +248,7 @@ def attach_to_budget(b: Budget) -> None:
         rows += [("SNR of a full-scale sine", _db_text(f(r.snr_fs_db))),
                  ("ENOB", f"{f(r.enob_bits):.2f} bits")]
     top = r.ranked[0] if r.ranked else None
-    if top is not None:
+    if top is not None and np.isfinite(f(r.shares[top])):
         rows.append(("largest noise contributor", f"{top} ({100 * f(r.shares[top]):.0f} %)"))
     b.extra_summary.extend(rows)
     b.extra_json.update(noise_json(r, brief=True))

@@ -31,6 +31,8 @@ def budget_dict(b: Budget) -> dict:
         "f_low_hz": b.f_low_hz,
         "f_high_hz": b.f_high_hz,
         "signal_dbfs": b.signal_dbfs,
+        "peak_gain_db": b.peak_gain_db,
+        "f_peak_hz": b.f_peak_hz,
         "stages": [{"name": s.name, "kind": s.kind, "zin_ohm": s.zin_ohm, "zout_ohm": s.zout_ohm,
                     "gain": s.gain, "gain_db": s.gain_db, "operating_point": s.op} for s in b.stages],
         "interfaces": [{"from": r.source, "to": r.to, "z_source_ohm": r.z_source_ohm,

@@ -72,10 +72,13 @@ def budget_tables(b: Budget, console) -> None:
 
     t = Table(title="Summary", box=bx, title_justify="left", show_header=False)
     t.add_column("what")
-    t.add_column("value", justify="right")
+    t.add_column("value")
     t.add_row(f"end-to-end gain to '{b.output}' at {f_ref}", db(b.gain_db))
     t.add_row("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
                             f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")
+    if b.peak_gain_db is not None and b.peak_gain_db - b.gain_db > 1.0:
+        t.add_row("note", f"f_ref is on a slope: the gain peaks {b.peak_gain_db - b.gain_db:.1f} dB higher "
+                          f"at {eng(b.f_peak_hz, 'Hz')}")
     if worst is not None and worst.loss_db < -0.005:
         t.add_row("worst interface", f"{worst.source} → {worst.to}: {db(worst.loss_db, 3)}")
     elif worst is not None:
