@@ -27,6 +27,8 @@ NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 SECTION_PARSERS: dict[str, str] = {
     "requirements": "chainplan.requirements:parse_section",
     "corners": "chainplan.tolerances:parse_corners",
+    "include": "chainplan.parts:parse_include",
+    "candidates": "chainplan.parts:parse_candidates",
 }
 
 
@@ -191,6 +193,12 @@ def _topological(ctx, source, stages):
     order = list(nx.lexicographical_topological_sort(g, key=lambda n: index.get(n, -1)))
     by_name = {st.name: st for st in stages}
     return [by_name[n] for n in order if n in by_name]
+
+
+def build_stage(path: str, node: LDict, rails: dict, tolerances: dict) -> Stage:
+    """One two-port or load stage from its spec mapping, validated exactly like a
+    chain's stages (used for candidate buffers in parts files); errors name ``path``."""
+    return _stage(_Ctx(path), node, rails, tolerances, default_name=None)
 
 
 def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -> Stage:

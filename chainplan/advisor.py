@@ -1,0 +1,355 @@
+"""Buffer advice: for every interface of a chain, what each candidate buffer
+would do there — found by re-analysing the whole chain with the buffer
+inserted, never by rules of thumb.
+
+Every figure is a difference of two full analyses (``chainplan.budget.evaluate``
+of the chain as it is and of a copy with the buffer inserted by
+``chainplan.insert``), at the reference frequency unless said otherwise:
+
+* ``loss_now_db``: the interface's loading loss, 20·log10|1/(1 + Zth·Yin)|;
+* ``recovered_db``: (loss X→buffer + loss buffer→Y) − loss X→Y: the loading
+  loss the buffer gives back (positive = recovered);
+* ``buffer_gain_db``: the buffer's open-circuit gain Vth(buffer)/V(X), its own
+  cost in dB (a follower's gm·R/(1 + (gm + gmb)·R) < 1; Sedra & Smith,
+  *Microelectronic Circuits*, follower analysis, from memory);
+* ``net_gain_db``: end-to-end gain after − before.  It is about
+  recovered + buffer gain; the rest is the reader's own response changing with
+  the lower source impedance it now sees;
+* ``dc_shift_v``: DC level of the buffer's output − DC level of X (a source
+  follower's VGS, an emitter follower's VBE, ~0 for an op-amp follower);
+* headroom after − before at every node (the buffer's own node has no
+  "before"), band edges before and after, SNR before and after (when the
+  noise analysis is installed), and the buffer's supply power at its operating
+  point there.
+
+Verdict per interface (thresholds in :data:`THRESHOLDS`, documented in
+docs/buffers.md).  A candidate is *usable* when its device holds its bias and
+it makes no node clip that did not clip before (its own output included).
+It *helps* when it gives back at least ``helps_db`` of loading loss or widens
+the band by ``band_gain`` (10 %).
+
+* needed — the interface loses ``needed_loss_db`` (3 dB: 30 % of the signal) or
+  more, and a usable candidate wins back ``needed_net_db`` (1 dB) end to end;
+* worth it — a usable candidate raises the end-to-end gain by ``worth_net_db``
+  (0.5 dB, about 6 %) or widens the band by 10 %, without costing more than
+  ``snr_loss_db`` (1 dB) of SNR;
+* would clip — some candidates would help, but every one of them clips a node
+  or cannot be biased at this node's DC level;
+* not worth it — otherwise: little to recover, and what a buffer gives back is
+  eaten by its own gain below one.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .budget import Evaluation, check_operating_points, evaluate
+from .insert import insert_buffers
+from .model import Chain
+from .parts import Candidate, candidates_of
+
+THRESHOLDS = {
+    "needed_loss_db": 3.0,     # an interface losing this much or more needs a buffer...
+    "needed_net_db": 1.0,      # ...if one wins back at least this much end to end
+    "worth_net_db": 0.5,       # a net end-to-end gain of 0.5 dB (6 %) is worth a part
+    "band_gain": 0.10,         # or a band edge moved outward by 10 %
+    "helps_db": 0.5,           # a candidate that gives back this much loss "helps"
+    "snr_loss_db": 1.0,        # worth it only if the SNR drops by less than this
+}
+
+
+@dataclass
+class NodeChange:
+    node: str
+    before_v: float | None       # None: the node is the buffer's own
+    after_v: float
+    change_v: float | None
+
+
+@dataclass
+class CandidateEffect:
+    candidate: str
+    kind: str
+    buffer: str                  # the inserted stage's name
+    valid: bool                  # the device holds its bias at this node's DC level
+    problem: str | None          # why not, in words
+    loss_after_db: float | None
+    recovered_db: float | None
+    buffer_gain_db: float | None
+    dc_shift_v: float | None
+    net_gain_db: float | None
+    f_low_before_hz: float | None
+    f_low_after_hz: float | None
+    f_high_before_hz: float | None
+    f_high_after_hz: float | None
+    snr_before_db: float | None
+    snr_after_db: float | None
+    power_w: float | None
+    price: float | None
+    count: int
+    headroom: list[NodeChange] = field(default_factory=list)
+    new_clips: list[str] = field(default_factory=list)
+
+    @property
+    def usable(self) -> bool:
+        return self.valid and not self.new_clips
+
+    @property
+    def worst_headroom(self) -> NodeChange | None:
+        """The downstream node whose headroom falls most (or the buffer's own node if it is tighter)."""
+        rows = [h for h in self.headroom if h.change_v is not None and math.isfinite(h.change_v)]
+        own = [h for h in self.headroom if h.before_v is None and math.isfinite(h.after_v)]
+        worst = min(rows, key=lambda h: h.change_v, default=None)
+        if own and (worst is None or own[0].after_v < worst.after_v):
+            return own[0]
+        return worst
+
+    @property
+    def snr_change_db(self) -> float | None:
+        if self.snr_before_db is None or self.snr_after_db is None:
+            return None
+        return self.snr_after_db - self.snr_before_db
+
+    @property
+    def band_gain(self) -> float:
+        """Largest relative outward move of a band edge (0 when neither moves out)."""
+        gains = [0.0]
+        if self.f_high_before_hz and (self.f_high_after_hz is None or self.f_high_after_hz > self.f_high_before_hz):
+            gains.append(math.inf if self.f_high_after_hz is None else self.f_high_after_hz / self.f_high_before_hz - 1)
+        if self.f_low_before_hz and (self.f_low_after_hz is None or self.f_low_after_hz < self.f_low_before_hz):
+            gains.append(math.inf if self.f_low_after_hz is None else self.f_low_before_hz / self.f_low_after_hz - 1)
+        return max(gains)
+
+
+@dataclass
+class InterfaceAdvice:
+    source: str                  # node X
+    reader: str                  # stage Y (names the interface)
+    z_source_ohm: float
+    z_load_ohm: float
+    loss_now_db: float
+    candidates: list[CandidateEffect]
+    verdict: str                 # 'needed', 'worth it', 'not worth it', 'would clip'
+    reason: str
+    best: str | None             # the candidate the verdict recommends
+
+
+@dataclass
+class Advice:
+    chain: Chain
+    f_ref_hz: float
+    output: str
+    gain_db: float
+    cost_basis: str              # 'price' or 'power': how the advice ranks candidates
+    interfaces: list[InterfaceAdvice]
+    thresholds: dict
+    noise: bool                  # SNR columns available
+
+
+# -- analysis ----------------------------------------------------------------------
+
+@dataclass
+class _Figures:
+    """What the advice needs from one full analysis."""
+    ev: Evaluation
+    gain_db: float
+    f_low: float | None
+    f_high: float | None
+    headroom: dict
+    snr_db: float | None
+
+
+def _figures(ev: Evaluation, with_noise: bool) -> _Figures:
+    f_lo, f_hi = ev.band_edges()
+    room = {n: float(ev.headroom(n)[0]) for n in ev.chain.nodes}
+    snr = None
+    if with_noise and bool(ev.valid[0]):
+        snr = _snr_db(ev)
+    return _Figures(ev, float(20 * np.log10(np.abs(ev.gain()[0, 0]))), _edge(f_lo), _edge(f_hi), room, snr)
+
+
+def _snr_db(ev: Evaluation) -> float | None:
+    try:
+        from .noise import analyse_noise
+    except ImportError:
+        return None
+    return float(np.ravel(analyse_noise(ev).snr_db)[0])
+
+
+def _noise_available() -> bool:
+    try:
+        from . import noise  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def _edge(x) -> float | None:
+    v = float(np.ravel(x)[0])
+    return v if math.isfinite(v) else None
+
+
+def _loss_db(ev: Evaluation, reader: str) -> float:
+    return float(ev.interface_loss_db(reader)[0, 0])
+
+
+def _z(x) -> float:
+    x = complex(np.ravel(x)[0])
+    return abs(x)
+
+
+def cost_basis(cands: list[Candidate]) -> str:
+    """'price' when every candidate states one, else 'power'."""
+    return "price" if cands and all(c.price is not None for c in cands) else "power"
+
+
+def buffer_power(ev: Evaluation, buffer: str, cand: Candidate) -> float:
+    """Supply power of an inserted buffer: the parts file's fixed figure, or its operating point's."""
+    if cand.power_w is not None:
+        return cand.power_w
+    return float(np.ravel(ev.dc.ops[buffer].values.get("power_w", 0.0))[0])
+
+
+def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_noise: bool) -> CandidateEffect:
+    """Full re-analysis of ``chain`` with ``cand`` inserted in front of ``reader``."""
+    new = insert_buffers(chain, {reader: cand})
+    buf = new.stage(reader).parent
+    x = new.stage(buf).parent
+    with np.errstate(all="ignore"):
+        ev = evaluate(new)
+        out = CandidateEffect(
+            candidate=cand.name, kind=cand.kind, buffer=buf, valid=bool(ev.valid[0]), problem=None,
+            loss_after_db=None, recovered_db=None, buffer_gain_db=None, dc_shift_v=None, net_gain_db=None,
+            f_low_before_hz=base.f_low, f_low_after_hz=None, f_high_before_hz=base.f_high, f_high_after_hz=None,
+            snr_before_db=base.snr_db, snr_after_db=None, power_w=None, price=cand.price, count=cand.count)
+        if not out.valid:               # no figures for a bias the device cannot hold
+            out.problem = _problem_text(ev, buf)
+            return out
+        fig = _figures(ev, with_noise)
+        out.loss_after_db = _loss_db(ev, buf) + _loss_db(ev, reader)
+        out.recovered_db = out.loss_after_db - _loss_db(base.ev, reader)
+        open_gain = abs((1.0 / ev.ac.row[buf][0][0, 0]) / ev.ac.node_h[x][0, 0])
+    out.buffer_gain_db = 20 * math.log10(open_gain) if open_gain > 0 else None
+    out.dc_shift_v = float(np.ravel(ev.dc.node_v[buf])[0] - np.ravel(ev.dc.node_v[x])[0])
+    out.net_gain_db = fig.gain_db - base.gain_db
+    out.f_low_after_hz, out.f_high_after_hz, out.snr_after_db = fig.f_low, fig.f_high, fig.snr_db
+    out.power_w = buffer_power(ev, buf, cand)
+    for n in new.nodes:
+        after, before = fig.headroom[n], base.headroom.get(n)
+        change = after - before if before is not None and math.isfinite(after) and math.isfinite(before) else None
+        out.headroom.append(NodeChange(n, before, after, change))
+    out.new_clips = [h.node for h in out.headroom if h.after_v < 0 and (h.before_v is None or h.before_v >= 0)]
+    return out
+
+
+def _problem_text(ev: Evaluation, buf: str) -> str:
+    for name, op in ev.dc.ops.items():
+        if op.problems:
+            who = "the buffer" if name == buf else f"'{name}'"
+            return f"{who}: {op.problems[0][1]}"
+    floating = [n for n, v in ev.dc.node_v.items() if not np.all(np.isfinite(v))]
+    return f"node '{floating[0]}' has no DC level" if floating else "the bias cannot be solved"
+
+
+def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
+    """Per-interface advice for ``chain`` over its candidates (``include:``/``candidates:``)."""
+    cands = candidates_of(chain) if candidates is None else candidates
+    with_noise = _noise_available()
+    ev0 = evaluate(chain)
+    check_operating_points(chain, ev0.dc)
+    base = _figures(ev0, with_noise)
+    basis = cost_basis(cands)
+    rows = []
+    for st in chain.stages:
+        a, b = ev0.ac.branch_row[st.name]
+        y = ev0.ac.y_in[st.name][0, 0]
+        effects = [effect(chain, base, st.name, c, with_noise) for c in cands]
+        verdict, reason, best = judge(_loss_db(ev0, st.name), effects, basis)
+        rows.append(InterfaceAdvice(st.parent, st.name, _z(b[:, 0] / a[:, 0]), 1 / abs(y) if y != 0 else math.inf,
+                                    _loss_db(ev0, st.name), effects, verdict, reason, best))
+    return Advice(chain, chain.analysis.f_ref_hz, ev0.output, base.gain_db, basis, rows, dict(THRESHOLDS),
+                  base.snr_db is not None)
+
+
+# -- verdicts ------------------------------------------------------------------------
+
+def _cost_key(e: CandidateEffect, basis: str):
+    return ((e.price if basis == "price" else e.power_w) or 0.0, -(e.net_gain_db or 0.0))
+
+
+def _helps(e: CandidateEffect) -> bool:
+    return (e.recovered_db or 0.0) >= THRESHOLDS["helps_db"] or e.band_gain >= THRESHOLDS["band_gain"]
+
+
+def _describe(e: CandidateEffect, basis: str) -> str:
+    cost = f"price {e.price:g}" if basis == "price" else _watts(e.power_w)
+    return (f"{e.candidate} gives back {e.recovered_db:.2f} dB of loading loss for {cost} "
+            f"(net {_signed(e.net_gain_db)} end to end)")
+
+
+def _signed(x) -> str:
+    return f"{x:+.2f} dB".replace("-", "−")
+
+
+def _watts(w) -> str:
+    from .units import fmt
+    return fmt(w or 0.0, "W")
+
+
+def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str) -> tuple[str, str, str | None]:
+    """The verdict for one interface, its reason in words, and the recommended candidate."""
+    t = THRESHOLDS
+    lost = max(0.0, -loss_now_db)
+    usable = sorted((e for e in effects if e.usable), key=lambda e: _cost_key(e, basis))
+    if not effects:
+        return "not worth it", "no candidate buffers to try", None
+    if lost >= t["needed_loss_db"]:
+        ok = [e for e in usable if (e.net_gain_db or 0.0) >= t["needed_net_db"]]
+        if ok:
+            return "needed", f"loses {lost:.2f} dB now; " + _describe(ok[0], basis), ok[0].candidate
+    snr_ok = lambda e: e.snr_change_db is None or e.snr_change_db > -t["snr_loss_db"]  # noqa: E731
+    ok = [e for e in usable if snr_ok(e) and ((e.net_gain_db or 0.0) >= t["worth_net_db"]
+                                              or e.band_gain >= t["band_gain"])]
+    if ok:
+        e = ok[0]
+        why = _describe(e, basis)
+        if e.band_gain >= t["band_gain"] and (e.net_gain_db or 0.0) < t["worth_net_db"]:
+            why = f"{e.candidate} widens the band ({_band_text(e)}) for {_watts(e.power_w)}"
+        return "worth it", f"loses {lost:.2f} dB now; " + why, e.candidate
+    helpful = [e for e in effects if e.valid and _helps(e)]
+    if helpful and not any(e.usable for e in helpful) or (lost >= t["needed_loss_db"] and not usable):
+        return "would clip", f"loses {lost:.2f} dB now, but no candidate works here: " + _why_not(effects), None
+    best = max(usable, key=lambda e: e.net_gain_db, default=None)
+    if best is None:
+        return "not worth it", f"loses {lost:.2f} dB now; no candidate works here: " + _why_not(effects), None
+    return "not worth it", (f"loses only {lost:.2f} dB now; the best candidate ({best.candidate}) changes the "
+                            f"end-to-end gain by {_signed(best.net_gain_db)}"
+                            + (f" (its own gain is {_signed(best.buffer_gain_db)})"
+                               if best.buffer_gain_db is not None else "")), None
+
+
+def _why_not(effects: list[CandidateEffect]) -> str:
+    """The first bias failure and the first clipping among the candidates, in words."""
+    parts = []
+    bad = next((e for e in effects if not e.valid), None)
+    if bad is not None:
+        parts.append(f"{bad.candidate}: {bad.problem}")
+    clip = next((e for e in effects if e.valid and e.new_clips), None)
+    if clip is not None:
+        nodes = ", ".join(clip.new_clips)
+        parts.append(f"{clip.candidate} would clip at {nodes}")
+    return "; ".join(parts) or "none of them helps"
+
+
+def _band_text(e: CandidateEffect) -> str:
+    """The band edge that moves outward most, before → after."""
+    from .units import fmt
+    f = lambda x, side: f"{side} span" if x is None else fmt(x, "Hz")  # noqa: E731
+    hi = (e.f_high_after_hz or math.inf) / e.f_high_before_hz if e.f_high_before_hz else 1.0
+    lo = e.f_low_before_hz / (e.f_low_after_hz or 0.0) if e.f_low_before_hz and e.f_low_after_hz else \
+        (math.inf if e.f_low_before_hz else 1.0)
+    if hi >= lo:
+        return f"upper edge {f(e.f_high_before_hz, 'above')} → {f(e.f_high_after_hz, 'above')}"
+    return f"lower edge {f(e.f_low_before_hz, 'below')} → {f(e.f_low_after_hz, 'below')}"

@@ -1,0 +1,82 @@
+"""Insert candidate buffers into a chain, returning a new chain.
+
+An interface is named by the stage that reads it: interface ``Y`` is the
+connection from Y's parent node X into Y.  A buffer inserted there becomes a
+new stage (named ``buf_<Y>``, made unique) that reads X, and Y then reads the
+buffer.  Every other stage keeps its parent, so siblings at a fan-out node stay
+on X.  The input chain is never modified: stages are copied, and the engine
+(:func:`chainplan.budget.evaluate`) re-analyses the copy in full.
+"""
+from __future__ import annotations
+
+import copy
+import dataclasses
+
+from .errors import UsageError, nearest
+from .model import Chain, Stage
+
+
+def buffer_name(taken, reader: str) -> str:
+    """``buf_<reader>``, with ``_2``, ``_3``… appended if a stage already has that name."""
+    base = f"buf_{reader}"
+    name, k = base, 2
+    while name in taken:
+        name, k = f"{base}_{k}", k + 1
+    return name
+
+
+def buffer_names(chain: Chain) -> dict:
+    """The name a buffer gets at each interface, the same whichever interfaces are
+    buffered (so partial analyses and the final chain agree)."""
+    taken = {st.name for st in chain.all_stages}
+    names = {}
+    for st in chain.stages:
+        names[st.name] = buffer_name(taken, st.name)
+        taken.add(names[st.name])
+    return names
+
+
+def interfaces(chain: Chain) -> list[str]:
+    """Every interface, named by its reading stage, in chain order."""
+    return [st.name for st in chain.stages]
+
+
+def check_interface(chain: Chain, reader: str) -> None:
+    names = interfaces(chain)
+    if reader not in names:
+        raise UsageError(f"'{reader}' is not an interface of chain '{chain.name}' (an interface is named by the "
+                         "stage that reads it)" + nearest(reader, names))
+
+
+def insert_buffers(chain: Chain, placement: dict) -> Chain:
+    """A copy of ``chain`` with ``placement[reader]`` (a :class:`~chainplan.parts.Candidate`)
+    inserted in front of each named reader.  The new stage's name is :func:`buffer_name`."""
+    for reader in placement:
+        check_interface(chain, reader)
+    names = buffer_names(chain)
+    inserted = dict(chain.extra.get("inserted", {}))
+    stages: list[Stage] = []
+    for st in chain.stages:
+        st = _copy_stage(st)
+        cand = placement.get(st.name)
+        if cand is not None:
+            buf = _copy_stage(cand.stage)
+            buf.name = names[st.name]
+            buf.parent = st.parent
+            buf.line, buf.field_lines = None, {}
+            st.parent = buf.name
+            stages.append(buf)
+            inserted[buf.name] = (st.name, cand)
+        stages.append(st)
+    #: buffer stage name -> (the reader it serves, its Candidate)
+    extra = {**chain.extra, "inserted": inserted}
+    return dataclasses.replace(chain, source=_copy_stage(chain.source), stages=stages,
+                               analysis=dataclasses.replace(chain.analysis), extra=extra)
+
+
+def _copy_stage(st: Stage) -> Stage:
+    new = copy.copy(st)
+    new.params = dict(st.params)
+    new.field_lines = dict(st.field_lines)
+    new.raw = copy.deepcopy(st.raw)
+    return new

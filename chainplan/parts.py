@@ -1,0 +1,205 @@
+"""Candidate buffers: parts files a chain spec includes, and inline candidates.
+
+A parts file is a YAML mapping::
+
+    description: followers we stock          # optional
+    include: [more_parts.yaml]               # optional, relative to this file
+    candidates:
+      - name: nmos_50u                       # unique among all candidates
+        kind: source_follower                # any follower-type stage kind
+        kp: 120 µA/V²                        # ...its fields, exactly as in a chain
+        i_bias: 50 µA
+        cost:                                # optional
+          price: 0.35                        # a plain number in your currency
+          count: 2                           # parts it adds to the board (default 1)
+          power: 2 mW                        # overrides the computed supply power
+
+A chain spec names parts files under ``include:`` (a path or a list of paths,
+relative to the spec) and may list more candidates inline under
+``candidates:`` in the same form.  Each candidate's stage is built by the same
+validator as a chain's stages (:func:`chainplan.spec.build_stage`), with the
+including chain's rails, so errors read the same and name the parts file.
+
+Safety of includes: a path must exist, must stay inside the project of the
+file that includes it (its git work tree, or its folder outside git; symbolic
+links are resolved first), and the include graph must have no cycle.
+"""
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+
+from .errors import SpecError, nearest
+from .model import Stage
+from .stages import REGISTRY
+from .units import UnitError, parse_value
+from .yamlsrc import LDict, LList, load_file
+
+PARTS_KEYS = ("description", "include", "candidates")
+COST_KEYS = {"price": "1", "count": "1", "power": "W"}
+
+
+@dataclass
+class Candidate:
+    """One candidate buffer: a follower-type stage (not yet connected) and its cost."""
+
+    name: str
+    stage: Stage                 # parent is None; connected by chainplan.insert
+    path: str                    # file that defines it
+    line: int
+    price: float | None = None
+    count: int = 1
+    power_w: float | None = None     # fixed power, overriding the operating point's
+    tolerances: dict = field(default_factory=dict)
+
+    @property
+    def kind(self) -> str:
+        return self.stage.kind
+
+
+def candidates_of(chain) -> list[Candidate]:
+    """The chain's candidates (from ``include:`` and ``candidates:``), in the order given."""
+    return chain.extra.get("candidates", [])
+
+
+# -- SECTION_PARSERS entries ---------------------------------------------------
+
+def parse_include(chain, node, line, path) -> None:
+    """``include:`` of a chain spec: parts files whose candidates the chain may use."""
+    root = project_root(path)
+    for inc_path, inc_line in _include_items(node, line, path):
+        _load_parts_file(chain, _resolve(inc_path, path, inc_line, root), (_real(path),), inc_line, path)
+
+
+def parse_candidates(chain, node, line, path) -> None:
+    """``candidates:`` of a chain spec: candidate buffers written inline."""
+    _add_candidates(chain, node, line, path)
+
+
+def load_parts(chain, parts_path: str) -> None:
+    """Add the candidates of a parts file named outside any spec (the ``--parts`` option)."""
+    if not os.path.isfile(parts_path):
+        raise SpecError("no such parts file", parts_path)
+    _load_parts_file(chain, parts_path, (), None, None)
+
+
+# -- includes --------------------------------------------------------------------
+
+def project_root(path: str) -> str:
+    """The project a spec belongs to: the top of its git work tree, or its folder."""
+    folder = os.path.dirname(_real(path))
+    cur = folder
+    while True:
+        if os.path.exists(os.path.join(cur, ".git")):
+            return cur
+        up = os.path.dirname(cur)
+        if up == cur:
+            return folder
+        cur = up
+
+
+def _real(path: str) -> str:
+    return os.path.realpath(os.path.abspath(path))
+
+
+def _include_items(node, line, path):
+    if isinstance(node, str):
+        return [(node, line)]
+    if not isinstance(node, LList) or not all(isinstance(x, str) for x in node):
+        raise SpecError("'include' is a parts file path or a list of them, e.g. include: [parts/followers.yaml]",
+                        path, line, "include")
+    return [(p, node.line_of(i)) for i, p in enumerate(node)]
+
+
+def _resolve(inc: str, from_path: str, line: int, root: str) -> str:
+    """The included file's real path, checked to exist and to stay inside ``root``."""
+    target = _real(os.path.join(os.path.dirname(_real(from_path)), inc))
+    if os.path.commonpath([target, root]) != root:
+        raise SpecError(f"'{inc}' lies outside the project ({root}); parts files must be inside it",
+                        from_path, line, "include")
+    if not os.path.isfile(target):
+        raise SpecError(f"'{inc}' does not exist (looked for {target})", from_path, line, "include")
+    return target
+
+
+def _load_parts_file(chain, target: str, stack: tuple, inc_line, inc_from) -> None:
+    if target in stack:
+        cycle = " → ".join(os.path.basename(p) for p in (*stack[stack.index(target):], target))
+        raise SpecError(f"include cycle: {cycle}", inc_from, inc_line, "include")
+    doc = load_file(target)
+    if not isinstance(doc, LDict):
+        raise SpecError("a parts file is a mapping with 'candidates:' (and optionally 'include:')", target,
+                        getattr(doc, "line", 1))
+    for key in doc:
+        if key not in PARTS_KEYS:
+            raise SpecError(f"unknown key '{key}'" + nearest(key, PARTS_KEYS), target, doc.line_of(key), key)
+    if "include" in doc:
+        root = project_root(target)
+        for inc_path, line in _include_items(doc["include"], doc.line_of("include"), target):
+            _load_parts_file(chain, _resolve(inc_path, target, line, root), (*stack, target), line, target)
+    if "candidates" in doc:
+        _add_candidates(chain, doc["candidates"], doc.line_of("candidates"), target)
+
+
+# -- candidates ------------------------------------------------------------------
+
+def _add_candidates(chain, node, line, path) -> None:
+    from .spec import build_stage
+    if not isinstance(node, LList):
+        raise SpecError("'candidates' is a list of follower stages, each with name:, kind: and its fields",
+                        path, line, "candidates")
+    have = chain.extra.setdefault("candidates", [])
+    names = {c.name: c for c in have}
+    for i, item in enumerate(node):
+        if not isinstance(item, LDict):
+            raise SpecError("each candidate is a mapping with name:, kind: and its fields", path,
+                            node.line_of(i), f"candidates[{i}]")
+        kind = item.get("kind")
+        if isinstance(kind, str) and kind in REGISTRY and not REGISTRY[kind].follower_type:
+            followers = sorted(k for k, m in REGISTRY.items() if m.follower_type)
+            raise SpecError(f"'{kind}' is not a follower-type stage and cannot be a candidate buffer "
+                            f"(follower types: {', '.join(followers)})", path, item.line_of("kind"), "kind")
+        if "from" in item:
+            raise SpecError("a candidate is not connected to anything; the advisor decides where it goes "
+                            "(remove 'from:')", path, item.line_of("from"), "from")
+        body = LDict((k, v) for k, v in item.items() if k != "cost")
+        body.line, body.key_lines = item.line, {k: v for k, v in item.key_lines.items() if k != "cost"}
+        tolerances: dict = {}
+        st = build_stage(path, body, chain.rails, tolerances)
+        if st.name in names:
+            other = names[st.name]
+            raise SpecError(f"candidate name '{st.name}' is used twice (also {other.path}:{other.line})", path,
+                            item.line_of("name"), "name")
+        cand = Candidate(st.name, st, path, item.line, tolerances=tolerances)
+        if "cost" in item:
+            _cost(cand, item["cost"], item.line_of("cost"), path)
+        names[st.name] = cand
+        have.append(cand)
+
+
+def _cost(cand: Candidate, node, line, path) -> None:
+    where = f"{cand.name}.cost"
+    if not isinstance(node, LDict):
+        raise SpecError("'cost' is a mapping: price, count and/or power, e.g. 'price: 0.40'", path, line, where)
+    for key in node:
+        if key not in COST_KEYS:
+            raise SpecError(f"unknown cost '{key}'" + nearest(key, COST_KEYS), path, node.line_of(key),
+                            f"{where}.{key}")
+    for key, unit in COST_KEYS.items():
+        if key not in node:
+            continue
+        at = (path, node.line_of(key), f"{where}.{key}")
+        try:
+            value = parse_value(node[key], unit)
+        except UnitError as exc:
+            raise SpecError(str(exc), *at) from None
+        if not (value >= 0 and value != float("inf")):
+            raise SpecError(f"{key} must be zero or more and finite", *at)
+        if key == "count":
+            if value != int(value) or value < 1:
+                raise SpecError("count is a whole number of parts, at least 1", *at)
+            cand.count = int(value)
+        elif key == "price":
+            cand.price = value
+        else:
+            cand.power_w = value
