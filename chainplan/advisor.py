@@ -98,13 +98,12 @@ class CandidateEffect:
 
     @property
     def worst_headroom(self) -> NodeChange | None:
-        """The downstream node whose headroom falls most (or the buffer's own node if it is tighter)."""
-        rows = [h for h in self.headroom if h.change_v is not None and math.isfinite(h.change_v)]
-        own = [h for h in self.headroom if h.before_v is None and math.isfinite(h.after_v)]
-        worst = min(rows, key=lambda h: h.change_v, default=None)
-        if own and (worst is None or own[0].after_v < worst.after_v):
+        """The buffer's own node if it clips, else the existing node whose headroom falls most."""
+        own = [h for h in self.headroom if h.before_v is None and h.after_v < 0]
+        if own:
             return own[0]
-        return worst
+        rows = [h for h in self.headroom if h.change_v is not None and math.isfinite(h.change_v)]
+        return min(rows, key=lambda h: h.change_v, default=None)
 
     @property
     def snr_change_db(self) -> float | None:
@@ -247,8 +246,8 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
 def _problem_text(ev: Evaluation, buf: str) -> str:
     for name, op in ev.dc.ops.items():
         if op.problems:
-            who = "the buffer" if name == buf else f"'{name}'"
-            return f"{who}: {op.problems[0][1]}"
+            text = op.problems[0][1].split(";")[0]
+            return text if name == buf else f"'{name}': {text}"
     floating = [n for n, v in ev.dc.node_v.items() if not np.all(np.isfinite(v))]
     return f"node '{floating[0]}' has no DC level" if floating else "the bias cannot be solved"
 
@@ -266,7 +265,8 @@ def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
         a, b = ev0.ac.branch_row[st.name]
         y = ev0.ac.y_in[st.name][0, 0]
         effects = [effect(chain, base, st.name, c, with_noise) for c in cands]
-        verdict, reason, best = judge(_loss_db(ev0, st.name), effects, basis)
+        verdict, reason, best = judge(_loss_db(ev0, st.name), effects, basis,
+                                      float(np.ravel(ev0.dc.node_v[st.parent])[0]))
         rows.append(InterfaceAdvice(st.parent, st.name, _z(b[:, 0] / a[:, 0]), 1 / abs(y) if y != 0 else math.inf,
                                     _loss_db(ev0, st.name), effects, verdict, reason, best))
     return Advice(chain, chain.analysis.f_ref_hz, ev0.output, base.gain_db, basis, rows, dict(THRESHOLDS),
@@ -293,12 +293,18 @@ def _signed(x) -> str:
     return f"{x:+.2f} dB".replace("-", "−")
 
 
+def _volts(v) -> str:
+    from .units import fmt
+    return fmt(v, "V")
+
+
 def _watts(w) -> str:
     from .units import fmt
     return fmt(w or 0.0, "W")
 
 
-def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str) -> tuple[str, str, str | None]:
+def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str,
+          node_dc_v: float | None = None) -> tuple[str, str, str | None]:
     """The verdict for one interface, its reason in words, and the recommended candidate."""
     t = THRESHOLDS
     lost = max(0.0, -loss_now_db)
@@ -320,7 +326,9 @@ def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str) -> tup
         return "worth it", f"loses {lost:.2f} dB now; " + why, e.candidate
     helpful = [e for e in effects if e.valid and _helps(e)]
     if helpful and not any(e.usable for e in helpful) or (lost >= t["needed_loss_db"] and not usable):
-        return "would clip", f"loses {lost:.2f} dB now, but no candidate works here: " + _why_not(effects), None
+        return "would clip", (f"loses {lost:.2f} dB now, but no candidate works here"
+                               + (f" (the node sits at {_volts(node_dc_v)} DC)" if node_dc_v is not None else "")
+                               + ": " + _why_not(effects)), None
     best = max(usable, key=lambda e: e.net_gain_db, default=None)
     if best is None:
         return "not worth it", f"loses {lost:.2f} dB now; no candidate works here: " + _why_not(effects), None
@@ -335,7 +343,7 @@ def _why_not(effects: list[CandidateEffect]) -> str:
     parts = []
     bad = next((e for e in effects if not e.valid), None)
     if bad is not None:
-        parts.append(f"{bad.candidate}: {bad.problem}")
+        parts.append(f"{bad.candidate} cannot be biased ({bad.problem})")
     clip = next((e for e in effects if e.valid and e.new_clips), None)
     if clip is not None:
         nodes = ", ".join(clip.new_clips)

@@ -19,6 +19,7 @@ COMMANDS = {
     "compare": ("chainplan.commands.compare", "what a change did to the budget: two specs, or one at two git revisions"),
     "netlist": ("chainplan.commands.netlist", "export a chain as a SPICE netlist (op, AC and noise analyses)"),
     "schema": ("chainplan.commands.schema", "print the JSON Schema of chain specs (for editors)"),
+    "buffers": ("chainplan.commands.buffers", "where a buffer pays off, what it costs, and the cheapest placement"),
     "plot": ("chainplan.commands.plot", "draw the level diagram, gain, noise and Monte Carlo figures (PNG, SVG)"),
     "report": ("chainplan.commands.report", "write a self-contained HTML review report of a chain"),
 }

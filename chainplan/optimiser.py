@@ -112,17 +112,20 @@ class Targets:
     min_f_high_hz: float | None = None
     max_f_low_hz: float | None = None
     max_power_w: float | None = None                     # all follower-type stages, the buffers included
-    origin: dict = field(default_factory=dict)           # kind -> where the target came from
+    origin: dict = field(default_factory=dict)           # kind -> [where the target came from]
     skipped: list = field(default_factory=list)          # spec requirements the optimiser does not target
 
-    KINDS = ("gain", "headroom", "f_high", "f_low", "power")
+    KINDS = ("gain", "max_gain", "headroom", "f_high", "f_low", "power")
+
+    def add_origin(self, kind: str, where: str) -> None:
+        self.origin.setdefault(kind, []).append(where)
 
     def headroom_for(self, node: str) -> float | None:
         vals = [v for v in (self.min_headroom_v, self.node_headroom_v.get(node)) if v is not None]
         return max(vals) if vals else None
 
     def kinds(self) -> list[str]:
-        have = {"gain": bool(self.min_gain_db or self.max_gain_db),
+        have = {"gain": bool(self.min_gain_db), "max_gain": bool(self.max_gain_db),
                 "headroom": self.min_headroom_v is not None or bool(self.node_headroom_v),
                 "f_high": self.min_f_high_hz is not None, "f_low": self.max_f_low_hz is not None,
                 "power": self.max_power_w is not None}
@@ -132,7 +135,9 @@ class Targets:
         """A copy keeping only the given kinds."""
         t = Targets(origin=self.origin)
         if "gain" in kinds:
-            t.min_gain_db, t.max_gain_db = dict(self.min_gain_db), dict(self.max_gain_db)
+            t.min_gain_db = dict(self.min_gain_db)
+        if "max_gain" in kinds:
+            t.max_gain_db = dict(self.max_gain_db)
         if "headroom" in kinds:
             t.min_headroom_v, t.node_headroom_v = self.min_headroom_v, dict(self.node_headroom_v)
         if "f_high" in kinds:
@@ -152,26 +157,26 @@ def targets_from_requirements(chain: Chain, targets: Targets | None = None) -> T
         f = r.at_hz if getattr(r, "at_hz", None) is not None else chain.analysis.f_ref_hz
         if key == "min_gain":
             t.min_gain_db[f] = max(lim, t.min_gain_db.get(f, -math.inf))
-            t.origin.setdefault("gain", src)
+            t.add_origin("gain", src)
         elif key == "max_gain":
             t.max_gain_db[f] = min(lim, t.max_gain_db.get(f, math.inf))
-            t.origin.setdefault("gain", src)
+            t.add_origin("max_gain", src)
         elif key == "min_headroom":
             if r.targets:
                 for n in r.targets:
                     t.node_headroom_v[n] = max(lim, t.node_headroom_v.get(n, -math.inf))
             else:
                 t.min_headroom_v = lim if t.min_headroom_v is None else max(lim, t.min_headroom_v)
-            t.origin.setdefault("headroom", src)
+            t.add_origin("headroom", src)
         elif key == "min_f_high":
             t.min_f_high_hz = lim if t.min_f_high_hz is None else max(lim, t.min_f_high_hz)
-            t.origin.setdefault("f_high", src)
+            t.add_origin("f_high", src)
         elif key == "max_f_low":
             t.max_f_low_hz = lim if t.max_f_low_hz is None else min(lim, t.max_f_low_hz)
-            t.origin.setdefault("f_low", src)
+            t.add_origin("f_low", src)
         elif key == "max_buffer_power" and not r.targets:
             t.max_power_w = lim if t.max_power_w is None else min(lim, t.max_power_w)
-            t.origin.setdefault("power", src)
+            t.add_origin("power", src)
         else:
             t.skipped.append(r.name)
     return t
@@ -813,10 +818,10 @@ def measure(chain: Chain, targets: Targets, buffered: Chain | None = None) -> Me
             power += cand.power_w if cand is not None and cand.power_w is not None else \
                 float(np.ravel(ev.dc.ops[st.name].values.get("power_w", 0.0))[0])
     margins = {}
-    if targets.min_gain_db or targets.max_gain_db:
-        m = [gains[f] - db for f, db in targets.min_gain_db.items()] + \
-            [db - gains[f] for f, db in targets.max_gain_db.items()]
-        margins["gain"] = min(m)
+    if targets.min_gain_db:
+        margins["gain"] = min(gains[f] - db for f, db in targets.min_gain_db.items())
+    if targets.max_gain_db:
+        margins["max_gain"] = min(db - gains[f] for f, db in targets.max_gain_db.items())
     marg = [(r - h, n) for n, (r, h) in rooms.items() if h is not None]
     if marg:
         margins["headroom"] = min(marg)[0]
@@ -906,10 +911,6 @@ def _plan(chain, search, label, targets, before, stats) -> Plan:
 
 # -- when nothing works: what cannot be met, and the best reachable ---------------------------
 
-_WORDS = {"gain": "end-to-end gain", "headroom": "headroom", "f_high": "upper band edge",
-          "f_low": "lower band edge", "power": "follower power"}
-
-
 def _feasible(search: Search, targets: Targets):
     run = _Run(search, targets)
     run.forward()
@@ -936,7 +937,7 @@ def _best_reachable(search: Search, targets: Targets, kind: str, others: list, w
     base = targets.only(others)
     picks = _feasible(search, base)
     if picks is None:
-        return Shortfall(kind, _target_text(targets, kind), "no placement can be biased", None, with_others)
+        return Shortfall(kind, target_text(targets, kind), "no placement can be biased", None, with_others)
     start = measure(chain, targets.only([kind]), insert_buffers(chain, {r: search.cands[o]
                                                                         for r, o in picks.items()}))
     lo_v, hi_v = _knob(targets, kind, start)        # knob values: reachable (lo_v) and target (hi_v)
@@ -949,14 +950,14 @@ def _best_reachable(search: Search, targets: Targets, kind: str, others: list, w
             lo_v = mid
         else:
             hi_v = mid
-    return Shortfall(kind, _target_text(targets, kind), _knob_text(targets, kind, lo_v), lo_v, with_others)
+    return Shortfall(kind, target_text(targets, kind), _knob_text(targets, kind, lo_v), lo_v, with_others)
 
 
 def _knob(targets: Targets, kind: str, m: Measured):
-    """(knob value the measured placement reaches, the target's knob value 0 or its own), on a
-    scale where larger is harder: gain and headroom as a shift of the targets, band edges as
-    ±log f, power as −P."""
-    if kind in ("gain", "headroom"):
+    """(knob value the measured placement reaches, the target's knob value), on a scale where
+    larger is harder: gain targets and headroom as a shift of the targets, band edges as ±log f,
+    power as −P."""
+    if kind in ("gain", "max_gain", "headroom"):
         return min(m.margins[kind], 0.0), 0.0
     if kind == "f_high":
         b = math.log(targets.min_f_high_hz)
@@ -968,7 +969,8 @@ def _knob(targets: Targets, kind: str, m: Measured):
 
 
 def _close(kind, a, b) -> bool:
-    tol = {"gain": 0.005, "headroom": 1e-4, "f_high": 0.002, "f_low": 0.002, "power": 1e-6}[kind]
+    tol = {"gain": 0.005, "max_gain": 0.005, "headroom": 1e-4, "f_high": 0.002, "f_low": 0.002,
+           "power": 1e-6}[kind]
     if kind == "power":
         tol = max(tol * abs(b), 1e-9)
     return abs(b - a) <= tol
@@ -984,6 +986,7 @@ def _with_knob(targets: Targets, kind: str, x: float, base: Targets) -> Targets:
                             node_headroom_v=dict(base.node_headroom_v))
     if kind == "gain":
         t.min_gain_db = {f: db + x for f, db in targets.min_gain_db.items()}
+    elif kind == "max_gain":
         t.max_gain_db = {f: db - x for f, db in targets.max_gain_db.items()}
     elif kind == "headroom":
         t.min_headroom_v = None if targets.min_headroom_v is None else targets.min_headroom_v + x
@@ -997,11 +1000,11 @@ def _with_knob(targets: Targets, kind: str, x: float, base: Targets) -> Targets:
     return t
 
 
-def _target_text(t: Targets, kind: str) -> str:
+def target_text(t: Targets, kind: str) -> str:
     if kind == "gain":
-        parts = [f"≥ {db:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items()]
-        parts += [f"≤ {db:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items()]
-        return "gain " + ", ".join(parts)
+        return "gain " + ", ".join(f"≥ {db:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items())
+    if kind == "max_gain":
+        return "gain " + ", ".join(f"≤ {db:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items())
     if kind == "headroom":
         parts = ([f"≥ {fmt(t.min_headroom_v, 'V')} at every node"] if t.min_headroom_v is not None else []) + \
             [f"≥ {fmt(h, 'V')} at {n}" for n, h in t.node_headroom_v.items()]
@@ -1015,9 +1018,9 @@ def _target_text(t: Targets, kind: str) -> str:
 
 def _knob_text(t: Targets, kind: str, x: float) -> str:
     if kind == "gain":
-        parts = [f"{db + x:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items()]
-        parts += [f"{db - x:.2f} dB (max) at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items()]
-        return ", ".join(parts)
+        return ", ".join(f"{db + x:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items())
+    if kind == "max_gain":
+        return ", ".join(f"{db - x:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items())
     if kind == "headroom":
         base = t.min_headroom_v if t.min_headroom_v is not None else min(t.node_headroom_v.values())
         return f"{fmt(base + x, 'V')} of headroom"

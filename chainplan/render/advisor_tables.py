@@ -1,0 +1,249 @@
+"""Tables and JSON of the buffer advice and of an optimised placement.
+
+They only read the result objects of chainplan.advisor and chainplan.optimiser.
+Markers survive without colour: the verdict is a word, a clipping node is
+written 'CLIPS', a candidate that cannot be biased says 'no bias'."""
+from __future__ import annotations
+
+import math
+
+from ..advisor import Advice, CandidateEffect
+from ..optimiser import Measured, Plan, Shortfall, target_text
+from ..units import fmt
+from .console import db, eng, table_box
+from .json_out import clean
+
+VERDICT_STYLE = {"needed": "bold green", "worth it": "green", "would clip": "bold red", "not worth it": None}
+
+
+# -- advice ------------------------------------------------------------------------------
+
+def advice_tables(a: Advice, console, only: str | None = None) -> None:
+    from rich.table import Table
+    from rich.text import Text
+    bx = table_box(console)
+    c = a.chain
+    console.print(Text(c.name, style="bold"), Text(f"  ({c.path})" if c.path else ""))
+    cands = ", ".join(f"{e.candidate} ({e.kind})" for e in (a.interfaces[0].candidates if a.interfaces else []))
+    console.print(f"candidates: {cands or 'none'}; ranked by {a.cost_basis}; at {eng(a.f_ref_hz, 'Hz')}, "
+                  f"end-to-end gain now {db(a.gain_db)} to '{a.output}'")
+
+    t = Table(title="Interfaces: loading loss now and the verdict", box=bx, title_justify="left")
+    for col in ("from", "to", "Z source", "Z load", "loss now", "verdict", "pick"):
+        t.add_column(col, justify="right" if col in ("Z source", "Z load", "loss now") else "left")
+    for i in a.interfaces:
+        t.add_row(i.source, i.reader, eng(i.z_source_ohm, "Ω"), eng(i.z_load_ohm, "Ω"), db(i.loss_now_db, 2),
+                  i.verdict, i.best or "—", style=VERDICT_STYLE[i.verdict])
+    console.print(t)
+    for i in a.interfaces:
+        console.print(Text(f"{i.source} → {i.reader}: {i.verdict}. ", style=VERDICT_STYLE[i.verdict] or ""),
+                      Text(i.reason[0].upper() + i.reason[1:] + "."))
+
+    console.print("Each candidate inserted in turn, the whole chain re-analysed.  back: loading loss given "
+                  "back (dB); own: the buffer's open-circuit gain (dB); room Δ: the largest headroom drop, at "
+                  "node; f high: upper −3 dB edge after; net: end-to-end gain change (dB).")
+    width = max((len(e.candidate) for i in a.interfaces for e in i.candidates), default=9)
+    for i in a.interfaces:
+        if only is not None and i.reader != only:
+            continue
+        t = Table(title=f"{i.source} → {i.reader} (loading loss {db(i.loss_now_db, 2)}): each candidate inserted",
+                  box=_compact_box(), title_justify="left", show_edge=False, pad_edge=False,
+                  padding=(0, 1, 0, 0))
+        cols = ["candidate", "back", "own", "DC shift", "room Δ", "node", "f high",
+                *(["SNR Δ"] if a.noise else []), "power", "net"]
+        for col in cols:
+            t.add_column(col, justify="left" if col in ("candidate", "node") else "right",
+                         no_wrap=col != "node", min_width=width if col == "candidate" else None)
+        notes = []
+        for e in i.candidates:
+            t.add_row(*_effect_row(e, a.noise), style="bold red" if e.valid and e.new_clips else None)
+            if not e.valid:
+                notes.append(f"  {e.candidate}: no bias here: {e.problem}")
+        console.print(t)
+        for n in notes:
+            console.print(n)
+
+
+def _compact_box():
+    """Plain ASCII: a rule under the header, no vertical lines (reads the same when piped)."""
+    from rich.box import Box
+    return Box("    \n    \n -- \n    \n    \n -- \n    \n    \n", ascii=True)
+
+
+def _effect_row(e: CandidateEffect, noise: bool) -> list[str]:
+    dash = "—"
+    if not e.valid:
+        return [e.candidate, "no bias", *([dash] * (8 if noise else 7))]
+    w = e.worst_headroom
+    room, node = dash, dash
+    if w is not None:
+        room = _signed_v(w.change_v) if w.before_v is not None else eng(w.after_v, "V")
+        node = w.node + (" CLIPS" if w.after_v < 0 else "")
+    edge = "above span" if e.f_high_after_hz is None else eng(e.f_high_after_hz, "Hz")
+    snr = [_num(e.snr_change_db)] if noise else []
+    return [e.candidate, _num(e.recovered_db), _num(e.buffer_gain_db), _signed_v(e.dc_shift_v), room, node, edge,
+            *snr, eng(e.power_w, "W"), _num(e.net_gain_db)]
+
+
+def _num(x, digits: int = 2) -> str:
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "—"
+    return f"{x:+.{digits}f}".replace("-", "−")
+
+
+def _signed_v(v) -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return "—"
+    return ("+" if v >= 0 else "−") + fmt(abs(v), "V")
+
+
+def advice_dict(a: Advice) -> dict:
+    return clean({
+        "chain": a.chain.name, "file": a.chain.path, "f_ref_hz": a.f_ref_hz, "output": a.output,
+        "gain_db": a.gain_db, "cost_basis": a.cost_basis, "thresholds": a.thresholds,
+        "interfaces": [{
+            "from": i.source, "to": i.reader, "z_source_ohm": i.z_source_ohm, "z_load_ohm": i.z_load_ohm,
+            "loading_loss_db": i.loss_now_db, "verdict": i.verdict, "reason": i.reason, "pick": i.best,
+            "candidates": [_effect_dict(e) for e in i.candidates],
+        } for i in a.interfaces],
+    })
+
+
+def _effect_dict(e: CandidateEffect) -> dict:
+    w = e.worst_headroom
+    return {
+        "candidate": e.candidate, "kind": e.kind, "buffer": e.buffer, "valid": e.valid, "problem": e.problem,
+        "loading_loss_after_db": e.loss_after_db, "recovered_db": e.recovered_db,
+        "buffer_gain_db": e.buffer_gain_db, "dc_shift_v": e.dc_shift_v, "net_gain_db": e.net_gain_db,
+        "f_low_before_hz": e.f_low_before_hz, "f_low_after_hz": e.f_low_after_hz,
+        "f_high_before_hz": e.f_high_before_hz, "f_high_after_hz": e.f_high_after_hz,
+        "snr_before_db": e.snr_before_db, "snr_after_db": e.snr_after_db, "snr_change_db": e.snr_change_db,
+        "power_w": e.power_w, "price": e.price, "count": e.count, "new_clips": e.new_clips,
+        "worst_headroom": None if w is None else {"node": w.node, "change_v": w.change_v, "after_v": w.after_v},
+        "headroom": [{"node": h.node, "before_v": h.before_v, "after_v": h.after_v, "change_v": h.change_v}
+                     for h in e.headroom],
+    }
+
+
+# -- placement ------------------------------------------------------------------------------
+
+def plan_tables(p: Plan, console, requirements=None) -> None:
+    from rich.table import Table
+    from rich.text import Text
+    bx = table_box(console)
+    c = p.chain
+    console.print(Text(c.name, style="bold"), Text(f"  ({c.path})" if c.path else ""))
+    console.print("targets: " + "; ".join(target_text(p.targets, k) + _origin(p, k) for k in p.targets.kinds()))
+    if p.feasible:
+        t = Table(title=f"Cheapest placement by {p.cost_basis}: {_cost_text(p)}, "
+                        f"{p.n_buffers} buffer{'s' if p.n_buffers != 1 else ''}", box=bx, title_justify="left")
+        for col in ("interface", "buffer", "candidate", "power", "price", "parts"):
+            t.add_column(col, justify="right" if col in ("power", "price", "parts") else "left")
+        for pl in p.placements:
+            t.add_row(f"{pl.source} → {pl.reader}", pl.buffer, pl.candidate, eng(pl.power_w, "W"),
+                      "—" if pl.price is None else f"{pl.price:g}", str(pl.count))
+        if not p.placements:
+            t.add_row("(none: the chain meets the targets as it is)", "", "", "", "", "")
+        console.print(t)
+        t = Table(title="Before and after (full analyses)", box=bx, title_justify="left")
+        for col in ("figure", "before", "after", "target"):
+            t.add_column(col, justify="left" if col == "figure" else "right")
+        for row in _figure_rows(p):
+            t.add_row(*row)
+        console.print(t)
+    else:
+        console.print(Text("No placement of the candidates meets the targets.", style="bold red"))
+        t = Table(title="What cannot be met", box=bx, title_justify="left")
+        for col in ("target", "best reachable", "while"):
+            t.add_column(col)
+        for s in p.shortfalls:
+            t.add_row(s.target, s.best, "the other targets are met" if s.with_others else "on its own")
+        console.print(t)
+    if requirements:
+        t = Table(title="Spec requirements on the result", box=bx, title_justify="left")
+        for col in ("requirement", "value", "limit", "status"):
+            t.add_column(col, justify="left" if col in ("requirement", "status") else "right")
+        from ..requirements import show
+        for r in requirements:
+            ok = bool(r.passed[0])
+            t.add_row(r.name, show(float(r.value[0]), r.unit), show(r.limit, r.unit), "met" if ok else "FAILS",
+                      style=None if ok else "bold red")
+        console.print(t)
+    if p.targets.skipped:
+        console.print("not targeted by the optimiser" + (" (checked on the result above)" if requirements else "")
+                      + ": " + ", ".join(p.targets.skipped))
+    st = p.stats
+    console.print(f"search: {st.get('states', 0)} states, {st.get('analyses', 0)} region analyses, "
+                  f"{st.get('seconds', 0.0):.2f} s")
+
+
+def _origin(p: Plan, kind: str) -> str:
+    o = p.targets.origin.get(kind)
+    return f" ({', '.join(o)})" if o else ""
+
+
+def _cost_text(p: Plan) -> str:
+    if p.cost_basis == "power":
+        return eng(p.cost, "W")
+    if p.cost_basis == "price":
+        return f"price {p.cost:g}"
+    return f"{int(p.cost)} parts"
+
+
+def _figure_rows(p: Plan) -> list[list[str]]:
+    b, a, t = p.before, p.measured, p.targets
+    rows = []
+    for f in sorted(set(b.gain_db) | set(t.min_gain_db) | set(t.max_gain_db)):
+        goal = ", ".join(([f"≥ {db(t.min_gain_db[f])}"] if f in t.min_gain_db else []) +
+                         ([f"≤ {db(t.max_gain_db[f])}"] if f in t.max_gain_db else [])) or "—"
+        rows.append([f"gain at {eng(f, 'Hz')}", db(b.gain_db.get(f)), db(a.gain_db.get(f)), goal])
+    rows.append(["tightest headroom", _room(b), _room(a),
+                 "—" if t.min_headroom_v is None else f"≥ {eng(t.min_headroom_v, 'V')}"])
+    rows.append(["lower band edge", _edge(b.f_low_hz, "below"), _edge(a.f_low_hz, "below"),
+                 "—" if t.max_f_low_hz is None else f"≤ {eng(t.max_f_low_hz, 'Hz')}"])
+    rows.append(["upper band edge", _edge(b.f_high_hz, "above"), _edge(a.f_high_hz, "above"),
+                 "—" if t.min_f_high_hz is None else f"≥ {eng(t.min_f_high_hz, 'Hz')}"])
+    rows.append(["follower power", eng(b.power_w, "W"), eng(a.power_w, "W"),
+                 "—" if t.max_power_w is None else f"≤ {eng(t.max_power_w, 'W')}"])
+    return rows
+
+
+def _room(m: Measured) -> str:
+    if m.min_headroom_v is None:
+        return "—"
+    return f"{eng(m.min_headroom_v, 'V')} ({m.min_headroom_node})"
+
+
+def _edge(f, side) -> str:
+    return f"{side} span" if f is None else eng(f, "Hz")
+
+
+def plan_dict(p: Plan, requirements=None) -> dict:
+    from ..requirements import result_dict
+    t = p.targets
+    return clean({
+        "chain": p.chain.name, "file": p.chain.path, "feasible": p.feasible, "cost_basis": p.cost_basis,
+        "cost": p.cost, "n_buffers": p.n_buffers,
+        "targets": {"min_gain_db": [{"f_hz": f, "db": v} for f, v in t.min_gain_db.items()],
+                    "max_gain_db": [{"f_hz": f, "db": v} for f, v in t.max_gain_db.items()],
+                    "min_headroom_v": t.min_headroom_v, "node_headroom_v": t.node_headroom_v,
+                    "min_f_high_hz": t.min_f_high_hz, "max_f_low_hz": t.max_f_low_hz,
+                    "max_power_w": t.max_power_w, "from": t.origin, "not_targeted": t.skipped},
+        "placements": [{"from": pl.source, "to": pl.reader, "buffer": pl.buffer, "candidate": pl.candidate,
+                        "power_w": pl.power_w, "price": pl.price, "count": pl.count} for pl in p.placements],
+        "before": _measured_dict(p.before),
+        "after": None if p.measured is None else _measured_dict(p.measured),
+        "shortfalls": [_shortfall_dict(s) for s in p.shortfalls],
+        "requirements": [result_dict(r) for r in (requirements or [])],
+        "search": p.stats,
+    })
+
+
+def _measured_dict(m: Measured) -> dict:
+    return {"valid": m.valid, "gain_db": [{"f_hz": f, "db": v} for f, v in m.gain_db.items()],
+            "f_low_hz": m.f_low_hz, "f_high_hz": m.f_high_hz, "min_headroom_v": m.min_headroom_v,
+            "min_headroom_node": m.min_headroom_node, "follower_power_w": m.power_w, "margins": m.margins}
+
+
+def _shortfall_dict(s: Shortfall) -> dict:
+    return {"kind": s.kind, "target": s.target, "best_reachable": s.best, "with_other_targets_met": s.with_others}

@@ -1,0 +1,129 @@
+"""Write a chain with chosen buffers inserted, as a spec the loader reads back.
+
+The original text is kept as it is — comments, order, formatting — and each
+buffer's stage block is inserted textually in the ``stages:`` list right
+before the stage it feeds (using the line numbers the loader recorded).
+The block carries the candidate's fields as written in its parts file, under
+the buffer's stage name.  Where the spec connects stages with ``from:``, the
+buffer gets ``from: <node>`` and the stage it feeds is re-pointed to the
+buffer; where it relies on list order, inserting right before the reader is
+enough.  ``include:`` paths are rewritten relative to the new file when it
+lives in another folder.  The result is parsed again before anything is
+written, and written through a temporary file in the same folder and
+``os.replace``, so a failure leaves no partial file.
+"""
+from __future__ import annotations
+
+import os
+import re
+import tempfile
+
+import yaml
+
+from .errors import SpecError, UsageError
+from .insert import buffer_names
+from .model import Chain
+from .parts import Candidate
+
+FROM_RE = re.compile(r"^(\s*(?:-\s+)?from:\s*)([^#\s][^#]*?)(\s*(?:#.*)?)$")
+ITEM_RE = re.compile(r"^(\s*)-\s+(\S)")
+
+
+def buffered_text(chain: Chain, placement: dict, text: str, new_path: str | None = None) -> str:
+    """The spec text with ``placement`` (reader -> Candidate) inserted."""
+    lines = text.splitlines(keepends=True)
+    names = buffer_names(chain)
+    explicit = any("from" in st.field_lines for st in chain.stages)
+    edits = sorted(placement.items(), key=lambda kv: chain.stage(kv[0]).line, reverse=True)
+    for reader, cand in edits:
+        st = chain.stage(reader)
+        i = st.line - 1
+        m = ITEM_RE.match(lines[i])
+        if m is None or lines[i].lstrip().startswith("- {"):
+            raise UsageError(f"cannot rewrite stage '{reader}' (line {st.line}): write it as a block mapping "
+                             "('- name: …' with one field per line) to insert a buffer before it")
+        indent = m.group(1)
+        if "from" in st.field_lines:
+            j = st.field_lines["from"] - 1
+            fm = FROM_RE.match(lines[j].rstrip("\n"))
+            if fm is None:
+                raise UsageError(f"cannot rewrite the 'from:' of stage '{reader}' (line {j + 1})")
+            lines[j] = fm.group(1) + names[reader] + fm.group(3) + "\n"
+        block = _block(cand, names[reader], st.parent if explicit else None, indent)
+        lines[i:i] = block
+    out = "".join(lines)
+    if new_path is not None and chain.path is not None:
+        out = _move_includes(out, chain.path, new_path)
+    return out
+
+
+def _block(cand: Candidate, name: str, parent: str | None, indent: str) -> list[str]:
+    """The candidate's stage block as written in its parts file, named ``name``."""
+    st = cand.stage
+    pad = indent + "  "
+    out = [f"{indent}- name: {name}\n", f"{pad}kind: {st.kind}\n"]
+    if parent is not None:
+        out.append(f"{pad}from: {parent}\n")
+    rails = st.raw.get("__rails__", {})
+    keys = sorted((k for k in st.raw if k != "__rails__"), key=lambda k: st.field_lines.get(k, 0))
+    for key in keys:
+        value = rails.get(key, st.raw[key])
+        out.append(f"{pad}{key}: {_scalar(value)}\n")
+    out.append(f"{pad}# buffer '{cand.name}' from {os.path.basename(cand.path)}, placed by chainplan buffers\n")
+    return out
+
+
+def _scalar(value) -> str:
+    """A YAML scalar as it would be written by hand (quoted only where YAML needs it)."""
+    text = yaml.safe_dump(value, allow_unicode=True, width=1000).strip()
+    return text.removesuffix("...").strip()
+
+
+def _move_includes(text: str, old_path: str, new_path: str) -> str:
+    """Rewrite relative include paths so they still name the same files from the new folder."""
+    old_dir = os.path.dirname(os.path.abspath(old_path))
+    new_dir = os.path.dirname(os.path.abspath(new_path))
+    if old_dir == new_dir:
+        return text
+    doc = yaml.safe_load(text)
+    inc = doc.get("include") if isinstance(doc, dict) else None
+    if not inc:
+        return text
+    for p in ([inc] if isinstance(inc, str) else inc):
+        moved = os.path.relpath(os.path.join(old_dir, p), new_dir)
+        text = re.sub(r"(?<![\w./-])" + re.escape(p) + r"(?![\w./-])", moved.replace("\\", "/"), text, count=1)
+    return text
+
+
+def write_buffered(chain: Chain, placement: dict, out_path: str) -> str:
+    """Write the buffered spec to ``out_path`` atomically; returns the text written."""
+    from .spec import load_chain_text
+    if chain.path is None or not os.path.isfile(chain.path):
+        raise UsageError("the chain was not read from a file; there is no text to rewrite")
+    with open(chain.path, encoding="utf-8") as fh:
+        text = fh.read()
+    new = buffered_text(chain, placement, text, out_path)
+    folder = os.path.dirname(os.path.abspath(out_path))
+    if not os.path.isdir(folder):
+        raise UsageError(f"cannot write {out_path}: folder {folder} does not exist")
+    try:
+        back = load_chain_text(new, os.path.abspath(out_path))
+    except SpecError as exc:
+        raise UsageError(f"the buffered spec would not read back at {out_path} ({exc}); "
+                         "write it inside the project, e.g. next to the original") from None
+    missing = [n for n in (buffer_names(chain)[r] for r in placement) if n not in [s.name for s in back.stages]]
+    if missing:
+        raise UsageError(f"internal check failed: buffers {', '.join(missing)} missing from the written spec")
+    tmp = None
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=".chainplan-", suffix=".yaml", dir=folder)
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(new)
+        os.replace(tmp, out_path)
+        tmp = None
+    except OSError as exc:
+        raise UsageError(f"cannot write {out_path}: {exc.strerror or exc}") from None
+    finally:
+        if tmp is not None and os.path.exists(tmp):
+            os.unlink(tmp)
+    return new
