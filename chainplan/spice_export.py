@@ -41,12 +41,14 @@ from __future__ import annotations
 
 import math
 import re
+import textwrap
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .errors import SpecError
 from .model import Chain, Stage
+from .safety import safety_notice
 from .stages.base import K_BOLTZMANN
 from .stages.passive import Passive
 
@@ -448,7 +450,8 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
               f"* that the budget reports.  The signal itself is {amp} V peak (the SIN term).",
               "* Noise: resistors, transistors, data-sheet en/in and bias-source noise (white parts);",
               "* an ADC's quantisation and own noise are not part of a SPICE noise analysis.",
-              "* chainplan node -> SPICE node: " + ", ".join(f"{k} -> {v}" for k, v in b.nodes.items())]
+              "* chainplan node -> SPICE node: " + ", ".join(f"{k} -> {v}" for k, v in b.nodes.items()),
+              *(f"* {ln}" for ln in textwrap.wrap(_ascii(safety_notice(chain.hazards) or ""), 90))]
     rails = [ln for node, (v, rail) in b.rail_lines.items() for ln in
              ((f"* rail '{rail}'",) if rail else ()) + (f"V{node} {node} 0 DC {_num(v)}",)]
     circuit = ["* --- supplies and bias voltages", *rails, f"* --- {src.name}: sensor",

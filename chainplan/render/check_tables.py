@@ -3,16 +3,16 @@ from __future__ import annotations
 
 from ..requirements import result_dict, show, where_of
 from .console import table_box
+from .tables import chain_heading
 
 
 def check_tables(checked: list, console) -> None:
     """``checked``: (chain, [ReqResult]) pairs; one table per spec, then a tally."""
     from rich.table import Table
-    from rich.text import Text
     bx = table_box(console)
     n_req = n_fail = 0
     for chain, results in checked:
-        console.print(Text(chain.name, style="bold"), Text(f"  ({chain.path})" if chain.path else ""))
+        chain_heading(chain, console)
         if not results:
             console.print("  no requirements in this spec (add a 'requirements:' block)")
             continue

@@ -5,6 +5,7 @@ import math
 
 from ..diffing import Diff
 from ..requirements import show
+from ..safety import safety_notice
 from .console import table_box
 
 MARK = {"worse": "worse", "clips now": "CLIPS NOW", "fails now": "FAILS NOW"}
@@ -62,6 +63,9 @@ def compare_tables(d: Diff, console) -> None:
     from rich.text import Text
     bx = table_box(console)
     console.print(Text(f"{d.old.label}  →  {d.new.label}", style="bold"))
+    note = safety_notice(sorted(set(d.old.chain.hazards) | set(d.new.chain.hazards)))
+    if note:
+        console.print(Text(note, style="bold red"))
     console.print(headline(d), style="bold red" if d.regressions else "bold")
     for title, cols, rows in sections(d):
         t = Table(title=title, box=bx, title_justify="left")

@@ -7,7 +7,7 @@ import math
 import numpy as np
 
 from .console import eng, table_box
-from .tables import safety_notice
+from .tables import chain_heading
 
 
 def _db(x: float) -> str:
@@ -20,10 +20,7 @@ def noise_tables(chain, r, freqs, dens, gain, gens, console) -> None:
     from rich.text import Text
     bx = table_box(console)
     first = lambda x: float(np.ravel(x)[0])  # noqa: E731
-    console.print(Text(chain.name, style="bold"), Text(f"  ({chain.path})" if chain.path else ""))
-    note = safety_notice(chain.hazards)
-    if note:
-        console.print(Text(note, style="bold red"))
+    chain_heading(chain, console)
     lo, hi = r.band_hz
     console.print(f"noise at '{r.output}'" + (f", converter '{r.converter}'" if r.converter else "") +
                   f"; integrated over {eng(lo, 'Hz')} … {eng(hi, 'Hz')} at {eng(chain.temp_k, 'K')}")

@@ -26,7 +26,7 @@ import numpy as np
 
 from ..budget import Budget
 from ..units import fmt
-from .tables import safety_notice
+from ..safety import safety_notice
 
 ROOM, ROOM_EDGE, LIMIT = "#dcefdc", "#8cc48c", "#2e7d32"
 BAND, TIGHT, CLIP = "#2f6db5", "#e69500", "#c62828"

@@ -22,7 +22,8 @@ import math
 from .. import __version__
 from ..budget import Budget
 from .console import db, eng
-from .tables import _lim, _set_by, safety_notice
+from ..safety import safety_notice
+from .tables import _lim, _set_by
 
 CSS = """
 body{font:14px/1.45 system-ui,-apple-system,'Segoe UI',sans-serif;color:#1d1d1d;max-width:1180px;margin:24px auto;

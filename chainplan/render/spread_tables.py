@@ -5,6 +5,7 @@ import math
 
 from ..montecarlo import McResult, metric_info, metrics, stats
 from ..requirements import evaluate_requirements, show
+from .tables import chain_heading
 from .console import table_box
 
 #: inputs with a smaller share of the variance are summarised in one row
@@ -25,10 +26,9 @@ def _rows(res: McResult, nominal):
 
 def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
     from rich.table import Table
-    from rich.text import Text
     bx = table_box(console)
     c = res.chain
-    console.print(Text(c.name, style="bold"), Text(f"  ({c.path})" if c.path else ""))
+    chain_heading(c, console)
     n_valid = int(res.valid.sum())
     console.print(f"{res.samples} samples, seed {res.seed}; {len(res.inputs)} varied input"
                   f"{'s' * (len(res.inputs) != 1)}" + (f"; {res.samples - n_valid} samples with an impossible "

@@ -7,24 +7,16 @@ from __future__ import annotations
 import math
 
 from ..budget import Budget
+from ..safety import safety_notice
 from .console import db, eng, table_box
 
-SAFETY = {
-    "mains": "mains-powered equipment",
-    "high_voltage": "high voltages",
-    "patient": "a patient connection",
-}
-
-
-def safety_notice(hazards) -> str | None:
-    """The usual caution for hazardous chains; chainplan computes signal budgets,
-    not safety."""
-    if not hazards:
-        return None
-    what = ", ".join(SAFETY.get(h, h) for h in hazards)
-    return (f"CAUTION: this chain involves {what}. chainplan computes signal budgets only; it does not "
-            "assess insulation, creepage, leakage currents or isolation. Follow the applicable safety "
-            "standards and local codes, and have the design reviewed by a qualified, licensed professional.")
+def chain_heading(chain, console) -> None:
+    """The chain's name and file, and the safety caution when it is hazardous."""
+    from rich.text import Text
+    console.print(Text(chain.name, style="bold"), Text(f"  ({chain.path})" if chain.path else ""))
+    note = safety_notice(chain.hazards)
+    if note:
+        console.print(Text(note, style="bold red"))
 
 
 def budget_tables(b: Budget, console) -> None:
@@ -32,10 +24,7 @@ def budget_tables(b: Budget, console) -> None:
     from rich.text import Text
     bx = table_box(console)
     c = b.chain
-    console.print(Text(f"{c.name}", style="bold"), Text(f"  ({c.path})" if c.path else ""))
-    note = safety_notice(c.hazards)
-    if note:
-        console.print(Text(note, style="bold red"))
+    chain_heading(c, console)
     f_ref = eng(c.analysis.f_ref_hz, "Hz")
 
     t = Table(title=f"Stages as connected (at {f_ref})", box=bx, title_justify="left")
