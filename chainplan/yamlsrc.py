@@ -26,7 +26,7 @@ class LList(list):
         return self.item_lines[i] if 0 <= i < len(self.item_lines) else self.line
 
 
-_scalar = yaml.SafeLoader.construct_scalar
+_Loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 
 def _convert(node, loader, path):
@@ -53,18 +53,19 @@ def _convert(node, loader, path):
 
 
 def load_text(text: str, path: str):
-    """Parse YAML text; syntax errors become SpecError with the line."""
+    """Parse YAML text (libyaml when present: about five times faster); syntax
+    errors become SpecError with the line."""
+    loader = None
     try:
-        loader = yaml.SafeLoader(text)      # the reader already rejects control characters
-    except yaml.reader.ReaderError as exc:
-        char = exc.character if isinstance(exc.character, int) else ord(exc.character)
-        raise SpecError(f"character U+{char:04X} is not allowed in YAML ({exc.reason})", path,
-                        text.count("\n", 0, exc.position) + 1) from None
-    try:
+        loader = _Loader(text)
         node = loader.get_single_node()
         if node is None:
             raise SpecError("the file is empty; a chain spec starts with 'name:', 'source:' and 'stages:'", path, 1)
         return _convert(node, loader, path)
+    except yaml.reader.ReaderError as exc:     # control characters and the like
+        char = exc.character if isinstance(exc.character, int) else ord(exc.character)
+        raise SpecError(f"character U+{char:04X} is not allowed in YAML ({exc.reason})", path,
+                        text.count("\n", 0, exc.position) + 1) from None
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         line = mark.line + 1 if mark else None
@@ -72,7 +73,8 @@ def load_text(text: str, path: str):
     except yaml.YAMLError as exc:
         raise SpecError(f"YAML error: {exc}", path) from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
 
 
 def load_file(path: str):

@@ -37,7 +37,7 @@ FOLLOWER = """\
 CASES = {
     # id: (spec text, field named in the message or None, words the message must contain)
     "yaml-indentation": (HEAD.replace("  r: 1k", " r: 1k  #<") + FOLLOWER, None, ["YAML"]),
-    "yaml-tab": (HEAD.replace("  dc: 2 V", "\tdc: 2 V  #<") + FOLLOWER, None, ["YAML", "\\t"]),
+    "yaml-tab": (HEAD.replace("  dc: 2 V", "\tdc: 2 V  #<") + FOLLOWER, None, ["YAML", "tab"]),
     "yaml-control-character": (HEAD.replace("  dc: 2 V", "  dc: 2 V\x01  #<") + FOLLOWER, None, ["U+0001"]),
     "unknown-kind": (HEAD + FOLLOWER.replace("kind: source_follower", "kind: source_folower  #<"),
                      "kind", ["source_folower", "did you mean 'source_follower'"]),
