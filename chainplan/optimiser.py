@@ -360,6 +360,47 @@ class _Label:
 ROOT = ("", -1, -1)
 
 
+class _Features:
+    """Labels as arrays, for vectorised dominance tests.  ``a`` dominates ``b`` when it
+    costs no more (a cost within REL is a tie, then fewer buffers), draws no more
+    power (above the floor no upstream can exceed), needs no more upstream gain
+    (lo) and tolerates no less (hi), and has a response shape at least as high at
+    the relevant frequencies — all to a relative REL."""
+
+    def __init__(self, labels, p_floor, rel):
+        self.cost = np.array([lb.cost for lb in labels])
+        self.nbuf = np.array([lb.nbuf for lb in labels])
+        self.lo = np.array([lb.lo for lb in labels])
+        self.hi = np.array([lb.hi for lb in labels])
+        self.use_power = p_floor is not None
+        if self.use_power:
+            self.power = np.maximum(np.array([lb.power for lb in labels]), p_floor)
+        self.shape = None
+        if rel is not None and any(lb.shape is not None for lb in labels):
+            n = int(rel.sum())
+            self.shape = np.array([lb.shape[rel] if lb.shape is not None else np.full(n, -np.inf)
+                                   for lb in labels])
+
+    def _test(self, a, b):
+        """Does label (set) a dominate label (set) b?  One side is an index array, the other an int."""
+        tol = REL * np.maximum(np.maximum(np.abs(self.cost[a]), np.abs(self.cost[b])), 1e-30)
+        d = self.cost[a] - self.cost[b]
+        ok = (d < -tol) | ((np.abs(d) <= tol) & (self.nbuf[a] <= self.nbuf[b]))
+        if self.use_power:
+            ok &= self.power[a] <= self.power[b] * (1 + REL) + 1e-30
+        ok &= np.all(self.lo[a] <= self.lo[b] * (1 + REL), axis=-1)
+        ok &= np.all(self.hi[a] * (1 + REL) >= self.hi[b], axis=-1)
+        if self.shape is not None:
+            ok &= np.all(self.shape[a] * (1 + REL) >= self.shape[b], axis=-1)
+        return ok
+
+    def dominated(self, kept, i):
+        return self._test(kept, i)
+
+    def dominates(self, i, kept):
+        return self._test(i, kept)
+
+
 class Search:
     """Region analyses of one chain over one frequency grid, reused by every
     optimisation run on it (targets change; the analyses do not)."""
@@ -383,6 +424,7 @@ class Search:
         self.cache: dict = {}
         self.models: dict = {}
         self.terminals: dict = {}
+        self.lbs: dict = {}
         self.evaluations = 0
 
     # -- region shapes --------------------------------------------------------------------
@@ -529,6 +571,31 @@ class Search:
                 return st.parent if st.role == "load" else st.name
         return None
 
+    def cand_lb(self, o: int) -> float:
+        """A lower bound of candidate ``o``'s cost known before any analysis: its price or part
+        count; for power, a fixed ``power`` or an op-amp's i_supply·(v_pos − v_neg), else 0."""
+        c = self.cands[o]
+        if self.basis == "price":
+            return c.price
+        if self.basis == "parts":
+            return float(c.count)
+        if c.power_w is not None:
+            return c.power_w
+        p = c.stage.params
+        if "i_supply" in p:
+            return float(p["i_supply"] * (p["v_pos"] - p["v_neg"]))
+        return 0.0
+
+    def cost_lb(self, key, si) -> float:
+        """Lower bound of what a path pays for this shape: its own buffers and the
+        unilateral buffers it ends at (paid in the regions they start)."""
+        if (key, si) not in self.lbs:
+            shape = self.shapes(key)[si]
+            own = [o for name, o in shape.bufs if not (key != ROOT and key[2] == o and name == self.names[key[0]])]
+            self.lbs[(key, si)] = sum(self.cand_lb(o) for o in own) + \
+                sum(self.cand_lb(child[2]) for _, child in shape.terms if child[2] >= 0)
+        return self.lbs[(key, si)]
+
     def node_names(self, key, si) -> list[str]:
         src, start, _, _ = self._start(key)
         terms = {name for name, _ in self.shapes(key)[si].terms}
@@ -554,8 +621,8 @@ def _output_stage(chain: Chain) -> str:
 class _Run:
     """Forward reachability and backward Pareto labels for one set of targets."""
 
-    def __init__(self, search: Search, targets: Targets):
-        self.s, self.t = search, targets
+    def __init__(self, search: Search, targets: Targets, bound: float = math.inf):
+        self.s, self.t, self.bound = search, targets, bound
         ncol = len(search.cols)
         self.lo_gain = np.zeros(ncol)
         self.hi_gain = np.full(ncol, np.inf)
@@ -568,7 +635,7 @@ class _Run:
         self.band = targets.min_f_high_hz is not None or targets.max_f_low_hz is not None
         self.rel = _relevant_mask(search, targets) if self.band else None
         self.pmax = targets.max_power_w
-        self.states: dict = {}         # key -> {vkey: [v, glo, ghi, plo, phi]}
+        self.states: dict = {}         # key -> {vkey: [v, glo, ghi, plo, phi, least upstream cost]}
         self.edges: dict = {}          # (key, vkey) -> [(si, sample)]
         self.order: list = []
         self.h_cache: dict = {}
@@ -599,7 +666,7 @@ class _Run:
     def forward(self) -> None:
         s = self.s
         todo, seen = [], set()
-        self._expand(ROOT, {0.0: [0.0, np.ones(len(s.cols)), np.ones(len(s.cols)), 0.0, 0.0]}, todo, seen)
+        self._expand(ROOT, {0.0: [0.0, np.ones(len(s.cols)), np.ones(len(s.cols)), 0.0, 0.0, 0.0]}, todo, seen)
         while todo:
             _, key = heapq.heappop(todo)
             self.order.append(key)
@@ -607,12 +674,14 @@ class _Run:
 
     def _expand(self, key, states, todo, seen):
         s = self.s
-        vks = list(states)
-        vs = [states[k][0] for k in vks]
         for si in range(len(s.shapes(key))):
             struct = s.shapes(key)[si]
-            for vk, smp in zip(vks, s.samples(key, si, vs)):
-                v, glo, ghi, plo, phi = states[vk]
+            limit = self.bound - s.cost_lb(key, si) + REL * max(1.0, abs(self.bound))
+            vks = [k for k in states if states[k][5] <= limit]      # no placement within the bound skips it
+            if not vks:
+                continue
+            for vk, smp in zip(vks, s.samples(key, si, [states[k][0] for k in vks])):
+                v, glo, ghi, plo, phi, cmin = states[vk]
                 if not smp.valid:
                     continue
                 hi_own = self._own_hi(key, si, smp)
@@ -620,6 +689,8 @@ class _Run:
                 if hi_own < glo[0] * (1 - REL) or np.any(olo > ghi * (1 + REL)) or np.any(ohi < glo * (1 - REL)):
                     continue
                 if self.pmax is not None and plo + smp.power > self.pmax * (1 + REL):
+                    continue
+                if cmin + smp.cost > self.bound + REL * max(1.0, abs(self.bound)):
                     continue
                 self.edges.setdefault((key, vk), []).append((si, smp))
                 for j, (_, child) in enumerate(struct.terms):
@@ -634,8 +705,9 @@ class _Run:
                         g = group[ck]
                         g[1], g[2] = np.minimum(g[1], glo * t), np.maximum(g[2], ghi * t)
                         g[3], g[4] = min(g[3], plo + smp.power), max(g[4], phi + smp.power)
+                        g[5] = min(g[5], cmin + smp.cost)
                     else:
-                        group[ck] = [cv, glo * t, ghi * t, plo + smp.power, phi + smp.power]
+                        group[ck] = [cv, glo * t, ghi * t, plo + smp.power, phi + smp.power, cmin + smp.cost]
 
     # -- backward ------------------------------------------------------------------------------
     def backward(self) -> list:
@@ -643,7 +715,8 @@ class _Run:
         for key in reversed(self.order):
             for vk, st in self.states[key].items():
                 self.labels[(key, vk)] = self._state_labels(key, vk, st)
-        return self._state_labels(ROOT, 0.0, [0.0, np.ones(len(self.s.cols)), np.ones(len(self.s.cols)), 0.0, 0.0])
+        return self._state_labels(ROOT, 0.0, [0.0, np.ones(len(self.s.cols)), np.ones(len(self.s.cols)), 0.0, 0.0,
+                                              0.0])
 
     def _state_labels(self, key, vk, st):
         s = self.s
@@ -679,7 +752,7 @@ class _Run:
     def _prune(self, labels: list, st) -> list:
         """Drop labels infeasible for every reachable upstream gain, then the dominated ones."""
         if st is not None:
-            _, glo, ghi, plo, phi = st
+            _, glo, ghi, plo, phi, _ = st
             keep = []
             for lb in labels:
                 lo, hi = np.maximum(lb.lo, glo), np.minimum(lb.hi, ghi)
@@ -693,31 +766,21 @@ class _Run:
             p_floor = (self.pmax - phi) if self.pmax is not None else None
         else:
             p_floor = None
+        if len(labels) <= 1:
+            return labels
         labels.sort(key=lambda lb: (lb.cost, lb.nbuf, lb.power))
-        kept: list = []
-        for lb in labels:
-            if any(self._dominates(k, lb, p_floor) for k in kept):
-                continue
-            kept = [k for k in kept if not self._dominates(lb, k, p_floor)]
-            kept.append(lb)
-        return kept
-
-    def _dominates(self, a: _Label, b: _Label, p_floor) -> bool:
-        tol = REL * max(abs(a.cost), abs(b.cost), 1e-30)
-        if a.cost > b.cost + tol or (abs(a.cost - b.cost) <= tol and a.nbuf > b.nbuf):
-            return False
-        if self.pmax is not None:
-            pa, pb = a.power, b.power
-            if p_floor is not None:
-                pa, pb = max(pa, p_floor), max(pb, p_floor)
-            if pa > pb:
-                return False
-        if np.any(a.lo > b.lo) or np.any(a.hi < b.hi):
-            return False
-        if self.band and b.shape is not None:
-            if a.shape is None or np.any(a.shape[self.rel] < b.shape[self.rel]):
-                return False
-        return True
+        f = _Features(labels, p_floor if self.pmax is not None else None, self.rel if self.band else None)
+        keep: list[int] = []
+        for i in range(len(labels)):
+            if keep:
+                k = np.asarray(keep)
+                if f.dominated(k, i).any():
+                    continue
+                beaten = f.dominates(i, k)           # only possible between equal costs
+                if beaten.any():
+                    keep = [j for j, b in zip(keep, beaten) if not b]
+            keep.append(i)
+        return [labels[i] for i in keep]
 
     # -- at the source -----------------------------------------------------------------------
     def best(self, root_labels: list):
@@ -865,8 +928,10 @@ def _grid(chain: Chain, targets: Targets) -> tuple[np.ndarray, dict]:
 
 
 def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None = None,
-             basis: str | None = None) -> Plan:
-    """The cheapest placement of candidate buffers meeting ``targets`` (see the module docstring)."""
+             basis: str | None = None, explain: bool = True) -> Plan:
+    """The cheapest placement of candidate buffers meeting ``targets`` (see the module docstring).
+    When none does and ``explain`` is set, the plan's shortfalls say which target cannot be met
+    and the best value reachable (a few more searches over the same region analyses)."""
     t0 = time.perf_counter()
     cands = candidates_of(chain) if candidates is None else candidates
     basis = cost_basis_for(cands, basis)
@@ -876,18 +941,38 @@ def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None 
     before = measure(chain, targets)
     grid, cols = _grid(chain, targets)
     search = Search(chain, cands, basis, grid, cols)
-    run = _Run(search, targets)
-    run.forward()
-    best = run.best(run.backward())
+    best, run = None, None
+    for bound in _bounds(search):
+        run = _Run(search, targets, bound)
+        run.forward()
+        best = run.best(run.backward())
+        if best is not None and best.cost <= bound + REL * max(1.0, abs(bound)):
+            break
     stats = {"states": sum(len(v) for v in run.states.values()), "region_shapes": sum(len(v) for v in
-             search.structs.values()), "analyses": search.evaluations}
+             search.structs.values()), "analyses": search.evaluations, "cost_bound": run.bound}
     if best is None:
         stats["seconds"] = time.perf_counter() - t0
         return Plan(chain, False, basis, None, [], None, None, before, targets,
-                    shortfalls(search, targets), stats)
+                    shortfalls(search, targets) if explain else [], stats)
     plan = _plan(chain, search, best, targets, before, stats)
     stats["seconds"] = time.perf_counter() - t0
     return plan
+
+
+def _bounds(search: Search):
+    """Cost bounds for iterative deepening: 0, the cheapest candidate, then doubling up to
+    every interface buffered with the dearest one, then none.  A run with bound B analyses
+    every region that a placement costing at most B uses, so a solution within B is optimal."""
+    lbs = [search.cand_lb(o) for o in range(len(search.cands))]
+    pos = [x for x in lbs if x > 0]
+    yield 0.0
+    if pos:
+        top = max(lbs) * len(search.chain.stages)
+        b = min(pos)
+        while b < top:
+            yield b
+            b *= 2
+    yield math.inf
 
 
 def _plan(chain, search, label, targets, before, stats) -> Plan:

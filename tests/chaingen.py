@@ -82,10 +82,9 @@ def random_chain_text(seed: int, n_stages: int = 3, fanout: bool = False) -> str
     last = f"s{n_stages - 1}"
     text += f"  - name: adc\n    kind: adc\n    bits: 12\n    fs_low: 0 V\n    fs_high: vdd\n" \
             f"    r_in: {rng.choice(['inf', '20k'])}\n    c_in: 20 pF\n    ref: vmid\n"
-    if fanout:
+    if fanout:            # a meter hangs on an inner node: a tree with a side branch
         tap = f"s{rng.randrange(n_stages - 1)}"
-        text += f"  - name: side\n    kind: rc_lowpass\n    from: {tap}\n    r: 10k\n    c: 1 nF\n" \
-                f"  - name: meter\n    kind: load\n    from: side\n    r_in: 10k\n    ref: vmid\n"
-        text = text.replace(f"  - name: adc\n", f"  - name: adc\n    from: {last}\n")
+        text += f"  - name: meter\n    kind: load\n    from: {tap}\n    r_in: {rng.choice(['10k', '100k'])}\n" \
+                f"    c_in: 1 nF\n    ref: vmid\n"
     text += "analysis:\n  f_ref: 1 kHz\n  f_start: 10 Hz\n  f_stop: 10 MHz\n  points: 61\n"
     return text + CANDIDATES
