@@ -1,0 +1,210 @@
+"""The buffer advisor: every figure is a difference of two full analyses, the
+buffer's own numbers agree with textbook follower formulas, and the verdicts
+come out as an engineer would expect on clear-cut chains."""
+from __future__ import annotations
+
+import json
+import math
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from chainplan.advisor import THRESHOLDS, advise
+from chainplan.budget import analyse, evaluate
+from chainplan.cli import main
+from chainplan.insert import insert_buffers
+from chainplan.parts import candidates_of
+from chainplan.spec import load_chain
+
+REPO = Path(__file__).resolve().parent.parent
+VT_300K = 0.025852  # kT/q at 300 K, CODATA constants (handbook value 25.85 mV)
+
+CHAIN = """\
+name: advice-test
+temperature: 300 K
+rails:
+  vdd: 3.3 V
+  vmid: 1.65 V
+include: [parts/followers.yaml]
+source:
+  name: probe
+  kind: sensor
+  amplitude: 50 mV
+  dc: {dc}
+  r: {r}
+stages:
+{stages}  - name: adc
+    kind: adc
+    bits: 12
+    fs_low: 0 V
+    fs_high: vdd
+    r_in: 10k
+    c_in: 20 pF
+    ref: vmid
+analysis:
+  f_ref: 1 kHz
+  f_start: 10 Hz
+  f_stop: 10 MHz
+  points: 201
+"""
+
+
+def make(tmp_path, dc="vmid", r="100k", stages=""):
+    (tmp_path / "parts").mkdir(exist_ok=True)
+    shutil.copy(REPO / "chains" / "parts" / "followers.yaml", tmp_path / "parts" / "followers.yaml")
+    f = tmp_path / "chain.yaml"
+    f.write_text(CHAIN.format(dc=dc, r=r, stages=stages), encoding="utf-8")
+    return load_chain(str(f))
+
+
+def cand(chain, name):
+    return next(c for c in candidates_of(chain) if c.name == name)
+
+
+def loss_db(ev, reader):
+    """Loading loss where `reader` reads its node, from the engine's rows: 20·log10|1/(1 + Zth·Yin)|."""
+    a, b = ev.ac.branch_row[reader]
+    zth = b[0, 0] / a[0, 0]
+    return 20 * math.log10(abs(1 / (1 + zth * ev.ac.y_in[reader][0, 0])))
+
+
+def test_recovered_and_net_gain_are_differences_of_two_full_analyses(tmp_path):
+    chain = make(tmp_path, stages="  - name: lead\n    kind: cable\n    length: 10 m\n    c_per_m: 100 pF/m\n")
+    a = advise(chain)
+    before = evaluate(chain)
+    checked = 0
+    for row in a.interfaces:
+        for e in row.candidates:
+            if not e.valid:
+                continue
+            after = evaluate(insert_buffers(chain, {row.reader: cand(chain, e.candidate)}))
+            buf = e.buffer
+            want = loss_db(after, buf) + loss_db(after, row.reader) - loss_db(before, row.reader)
+            assert e.recovered_db == pytest.approx(want, abs=1e-9)
+            net = analyse(insert_buffers(chain, {row.reader: cand(chain, e.candidate)})).gain_db - \
+                analyse(chain).gain_db
+            assert e.net_gain_db == pytest.approx(net, abs=1e-9)
+            for h in e.headroom:
+                if h.change_v is not None:
+                    assert h.change_v == pytest.approx(float(after.headroom(h.node)[0]) -
+                                                       float(before.headroom(h.node)[0]), abs=1e-12)
+            checked += 1
+    assert checked >= 6
+
+
+def effect_at(chain, reader, name):
+    a = advise(chain, [cand(chain, name)])
+    row = next(i for i in a.interfaces if i.reader == reader)
+    return row, row.candidates[0]
+
+
+def test_source_follower_against_the_square_law(tmp_path):
+    """Sedra & Smith, Microelectronic Circuits (from memory): Vov from Id = ½k'(W/L)Vov²(1 + λVDS),
+    VGS = Vth + Vov (bulk tied to the source: no body effect), gm = 2Id/Vov, and the
+    open-circuit follower gain gm·R/(1 + gm·R) with R = ro ‖ r_bias, ro = (1/λ + VDS)/Id."""
+    chain = make(tmp_path, dc="2.0 V", r="1k")
+    row, e = effect_at(chain, "adc", "nmos_50u")
+    p = cand(chain, "nmos_50u").stage.params
+    ev = evaluate(insert_buffers(chain, {"adc": cand(chain, "nmos_50u")}))
+    op = {k: float(np.ravel(v)[0]) for k, v in ev.dc.ops[e.buffer].values.items()}
+    vs = float(np.ravel(ev.dc.node_v[e.buffer])[0])
+    vds = 3.3 - vs
+    vov = math.sqrt(2 * op["id_a"] / (p["kp"] * p["w_over_l"] * (1 + p["lambda"] * vds)))
+    assert e.dc_shift_v == pytest.approx(-(p["vth0"] + vov), abs=1e-6)
+    gm = 2 * op["id_a"] / vov
+    ro = (1 / p["lambda"] + vds) / op["id_a"]
+    r = 1 / (1 / ro + 1 / p["r_bias"])
+    assert e.buffer_gain_db == pytest.approx(20 * math.log10(gm * r / (1 + gm * r)), abs=1e-4)
+    assert e.power_w == pytest.approx(op["id_a"] * 3.3, rel=1e-9)
+
+
+def test_opamp_follower_closed_loop_gain(tmp_path):
+    """Franco, Design with Operational Amplifiers (from memory): a follower's gain is A/(1 + A)
+    with the single-pole A(f) = A0/(1 + j·f·A0/GBW)."""
+    chain = make(tmp_path)
+    _, e = effect_at(chain, "adc", "opamp_micro")
+    p = cand(chain, "opamp_micro").stage.params
+    a0 = 10 ** (p["a0"] / 20)
+    a = a0 / (1 + 1j * 1e3 * a0 / p["gbw"])
+    assert e.buffer_gain_db == pytest.approx(20 * math.log10(abs(a / (1 + a))), abs=1e-9)
+    assert abs(e.dc_shift_v) < 1e-4                               # a follower keeps the DC level
+    assert e.power_w == pytest.approx(p["i_supply"] * 3.3, rel=1e-12)
+
+
+def test_emitter_follower_gain_as_connected(tmp_path):
+    """Sedra & Smith (from memory): gm = IC/VT, rπ = VT/IB, β0 = gm·rπ, and
+    Av = (β0 + 1)·R/(rπ + (β0 + 1)·R) with R = ro ‖ r_bias ‖ Z_load."""
+    chain = make(tmp_path, dc="2.0 V", r="1k")
+    _, e = effect_at(chain, "adc", "npn_ef")
+    p = cand(chain, "npn_ef").stage.params
+    ev = evaluate(insert_buffers(chain, {"adc": cand(chain, "npn_ef")}))
+    op = {k: float(np.ravel(v)[0]) for k, v in ev.dc.ops[e.buffer].values.items()}
+    assert op["gm_s"] == pytest.approx(op["ic_a"] / VT_300K, rel=1e-4)
+    assert op["rpi_ohm"] == pytest.approx(VT_300K / op["ib_a"], rel=1e-4)
+    beta0 = op["gm_s"] * op["rpi_ohm"]
+    z_load = 1 / ev.ac.y_in["adc"][0, 0]
+    zr = 1 / (1 / op["ro_ohm"] + 1 / p["r_bias"] + 1 / z_load)
+    av = (beta0 + 1) * zr / (op["rpi_ohm"] + (beta0 + 1) * zr)
+    as_connected = ev.ac.node_h[e.buffer][0, 0] / ev.ac.node_h["probe"][0, 0]
+    assert abs(as_connected) == pytest.approx(abs(av), rel=1e-9)
+    assert e.dc_shift_v == pytest.approx(-op["vbe_v"], abs=1e-9)
+
+
+def test_verdict_needed_when_a_follower_wins_back_a_heavy_loss(tmp_path):
+    chain = make(tmp_path)          # 100 kΩ source into a 10 kΩ converter input: about 21 dB lost
+    a = advise(chain)
+    (row,) = a.interfaces
+    assert row.loss_now_db < -THRESHOLDS["needed_loss_db"]
+    assert row.verdict == "needed" and row.best is not None
+    best = next(e for e in row.candidates if e.candidate == row.best)
+    assert best.net_gain_db >= THRESHOLDS["needed_net_db"] and best.usable
+    assert "loses 20.83 dB now" in row.reason
+
+
+def test_verdict_would_clip_when_the_node_sits_at_ground(tmp_path):
+    chain = make(tmp_path, dc="0 V")      # a follower cannot sit on a node at 0 V on a single supply
+    (row,) = advise(chain).interfaces
+    assert row.verdict == "would clip"
+    assert all(not e.usable for e in row.candidates)
+    assert "0 V DC" in row.reason
+
+
+def test_verdict_not_worth_it_without_loading(tmp_path):
+    chain = make(tmp_path, r="10")        # 10 Ω source: nothing to win back
+    (row,) = advise(chain).interfaces
+    assert row.verdict == "not worth it" and row.best is None
+    # 10 Ω into 10 kΩ: 20·log10(10k/10.01k) = −0.0087 dB (divider rule)
+    assert row.loss_now_db == pytest.approx(20 * math.log10(10e3 / 10.01e3), abs=1e-4)
+    assert row.reason.startswith("loses only 0.01 dB now")
+
+
+def test_demo_verdicts():
+    a = advise(load_chain(str(REPO / "chains" / "hydrophone_direct.yaml")))
+    v = {i.reader: i.verdict for i in a.interfaces}
+    assert v["lead"] == "would clip"          # the element's node is at 0 V: no DC-coupled buffer works there
+    assert v["gain"] == "not worth it"
+    b = advise(load_chain(str(REPO / "chains" / "hydrophone_buffered.yaml")))
+    assert {i.reader: i.verdict for i in b.interfaces}["lead"] in ("worth it", "needed")
+
+
+def test_cli_json_has_every_figure(tmp_path, capsys):
+    make(tmp_path)
+    code = main(["buffers", str(tmp_path / "chain.yaml"), "--json"])
+    d = json.loads(capsys.readouterr().out)
+    assert code == 0 and d["interfaces"][0]["verdict"] == "needed"
+    e = d["interfaces"][0]["candidates"][0]
+    for key in ("recovered_db", "buffer_gain_db", "dc_shift_v", "net_gain_db", "f_high_after_hz", "power_w",
+                "worst_headroom", "headroom", "snr_change_db", "valid"):
+        assert key in e
+    assert d["thresholds"] == THRESHOLDS
+
+
+def test_cli_tables_fit_100_columns(tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("COLUMNS", "100")
+    make(tmp_path, stages="  - name: lead\n    kind: cable\n    length: 10 m\n    c_per_m: 100 pF/m\n")
+    assert main(["buffers", str(tmp_path / "chain.yaml")]) == 0
+    out = capsys.readouterr().out
+    assert max(len(line) for line in out.splitlines()) <= 100
+    assert "needed" in out and "opamp_micro" in out

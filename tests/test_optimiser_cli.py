@@ -1,0 +1,115 @@
+"""The placement command end to end: tables and JSON, --write of a buffered
+spec that the budget command reads back with the original text kept, the
+input never touched without --in-place, nothing written when nothing fits."""
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import pytest
+
+from chainplan.budget import analyse
+from chainplan.cli import main
+from chainplan.optimiser import Targets, optimise
+from chainplan.spec import load_chain
+
+REPO = Path(__file__).resolve().parent.parent
+
+
+@pytest.fixture
+def project(tmp_path):
+    """A copy of the demo chains and the parts file in a project folder of its own."""
+    (tmp_path / "chains" / "parts").mkdir(parents=True)
+    for name in ("hydrophone_buffered.yaml", "vibration_fanout.yaml", "hydrophone_direct.yaml"):
+        shutil.copy(REPO / "chains" / name, tmp_path / "chains" / name)
+    shutil.copy(REPO / "chains" / "parts" / "followers.yaml", tmp_path / "chains" / "parts" / "followers.yaml")
+    return tmp_path / "chains"
+
+
+def cli(argv, capsys):
+    code = main([str(a) for a in argv])
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+def test_write_keeps_the_text_and_reads_back(project, capsys):
+    src = project / "hydrophone_buffered.yaml"
+    original = src.read_bytes()
+    new = project / "hydrophone_more.yaml"
+    code, out, err = cli(["buffers", src, "--min-gain", "31.8 dB", "--write", new], capsys)
+    assert code == 0, err
+    assert src.read_bytes() == original                       # the input is never touched
+    text = new.read_text(encoding="utf-8")
+    old_lines = original.decode("utf-8").splitlines()
+    new_lines = text.splitlines()
+    added = [ln for ln in new_lines if ln not in old_lines]
+    assert all(ln in new_lines for ln in old_lines)           # comments, order, formatting all kept
+    assert added[0].strip().startswith("- name: buf_")
+    chain = load_chain(str(new))
+    b = analyse(chain)
+    assert b.gain_db >= 31.8
+    plan = optimise(load_chain(str(src)), Targets(min_gain_db={1e3: 31.8}))
+    bufs = {p.buffer for p in plan.placements}
+    assert bufs and bufs <= {s.name for s in chain.stages}
+    assert f"wrote {new}" in out
+
+
+def test_write_with_from_fields_repoints_the_reader(project, capsys):
+    src = project / "vibration_fanout.yaml"
+    new = project / "fan_buffered.yaml"
+    code, out, err = cli(["buffers", src, "--min-gain", "19.9 dB", "--cost", "power", "--write", new], capsys)
+    assert code == 0, err
+    chain = load_chain(str(new))
+    adc = chain.stage("adc")
+    assert adc.parent.startswith("buf_")                      # the converter now reads the buffer...
+    assert chain.stage(adc.parent).parent == "antialias"      # ...which reads the filter
+    assert chain.stage("panel_cable").parent == "gain"        # the other branch is untouched
+    assert analyse(chain).gain_db >= 19.9
+
+
+def test_in_place_rewrites_the_input(project, capsys):
+    src = project / "hydrophone_buffered.yaml"
+    before = src.read_text(encoding="utf-8")
+    code, out, err = cli(["buffers", src, "--min-gain", "31.8 dB", "--in-place"], capsys)
+    assert code == 0, err
+    after = src.read_text(encoding="utf-8")
+    assert after != before and "buf_" in after
+    assert not list(project.glob(".chainplan-*"))             # no temporary file left behind
+
+
+def test_nothing_written_when_nothing_fits(project, capsys):
+    src = project / "hydrophone_buffered.yaml"
+    new = project / "never.yaml"
+    code, out, err = cli(["buffers", src, "--min-gain", "60 dB", "--write", new], capsys)
+    assert code == 2 and "nothing written" in err
+    assert not new.exists()
+    code, out, err = cli(["buffers", src, "--min-gain", "60 dB"], capsys)
+    assert code == 1 and "cannot be met" in out and "60.00 dB" in out
+
+
+def test_json_of_a_placement(project, capsys):
+    code, out, err = cli(["buffers", project / "hydrophone_buffered.yaml", "--min-gain", "31.8 dB",
+                          "--min-headroom", "0.1 V", "--json"], capsys)
+    d = json.loads(out)
+    assert code == 0 and d["feasible"] and d["n_buffers"] == len(d["placements"]) >= 1
+    assert d["after"]["gain_db"][0]["db"] >= 31.8 and d["after"]["min_headroom_v"] >= 0.1
+    assert {"from", "to", "buffer", "candidate", "power_w", "price"} <= set(d["placements"][0])
+    assert d["targets"]["from"]["gain"][0] == "--min-gain"
+    assert all(r["passed"] for r in d["requirements"])        # the spec's own requirements, on the result
+
+
+def test_infeasible_json_names_the_target(project, capsys):
+    code, out, err = cli(["buffers", project / "hydrophone_direct.yaml", "--min-gain", "40 dB",
+                          "--min-headroom", "0.05 V", "--json"], capsys)
+    d = json.loads(out)
+    assert code == 1 and not d["feasible"] and d["after"] is None
+    kinds = {s["kind"] for s in d["shortfalls"]}
+    assert "gain" in kinds
+
+
+def test_write_outside_the_project_is_refused(project, tmp_path_factory, capsys):
+    elsewhere = tmp_path_factory.mktemp("elsewhere") / "x.yaml"
+    code, out, err = cli(["buffers", project / "hydrophone_buffered.yaml", "--min-gain", "31.8 dB",
+                          "--write", elsewhere], capsys)
+    assert code == 2 and "would not read back" in err and not elsewhere.exists()
