@@ -27,7 +27,8 @@ FANOUT = [3, 12]
 
 
 def table(chain):
-    """Every placement analysed in full: (valid, gain dB, min headroom V, f_high, price, power, buffers)."""
+    """Every placement analysed in full: (valid, gain dB, min headroom V, f_high, price, power, buffers,
+    power of all follower-type stages, f_low)."""
     cands = candidates_of(chain)
     readers = [st.name for st in chain.stages]
     rows = []
@@ -39,18 +40,23 @@ def table(chain):
         valid = bool(ev.valid[0])
         gain = float(20 * np.log10(abs(ev.gain()[0, 0])))
         room = min(float(ev.headroom(n)[0]) for n in b.nodes)
-        f_hi = float(ev.band_edges()[1][0])
+        f_lo, f_hi = (float(x[0]) for x in ev.band_edges())
         bufs = [b.stage(r).parent for r in placement]
         power = sum(float(np.ravel(ev.dc.ops[x].values["power_w"])[0]) for x in bufs)
+        total = sum(float(np.ravel(ev.dc.ops[st.name].values["power_w"])[0]) for st in b.stages
+                    if st.model.follower_type)
         price = sum(c.price for c in placement.values())
-        rows.append((valid, gain, room, math.inf if math.isnan(f_hi) else f_hi, price, power, len(placement)))
+        rows.append((valid, gain, room, math.inf if math.isnan(f_hi) else f_hi, price, power, len(placement),
+                     total, 0.0 if math.isnan(f_lo) else f_lo))
     return rows
 
 
 def best(rows, t: Targets, basis):
     ok = [r for r in rows if r[0] and r[1] >= t.min_gain_db.get(F_REF, -math.inf)
           and r[2] >= (t.min_headroom_v if t.min_headroom_v is not None else -math.inf)
-          and r[3] >= (t.min_f_high_hz or 0.0)]
+          and r[3] >= (t.min_f_high_hz or 0.0)
+          and r[7] <= (t.max_power_w if t.max_power_w is not None else math.inf)
+          and r[8] <= (t.max_f_low_hz if t.max_f_low_hz is not None else math.inf)]
     if not ok:
         return None
     col = 4 if basis == "price" else 5
@@ -96,6 +102,12 @@ def test_optimiser_matches_brute_force(seed, fanout):
     if highs:
         targets.append(Targets(min_gain_db={F_REF: between([r[1] for r in valid], 0.5)},
                                min_f_high_hz=between(highs, 0.6)))
+    targets.append(Targets(min_gain_db={F_REF: between([r[1] for r in valid], 0.6)},
+                           max_power_w=between([r[7] for r in valid], rng.uniform(0.3, 0.8))))
+    lows = [r[8] for r in valid if r[8] > 0]
+    if lows:
+        targets.append(Targets(min_gain_db={F_REF: between([r[1] for r in valid], 0.4)},
+                               max_f_low_hz=between(lows, 0.5)))
     needed = 0
     for t in targets:
         for basis in ("price", "power"):
