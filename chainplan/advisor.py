@@ -48,7 +48,7 @@ import numpy as np
 from .budget import Evaluation, check_operating_points, evaluate
 from .insert import insert_buffers
 from .model import Chain
-from .parts import Candidate, candidates_of
+from .parts import Candidate, candidates_of, default_cost_basis, supply_power
 
 THRESHOLDS = {
     "needed_loss_db": 3.0,     # an interface losing this much or more needs a buffer...
@@ -199,16 +199,9 @@ def _z(x) -> float:
     return abs(x)
 
 
-def cost_basis(cands: list[Candidate]) -> str:
-    """'price' when every candidate states one, else 'power'."""
-    return "price" if cands and all(c.price is not None for c in cands) else "power"
-
-
 def buffer_power(ev: Evaluation, buffer: str, cand: Candidate) -> float:
-    """Supply power of an inserted buffer: the parts file's fixed figure, or its operating point's."""
-    if cand.power_w is not None:
-        return cand.power_w
-    return float(np.ravel(ev.dc.ops[buffer].values.get("power_w", 0.0))[0])
+    """Supply power of an inserted buffer at its operating point (or the parts file's figure)."""
+    return float(np.ravel(supply_power(cand, ev.dc.ops[buffer]))[0])
 
 
 def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_noise: bool) -> CandidateEffect:
@@ -259,7 +252,7 @@ def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
     ev0 = evaluate(chain)
     check_operating_points(chain, ev0.dc)
     base = _figures(ev0, with_noise)
-    basis = cost_basis(cands)
+    basis = default_cost_basis(cands)
     rows = []
     for st in chain.stages:
         a, b = ev0.ac.branch_row[st.name]

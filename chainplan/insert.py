@@ -50,7 +50,7 @@ def check_interface(chain: Chain, reader: str) -> None:
 
 def insert_buffers(chain: Chain, placement: dict) -> Chain:
     """A copy of ``chain`` with ``placement[reader]`` (a :class:`~chainplan.parts.Candidate`)
-    inserted in front of each named reader.  The new stage's name is :func:`buffer_name`."""
+    inserted in front of each named reader, named as :func:`buffer_names` says."""
     for reader in placement:
         check_interface(chain, reader)
     names = buffer_names(chain)

@@ -89,7 +89,7 @@ from .cascade import run_ac
 from .errors import UsageError, nearest
 from .insert import buffer_names, insert_buffers
 from .model import Analysis, Chain, Stage
-from .parts import Candidate, candidates_of
+from .parts import Candidate, candidates_of, default_cost_basis, supply_power
 from .stages.base import NO_LOAD, Op
 from .units import fmt
 
@@ -544,9 +544,7 @@ class Search:
             if st.name in terms or not st.model.follower_type:
                 continue
             c = self.cands[bufs[st.name]] if st.name in bufs else None
-            pw = np.broadcast_to(np.ravel(ev.dc.ops[st.name].values.get("power_w", 0.0)), (n,))
-            if c is not None and c.power_w is not None:
-                pw = np.full(n, c.power_w)
+            pw = np.broadcast_to(np.ravel(supply_power(c, ev.dc.ops[st.name])), (n,))
             power = power + pw
             if c is not None:
                 cost = cost + (pw if self.basis == "power" else c.price if self.basis == "price" else c.count)
@@ -873,13 +871,9 @@ def measure(chain: Chain, targets: Targets, buffered: Chain | None = None) -> Me
             rooms[n] = (float(ev.headroom(n)[0]), h)
     f_lo = 0.0 if math.isnan(float(f_lo[0])) else float(f_lo[0])
     f_hi = math.inf if math.isnan(float(f_hi[0])) else float(f_hi[0])
-    power = 0.0
     inserted = c.extra.get("inserted", {})
-    for st in c.stages:
-        if st.model.follower_type:
-            cand = inserted.get(st.name, (None, None))[1]
-            power += cand.power_w if cand is not None and cand.power_w is not None else \
-                float(np.ravel(ev.dc.ops[st.name].values.get("power_w", 0.0))[0])
+    power = sum(float(np.ravel(supply_power(inserted.get(st.name, (None, None))[1], ev.dc.ops[st.name]))[0])
+                for st in c.stages if st.model.follower_type)
     margins = {}
     if targets.min_gain_db:
         margins["gain"] = min(gains[f] - db for f, db in targets.min_gain_db.items())
@@ -904,7 +898,7 @@ def measure(chain: Chain, targets: Targets, buffered: Chain | None = None) -> Me
 
 def cost_basis_for(cands: list[Candidate], basis: str | None) -> str:
     if basis is None:
-        return "price" if cands and all(c.price is not None for c in cands) else "power"
+        return default_cost_basis(cands)
     if basis not in ("power", "price", "parts"):
         raise UsageError(f"unknown cost basis '{basis}'" + nearest(basis, ("power", "price", "parts")))
     if basis == "price":
@@ -986,7 +980,7 @@ def _plan(chain, search, label, targets, before, stats) -> Plan:
         if st.name in placement:
             buf = buffered.stage(st.name).parent
             c = placement[st.name]
-            pw = c.power_w if c.power_w is not None else float(np.ravel(ev.dc.ops[buf].values.get("power_w", 0.0))[0])
+            pw = float(np.ravel(supply_power(c, ev.dc.ops[buf]))[0])
             rows.append(Placement(st.name, st.parent, c.name, buf, pw, c.price, c.count))
     cost = sum(p.power_w if search.basis == "power" else p.price if search.basis == "price" else p.count
                for p in rows)
@@ -1114,36 +1108,3 @@ def _knob_text(t: Targets, kind: str, x: float) -> str:
     if kind == "f_low":
         return f"lower edge {fmt(math.exp(-x), 'Hz')}"
     return f"{fmt(-x, 'W')} of follower power"
-
-
-# -- brute force, for checking ---------------------------------------------------------------------
-
-def brute_force(chain: Chain, targets: Targets, candidates: list[Candidate] | None = None,
-                basis: str | None = None) -> tuple[float | None, int | None, dict | None]:
-    """Every placement analysed in full; (least cost, its number of buffers, the placement) or
-    (None, None, None).  Exponential: for tests on small chains only."""
-    import itertools
-    cands = candidates_of(chain) if candidates is None else candidates
-    basis = cost_basis_for(cands, basis)
-    readers = [st.name for st in chain.stages]
-    best = (None, None, None)
-    for combo in itertools.product(range(-1, len(cands)), repeat=len(readers)):
-        placement = {r: cands[o] for r, o in zip(readers, combo) if o >= 0}
-        buffered = insert_buffers(chain, placement)
-        m = measure(chain, targets, buffered)
-        if not m.meets():
-            continue
-        if basis == "power":
-            with np.errstate(all="ignore"):
-                ev = evaluate(buffered)
-            cost = sum(c.power_w if c.power_w is not None else
-                       float(np.ravel(ev.dc.ops[buffered.stage(r).parent].values.get("power_w", 0.0))[0])
-                       for r, c in placement.items())
-        else:
-            cost = sum(c.price if basis == "price" else c.count for c in placement.values())
-        key = (cost, len(placement))
-        if best[0] is None or cost < best[0] - REL * max(abs(cost), 1e-30) or \
-                (abs(cost - best[0]) <= REL * max(abs(cost), 1e-30) and len(placement) < best[1]):
-            best = (cost, len(placement), {r: c.name for r, c in placement.items()})
-        del key
-    return best

@@ -57,6 +57,20 @@ class Candidate:
         return self.stage.kind
 
 
+def default_cost_basis(cands: list[Candidate]) -> str:
+    """What buffers cost by default: 'price' when every candidate states one, else 'power'."""
+    return "price" if cands and all(c.price is not None for c in cands) else "power"
+
+
+def supply_power(cand: Candidate | None, op):
+    """Supply power of a follower-type stage: a candidate's fixed ``power`` if it states one,
+    else its operating point's ``power_w`` (a follower's Id·(drain − v_low), an op-amp's
+    i_supply·(v_pos − v_neg)); per sample."""
+    if cand is not None and cand.power_w is not None:
+        return cand.power_w
+    return op.values.get("power_w", 0.0)
+
+
 def candidates_of(chain) -> list[Candidate]:
     """The chain's candidates (from ``include:`` and ``candidates:``), in the order given."""
     return chain.extra.get("candidates", [])

@@ -80,19 +80,24 @@ def _scalar(value) -> str:
 
 
 def _move_includes(text: str, old_path: str, new_path: str) -> str:
-    """Rewrite relative include paths so they still name the same files from the new folder."""
+    """Rewrite relative include paths, on the lines that hold them, so they still name
+    the same files from the new folder."""
+    from .yamlsrc import LList, load_text
     old_dir = os.path.dirname(os.path.abspath(old_path))
     new_dir = os.path.dirname(os.path.abspath(new_path))
-    if old_dir == new_dir:
+    doc = load_text(text, old_path)
+    if old_dir == new_dir or "include" not in doc:
         return text
-    doc = yaml.safe_load(text)
-    inc = doc.get("include") if isinstance(doc, dict) else None
-    if not inc:
-        return text
-    for p in ([inc] if isinstance(inc, str) else inc):
-        moved = os.path.relpath(os.path.join(old_dir, p), new_dir)
-        text = re.sub(r"(?<![\w./-])" + re.escape(p) + r"(?![\w./-])", moved.replace("\\", "/"), text, count=1)
-    return text
+    inc = doc["include"]
+    items = [(p, inc.line_of(i)) for i, p in enumerate(inc)] if isinstance(inc, LList) else \
+        [(inc, doc.line_of("include"))]
+    lines = text.splitlines(keepends=True)
+    for p, line in items:
+        if not isinstance(p, str) or os.path.isabs(p):
+            continue
+        moved = os.path.relpath(os.path.join(old_dir, p), new_dir).replace(os.sep, "/")
+        lines[line - 1] = re.sub(r"(?<![\w./-])" + re.escape(p) + r"(?![\w./-])", moved, lines[line - 1], count=1)
+    return "".join(lines)
 
 
 def write_buffered(chain: Chain, placement: dict, out_path: str) -> str:

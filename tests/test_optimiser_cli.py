@@ -113,3 +113,14 @@ def test_write_outside_the_project_is_refused(project, tmp_path_factory, capsys)
     code, out, err = cli(["buffers", project / "hydrophone_buffered.yaml", "--min-gain", "31.8 dB",
                           "--write", elsewhere], capsys)
     assert code == 2 and "would not read back" in err and not elsewhere.exists()
+
+
+def test_write_to_another_folder_of_the_project_moves_the_include(project, capsys):
+    (project.parent / ".git").mkdir()                          # the project is the git work tree
+    (project.parent / "variants").mkdir()
+    new = project.parent / "variants" / "more.yaml"
+    code, out, err = cli(["buffers", project / "hydrophone_buffered.yaml", "--min-gain", "31.8 dB",
+                          "--write", new], capsys)
+    assert code == 0, err
+    assert "include: [../chains/parts/followers.yaml]" in new.read_text(encoding="utf-8")
+    assert analyse(load_chain(str(new))).gain_db >= 31.8
