@@ -381,8 +381,23 @@ class _Features:
             self.shape = np.array([lb.shape[rel] if lb.shape is not None else np.full(n, -np.inf)
                                    for lb in labels])
 
+    def nondominated(self) -> np.ndarray:
+        """Indices of the labels no other label dominates (of two that dominate each other
+        within the tolerance, the first is kept)."""
+        n = len(self.cost)
+        everyone = np.arange(n)
+        keep = np.ones(n, dtype=bool)
+        for start in range(0, n, 256):          # rows in blocks: memory stays bounded
+            rows = everyone[start:start + 256]
+            dom = self._test(rows[:, None], everyone[None, :])          # dom[i, b]: row i dominates b
+            back = self._test(everyone[None, :], rows[:, None])         # back[i, b]: b dominates row i
+            beaten = dom & (~back | (rows[:, None] < everyone[None, :]))
+            beaten[np.arange(len(rows)), rows] = False
+            keep &= ~beaten.any(axis=0)
+        return np.nonzero(keep)[0]
+
     def _test(self, a, b):
-        """Does label (set) a dominate label (set) b?  One side is an index array, the other an int."""
+        """Does label a dominate label b?  a and b are index arrays that broadcast."""
         tol = REL * np.maximum(np.maximum(np.abs(self.cost[a]), np.abs(self.cost[b])), 1e-30)
         d = self.cost[a] - self.cost[b]
         ok = (d < -tol) | ((np.abs(d) <= tol) & (self.nbuf[a] <= self.nbuf[b]))
@@ -394,11 +409,6 @@ class _Features:
             ok &= np.all(self.shape[a] * (1 + REL) >= self.shape[b], axis=-1)
         return ok
 
-    def dominated(self, kept, i):
-        return self._test(kept, i)
-
-    def dominates(self, i, kept):
-        return self._test(i, kept)
 
 
 class Search:
@@ -768,17 +778,7 @@ class _Run:
             return labels
         labels.sort(key=lambda lb: (lb.cost, lb.nbuf, lb.power))
         f = _Features(labels, p_floor if self.pmax is not None else None, self.rel if self.band else None)
-        keep: list[int] = []
-        for i in range(len(labels)):
-            if keep:
-                k = np.asarray(keep)
-                if f.dominated(k, i).any():
-                    continue
-                beaten = f.dominates(i, k)           # only possible between equal costs
-                if beaten.any():
-                    keep = [j for j, b in zip(keep, beaten) if not b]
-            keep.append(i)
-        return [labels[i] for i in keep]
+        return [labels[i] for i in f.nondominated()]
 
     # -- at the source -----------------------------------------------------------------------
     def best(self, root_labels: list):
