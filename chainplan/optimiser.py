@@ -90,7 +90,7 @@ from .errors import UsageError, nearest
 from .insert import buffer_names, insert_buffers
 from .model import Analysis, Chain, Stage
 from .parts import Candidate, candidates_of, default_cost_basis, supply_power
-from .stages.base import NO_LOAD, Op
+from .stages.base import NO_LOAD, DcLoad, Op
 from .units import fmt
 
 #: Kinds that cut the chain (unilateral input and output; DC from the input node voltage only).
@@ -309,6 +309,38 @@ class _Terminal:
         return []
 
 
+class _Terminals:
+    """Several unilateral candidates that could end a region at the same place, one per
+    sample: a region shape analysed once for all of them (``choice`` maps samples to them)."""
+
+    role = "load"
+    follower_type = False
+    draws_input_current = False
+
+    def __init__(self, variants):
+        self.variants = variants            # [(_Terminal, params)]
+        self.choice = np.zeros(1, dtype=int)
+
+    def load_admittance(self, p, s, op):
+        ys = [np.broadcast_to(t.load_admittance({**q, "temp_k": p["temp_k"]}, s, None), np.shape(s))
+              for t, q in self.variants]
+        return np.stack(ys)[self.choice, 0, :]
+
+    def dc_input_load(self, p, out_load, op):
+        loads = [t.dc_input_load({**q, "temp_k": p["temp_k"]}, out_load, None) for t, q in self.variants]
+        g = np.array([float(np.ravel(x.G)[0]) for x in loads])[self.choice][:, None]
+        i0 = np.array([float(np.ravel(x.I0)[0]) for x in loads])[self.choice][:, None]
+        return DcLoad(g, i0)
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        for t, q in self.variants:          # each solves its (load-independent) operating point once
+            t.dc_forward({**q, "temp_k": p["temp_k"]}, st_in, v_in, out_load)
+        return None, Op()
+
+    def noise(self, p, s, op, temp_k):
+        return []
+
+
 @dataclass
 class _ModelStage(Stage):
     """A stage whose model is given (memoised or a terminal) rather than looked up by kind."""
@@ -435,6 +467,7 @@ class Search:
         self.models: dict = {}
         self.terminals: dict = {}
         self.lbs: dict = {}
+        self.family: dict = {}
         self.evaluations = 0
 
     # -- region shapes --------------------------------------------------------------------
@@ -504,21 +537,50 @@ class Search:
 
     # -- region analyses ----------------------------------------------------------------------
     def samples(self, key, si, vs: list) -> list[_Sample]:
-        """The region shape ``si`` of group ``key`` analysed at each DC level in ``vs``."""
+        """The region shape ``si`` of group ``key`` analysed at each DC level in ``vs``.  Shapes
+        that differ only in which unilateral candidate ends them are analysed together."""
         memo = self.cache.setdefault((key, si), {})
         missing = [v for v in vs if _vkey(v) not in memo]
         if missing:
-            for v, smp in zip(missing, self._analyse(key, self.shapes(key)[si], missing)):
-                memo[_vkey(v)] = smp
+            family = self.families(key)[si]
+            for sj, smps in zip(family, self._analyse(key, family, missing)):
+                got = self.cache.setdefault((key, sj), {})
+                for v, smp in zip(missing, smps):
+                    got[_vkey(v)] = smp
         return [memo[_vkey(v)] for v in vs]
 
-    def _analyse(self, key, struct: _Struct, vs: list) -> list[_Sample]:
+    def families(self, key) -> dict:
+        """Shape index -> the indices of the shapes that differ from it only in which
+        unilateral candidate ends the region at each of its ends."""
+        if key not in self.family:
+            groups: dict = {}
+            for si, st in enumerate(self.shapes(key)):
+                sig = (tuple(x.name for x in st.stages), tuple((n, c[:2], c[2] < 0 and c[2]) for n, c in st.terms),
+                       tuple(st.bufs))
+                groups.setdefault(sig, []).append(si)
+            self.family[key] = {si: g for g in groups.values() for si in g}
+        return self.family[key]
+
+    def _analyse(self, key, family: list, vs: list) -> list[list[_Sample]]:
         src, start, _, _ = self._start(key)
-        stages = ([start] if start is not None else []) + struct.stages
+        struct = self.shapes(key)[family[0]]
+        n, g = len(vs), len(family)
+        stages = [start] if start is not None else []
+        for x in struct.stages:
+            slot = next((j for j, (nm, c) in enumerate(struct.terms) if nm == x.name and c[2] >= 0), None)
+            if slot is None:
+                stages.append(x)
+                continue
+            picks = [self.shapes(key)[sj].terms[slot][1][2] for sj in family]
+            multi = _Terminals([(self.terminals[o], self.cands[o].stage.params) for o in sorted(set(picks))])
+            order = sorted(set(picks))
+            multi.choice = np.repeat([order.index(o) for o in picks], n)
+            stages.append(_ModelStage(name=x.name, kind=x.kind, params={}, parent=x.parent, adapter=multi))
         sub = Chain(name=self.chain.name, description="", source=src, stages=stages, rails=self.chain.rails,
                     temp_k=self.chain.temp_k, analysis=Analysis(f_ref_hz=self.chain.analysis.f_ref_hz),
                     path=self.chain.path)
         params = nominal_params(sub)
+        vs = list(vs) * g                  # samples: every shape of the family at every DC level
         n = len(vs)
         if key != ROOT:
             params[src.name]["dc"] = np.asarray(vs, dtype=float).reshape(n, 1)
@@ -562,9 +624,10 @@ class Search:
         if out_t is not None:
             finite &= np.all(np.isfinite(out_t), axis=1)
         valid &= finite
-        return [_Sample(bool(valid[i]), room[:, i], t[:, i], term_v[:, i], term_t[:, i, :],
-                        None if out_t is None else out_t[i], float(cost[i]), float(power[i]), len(bufs))
-                for i in range(n)]
+        per = n // len(family)
+        return [[_Sample(bool(valid[i]), room[:, i], t[:, i], term_v[:, i], term_t[:, i, :],
+                         None if out_t is None else out_t[i], float(cost[i]), float(power[i]), len(bufs))
+                 for i in range(k * per, (k + 1) * per)] for k in range(len(family))]
 
     @staticmethod
     def _parent(stages, name):
