@@ -67,8 +67,15 @@ and its figures are the ones reported.  The engine's own DC iteration (for
 base currents) settles to 1e-9 V, so chains with emitter followers agree with
 full analyses to that level.
 
-Complexity: one engine call per (state group, region shape), linear in the
-chain's length for a fixed density of cuts and DC resets; the label sets are
+Cost-bounded deepening: prices, part counts and fixed powers are known before
+any analysis, so a run with cost bound B skips every region shape that would
+take a path over B (bounds 0, the cheapest candidate, then doubling); a
+solution within B is optimal because every placement costing at most B was
+explored.
+
+Complexity: one engine call per (state group, family of region shapes that
+differ only in which unilateral candidate ends them), linear in the chain's
+length for a fixed density of cuts and DC resets; the label sets are
 bounded by the number of cost/gain trade-offs that stay non-dominated — the
 problem contains knapsack (gains multiply, costs add), so no exact method is
 polynomial in the worst case.
