@@ -170,19 +170,12 @@ def _figures(ev: Evaluation, with_noise: bool) -> _Figures:
 
 
 def _snr_db(ev: Evaluation) -> float | None:
+    """SNR at the converter when the noise analysis is installed, else None."""
     try:
         from .noise import analyse_noise
     except ImportError:
         return None
     return float(np.ravel(analyse_noise(ev).snr_db)[0])
-
-
-def _noise_available() -> bool:
-    try:
-        from . import noise  # noqa: F401
-    except ImportError:
-        return False
-    return True
 
 
 def _edge(x) -> float | None:
@@ -248,10 +241,10 @@ def _problem_text(ev: Evaluation, buf: str) -> str:
 def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
     """Per-interface advice for ``chain`` over its candidates (``include:``/``candidates:``)."""
     cands = candidates_of(chain) if candidates is None else candidates
-    with_noise = _noise_available()
     ev0 = evaluate(chain)
     check_operating_points(chain, ev0.dc)
-    base = _figures(ev0, with_noise)
+    base = _figures(ev0, True)
+    with_noise = base.snr_db is not None
     basis = default_cost_basis(cands)
     rows = []
     for st in chain.stages:

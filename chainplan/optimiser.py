@@ -449,7 +449,6 @@ class _Features:
         return ok
 
 
-
 class Search:
     """Region analyses of one chain over one frequency grid, reused by every
     optimisation run on it (targets change; the analyses do not)."""

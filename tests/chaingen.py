@@ -79,7 +79,6 @@ def random_chain_text(seed: int, n_stages: int = 3, fanout: bool = False) -> str
     text += "stages:\n"
     for i in range(n_stages):
         text += _stage(rng, i)
-    last = f"s{n_stages - 1}"
     text += f"  - name: adc\n    kind: adc\n    bits: 12\n    fs_low: 0 V\n    fs_high: vdd\n" \
             f"    r_in: {rng.choice(['inf', '20k'])}\n    c_in: 20 pF\n    ref: vmid\n"
     if fanout:            # a meter hangs on an inner node: a tree with a side branch
