@@ -10,6 +10,9 @@ from .console import table_box
 
 #: inputs with a smaller share of the variance are summarised in one row
 MIN_SHARE = 5e-4
+#: interfaces losing less than this in every sample are summarised in one row (dB)
+LOSS_QUIET_DB = 0.005
+
 
 def _rows(res: McResult, nominal):
     """(key, nominal value, Stats) of every metric with a finite spread to show."""
@@ -39,11 +42,18 @@ def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
 
     t = Table(title="Distribution (valid samples)", box=bx, title_justify="left")
     for col in ("figure", "nominal", "mean", "σ", "0.1 %", "median", "99.9 %"):
-        t.add_column(col, justify="left" if col == "figure" else "right")
+        t.add_column(col, justify="left" if col == "figure" else "right", no_wrap=True)
+    quiet = 0
     for key, n0, s in _rows(res, nominal):
         text, unit, _ = metric_info(c, key)
-        t.add_row(text, show(n0, unit), show(s.mean, unit), _sigma(s.std, unit), show(s.p_low, unit),
-                  show(s.median, unit), show(s.p_high, unit))
+        if key.startswith("loading_loss_db.") and max(abs(n0), abs(s.p_low), abs(s.p_high)) < LOSS_QUIET_DB:
+            quiet += 1                      # interfaces that never lose a measurable amount
+            continue
+        t.add_row(text.replace("loading loss ", "loss "), show(n0, unit), show(s.mean, unit), _sigma(s.std, unit),
+                  show(s.p_low, unit), show(s.median, unit), show(s.p_high, unit))
+    if quiet:
+        t.caption = f"{quiet} more interface{'s' * (quiet != 1)} lose less than {LOSS_QUIET_DB} dB in every sample"
+        t.caption_justify = "left"
     console.print(t)
 
     if res.requirements:
