@@ -40,7 +40,7 @@ def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
     if not res.inputs:
         console.print("no tolerances or corners in this spec: every sample is the nominal chain")
 
-    t = Table(title="Distribution (valid samples)", box=bx, title_justify="left")
+    t = Table(title="Distribution (valid samples)", box=bx, title_justify="left", pad_edge=False)
     for col in ("figure", "nominal", "mean", "σ", "0.1 %", "median", "99.9 %"):
         t.add_column(col, justify="left" if col == "figure" else "right", no_wrap=True)
     quiet = 0
