@@ -13,15 +13,15 @@ from .errors import SpecError, UsageError
 #: command name -> (module, one-line help).  Modules import heavy libraries inside run().
 COMMANDS = {
     "budget": ("chainplan.commands.budget", "compute and print the budget of a chain"),
+    "buffers": ("chainplan.commands.buffers", "where a buffer pays off, what it costs, and the cheapest placement"),
     "noise": ("chainplan.commands.noise", "noise contributors, SNR, dynamic range and ENOB at the converter"),
     "check": ("chainplan.commands.check", "check the requirements of one or more chains (exit 1 if any fails)"),
     "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, yield, what drives the spread"),
     "compare": ("chainplan.commands.compare", "what a change did to the budget: two specs, or one at two git revisions"),
-    "netlist": ("chainplan.commands.netlist", "export a chain as a SPICE netlist (op, AC and noise analyses)"),
-    "schema": ("chainplan.commands.schema", "print the JSON Schema of chain specs (for editors)"),
-    "buffers": ("chainplan.commands.buffers", "where a buffer pays off, what it costs, and the cheapest placement"),
     "plot": ("chainplan.commands.plot", "draw the level diagram, gain, noise and Monte Carlo figures (PNG, SVG)"),
     "report": ("chainplan.commands.report", "write a self-contained HTML review report of a chain"),
+    "netlist": ("chainplan.commands.netlist", "export a chain as a SPICE netlist (op, AC and noise analyses)"),
+    "schema": ("chainplan.commands.schema", "print the JSON Schema of chain specs (for editors)"),
 }
 
 
