@@ -50,7 +50,9 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv=None) -> int:
     try:
         args = build_parser().parse_args(argv)
-        return int(args._run(args) or 0)
+        rc = int(args._run(args) or 0)
+        sys.stdout.flush()              # surface a full disk or closed pipe here, not at exit
+        return rc
     except SpecError as exc:
         sys.stderr.write(f"chainplan: {exc}\n")
         return 2
@@ -62,6 +64,10 @@ def main(argv=None) -> int:
         return 130
     except BrokenPipeError:
         return 0
+    except OSError as exc:              # the machine, not chainplan: full disk, unreadable file
+        sys.stderr.write(f"chainplan: error: {exc.strerror or exc}" + (f": '{exc.filename}'" if exc.filename else "")
+                         + "\n")
+        return 2
     except Exception as exc:  # a bug in chainplan, not in the user's input
         if os.environ.get("CHAINPLAN_DEBUG"):
             raise

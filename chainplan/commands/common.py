@@ -7,10 +7,11 @@ from ..errors import UsageError
 from ..units import UnitError, parse_value
 
 
-def add_analysis_options(p):
+def add_analysis_options(p, json: bool = True):
     p.add_argument("--at", metavar="FREQ", help="reference frequency, e.g. '1 kHz' (default: the spec's f_ref)")
     p.add_argument("--span", metavar="LOW:HIGH", help="frequency span, e.g. '1 Hz:10 MHz' (default: the spec's)")
-    p.add_argument("--json", action="store_true", help="print JSON instead of tables")
+    if json:
+        p.add_argument("--json", action="store_true", help="print JSON instead of tables")
 
 
 def apply_analysis_options(chain, args):

@@ -15,7 +15,7 @@ def add_arguments(p):
                    help="folder for the files, created if needed (default: the current folder)")
     p.add_argument("--only", metavar="NAMES", help="comma-separated subset of: " + ", ".join(WHICH))
     add_montecarlo_options(p)
-    add_analysis_options(p)
+    add_analysis_options(p, json=False)
 
 
 def add_montecarlo_options(p):
@@ -57,8 +57,6 @@ def run(args) -> int:
         raise UsageError("--only montecarlo needs --mc N (the number of samples)")
     check_folder(args.out)                       # refuse a bad folder before any work
     b, noise, mc = analyse_for_pictures(args)
-    if args.json:
-        raise UsageError("plot writes files; --json is not available here")
     from ..render import plots
     figs = {k: v for k, v in plots.figures(b, noise, mc).items() if k in wanted}
     stem = os.path.splitext(os.path.basename(args.file))[0]

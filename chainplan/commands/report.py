@@ -12,14 +12,12 @@ def add_arguments(p):
     p.add_argument("-o", "--output", metavar="PATH",
                    help="the HTML file to write (default: <spec name>-report.html in the current folder)")
     add_montecarlo_options(p)
-    add_analysis_options(p)
+    add_analysis_options(p, json=False)
 
 
 def run(args) -> int:
     from ..errors import UsageError
     from ..render.files import check_folder, write_atomic
-    if args.json:
-        raise UsageError("report writes an HTML file; for JSON use 'chainplan budget --json'")
     path = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-report.html"
     check_folder(os.path.dirname(path))          # refuse a bad folder before any work
     b, noise, mc = analyse_for_pictures(args)

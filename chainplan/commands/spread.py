@@ -10,7 +10,7 @@ from .common import add_analysis_options, apply_analysis_options
 
 
 def add_arguments(p):
-    p.add_argument("file", help="chain spec (YAML) with tolerances (e.g. '10k ±1%') and/or corners:")
+    p.add_argument("file", help="chain spec (YAML) with tolerances (e.g. '10k ±1%%') and/or corners:")
     p.add_argument("-n", "--samples", type=int, default=10000, help="number of samples (default 10000)")
     p.add_argument("--seed", type=int, default=1, help="random seed; the same seed gives the same numbers (default 1)")
     p.add_argument("--rank", metavar="METRIC", help="rank the inputs by their share of this metric's or "

@@ -1,10 +1,15 @@
 """Writing output files all-or-nothing: every file goes to a temporary file in
 its own folder first and is moved into place with ``os.replace`` only when all
 of them were written, so a failure never leaves a half-written or partial set
-of outputs behind."""
+of outputs behind.  Only regular files are replaced that way: ``-`` means
+standard output, and an existing device or pipe (``/dev/stdout``, a FIFO) is
+written to directly — replacing it would destroy it.  A symbolic link to a
+regular file has its target replaced, not the link."""
 from __future__ import annotations
 
 import os
+import stat
+import sys
 import tempfile
 
 from ..errors import UsageError
@@ -45,18 +50,29 @@ def check_folder(folder: str) -> str:
 def write_atomic(files: dict[str, bytes | str]) -> list[str]:
     """Write every ``path -> content`` (text is UTF-8) or none of them; returns the paths."""
     staged: list[tuple[str, str]] = []
+    streams: list[tuple[str, bytes]] = []
     path = ""
     try:
         for path, content in files.items():
-            folder = ensure_folder(os.path.dirname(path))
+            data = content.encode("utf-8") if isinstance(content, str) else content
+            kind, target = _target(path)
+            if kind == "stream":
+                streams.append((target, data))
+                continue
+            folder = ensure_folder(os.path.dirname(target))
             fd, tmp = tempfile.mkstemp(prefix=".chainplan-", suffix=".part", dir=folder)
-            staged.append((tmp, path))
+            staged.append((tmp, target))
             with os.fdopen(fd, "wb") as fh:
-                fh.write(content.encode("utf-8") if isinstance(content, str) else content)
+                fh.write(data)
             os.chmod(tmp, 0o666 & ~_umask())        # as an ordinary new file, not mkstemp's 0600
-        for tmp, path in staged:
-            if os.path.isdir(path):
-                raise UsageError(f"cannot write '{path}': a folder of that name exists")
+        for path, data in streams:
+            if path == "-":
+                sys.stdout.flush()
+                sys.stdout.buffer.write(data)
+                sys.stdout.buffer.flush()
+            else:
+                with open(path, "wb") as fh:
+                    fh.write(data)
         for tmp, path in staged:
             os.replace(tmp, path)
     except OSError as exc:
@@ -65,7 +81,24 @@ def write_atomic(files: dict[str, bytes | str]) -> list[str]:
     except BaseException:
         _discard(staged)
         raise
-    return [path for _, path in staged]
+    return [path for _, path in staged] + [path for path, _ in streams]
+
+
+def _target(path: str) -> tuple[str, str]:
+    """('stream', path) for '-' and existing non-regular files, else ('file', real path)."""
+    if path == "-":
+        return "stream", path
+    if os.path.lexists(path):
+        try:
+            mode = os.stat(path).st_mode
+        except OSError:                      # a dangling link: replace the link itself
+            return "file", path
+        if stat.S_ISDIR(mode):
+            raise UsageError(f"cannot write '{path}': a folder of that name exists")
+        if not stat.S_ISREG(mode):
+            return "stream", path
+        return "file", os.path.realpath(path)
+    return "file", path
 
 
 def _umask() -> int:

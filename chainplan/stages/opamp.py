@@ -7,6 +7,7 @@ reduce to the textbook results (Sedra & Smith, *Microelectronic Circuits*,
 op-amp chapter; Franco, *Design with Operational Amplifiers*; from memory):
     non-inverting  G = A/(1 + A·β), β = RG/(RF + RG);  Zout = Ro/(1 + A·β)
     inverting      G = −(RF/RG)·Aβ/(1 + Aβ),  Zin ≈ RG + RF/(1 + A)
+    transimpedance Vout/Iin = −Zf·A/(1 + A),  Zin ≈ Zf/(1 + A),  Zf = RF ‖ 1/(sCF)
 with Ro's loading by the feedback network kept.
 """
 from __future__ import annotations
@@ -14,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 
 from .base import ABCD, DcLoad, Field, Op, StageKind, chain, dc_source, inv, shunt_y
-from .noise_sources import NoiseSource, density, input_noise_fields, thermal_v
+from .noise_sources import NoiseSource, density, input_noise_fields, thermal_i, thermal_v
 
 COMMON = {
     "gbw": Field("Hz", "gain–bandwidth product", required=True, positive=True),
@@ -101,6 +102,13 @@ class _OpAmp(StageKind):
         v_open = ref + (v_in - ref) / m.A
         out, cm = self._limits(p)
         op = Op(values=dict(power_w=self._power(p)), in_range=cm, out_range=out)
+        railed = (v_open < out[0]) | (v_open > out[1])
+        if np.any(railed):
+            v = float(np.ravel(v_open + 0.0 * railed)[np.argmax(np.ravel(railed))])
+            op.flag(railed, "ref" if "ref" in p else ("v_pos" if v > 0 else "v_neg"),
+                    f"the output would sit at {v:.3g} V, outside its output range "
+                    f"{float(np.min(out[0])):.3g} V … {float(np.max(out[1])):.3g} V: the op-amp saturates at DC "
+                    "(check the input's DC level, the reference and the gain)")
         return dc_source(v_open, m.B / m.A), op
 
 
@@ -168,4 +176,58 @@ class OpampInverting(_OpAmp):
         return st, op
 
 
-KINDS = [OpampFollower, OpampNoninverting, OpampInverting]
+class OpampTransimpedance(OpampInverting):
+    kind, title = "opamp_transimpedance", "op-amp transimpedance amplifier, Vout = ref − Iin·(RF ‖ CF)"
+    gain_unit = "Ω"          # the stage gain the budget reports: Vout/Iin, a transimpedance
+    FIELDS = {**COMMON,
+              "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, positive=True),
+              "c_f": Field("F", "feedback capacitor across r_f", default="0 F", minimum=0.0),
+              "ref": Field("V", "voltage at the + input (the virtual ground's level)", default="0 V", rail_ok=True)}
+
+    def abcd(self, p, s, op):
+        """The inverting stage's nodal analysis with RG → 0 and RF → Zf = RF ‖ 1/(sCF),
+        Yf = 1/Zf: k = 1/(A − Ro·Yf); Vm = V1 = −k(1 + Ro·Yf)·V2 − k·Ro·I2;
+        I1 = (Vm − V2)·Yf; the input shunt 1/r_in + s·c_in sits at the − input.
+        For A → ∞ the transimpedance V2/I1 is −Zf (pole 1/(2π·RF·CF)), and
+        Zin = Zf/(1 + A) at DC (Graeme, *Photodiode Amplifiers*, ch. 1–2, from memory)."""
+        ia = inv_open_loop(p, s)
+        yf, ro = self._yf(p, s), p["r_out"]
+        k = ia / (1.0 - ro * yf * ia)
+        vm_v2, vm_i2 = -k * (1.0 + ro * yf), -k * ro
+        core = ABCD(vm_v2, vm_i2, (vm_v2 - 1.0) * yf, vm_i2 * yf)
+        y_in = inv(p["r_in"]) + s * p["c_in"]
+        return chain(shunt_y(y_in), core) if np.any(y_in != 0) else core
+
+    @staticmethod
+    def _yf(p, s):
+        return 1.0 / p["r_f"] + s * p["c_f"]
+
+    def noise(self, p, s, op, temp_k):
+        """en at the + input (on ref), in− into the − node, RF's thermal noise as a
+        current 4kT/RF across Zf (it leaves the input node and enters the output
+        node: in_i = out_i = 1).  Nodal analysis as in abcd with en in place gives
+        Vm = V1 = (noiseless) + kA·en, kA = 1/(1 − Ro·Yf/A), and
+        I1 = (noiseless) + kA·(Yin + Yf)·en; with a source admittance Ys the output
+        sees en·(1 + Zf·(Ys + Yin)), the TIA's rising noise gain (Graeme,
+        *Photodiode Amplifiers*, noise chapter, from memory); in+ works into the
+        stiff ref and adds nothing."""
+        yf = self._yf(p, s)
+        ka = 1.0 / (1.0 - p["r_out"] * yf * inv_open_loop(p, s))
+        y_in = inv(p["r_in"]) + s * p["c_in"]
+        return [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=ka, in_i=ka * (y_in + yf)),
+                NoiseSource("in−", density(p["in"], s, p["in_corner"]), in_i=-1.0),
+                NoiseSource("r_f thermal", thermal_i(p["r_f"], temp_k), in_i=1.0, out_i=1.0)]
+
+    def dc_input_load(self, p, out_load, op):
+        """The − input held near ref by the loop, solved exactly with the output load:
+        with V' = V − ref, I2 = G_L·V2' + J (J = G_L·ref − I0_L), the DC two-port gives
+        I1 = Y·V1' + J·(D − Y·B), Y = (C + D·G_L)/(A + B·G_L); plus r_in to ground."""
+        m = OpampTransimpedance.abcd(self, {**p, "r_in": np.inf, "c_in": 0.0}, 0.0, None)
+        gl = out_load.G
+        j = gl * p["ref"] - out_load.I0
+        y = (m.C + m.D * gl) / (m.A + m.B * gl)
+        g_in = inv(p["r_in"])
+        return DcLoad(y + g_in, y * p["ref"] - j * (m.D - y * m.B))
+
+
+KINDS = [OpampFollower, OpampNoninverting, OpampInverting, OpampTransimpedance]
