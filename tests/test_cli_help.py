@@ -1,0 +1,42 @@
+"""Every command's help shows, and a railed amplifier is not reported as working."""
+from __future__ import annotations
+
+import pytest
+
+from chainplan.cli import COMMANDS, main
+
+
+@pytest.mark.parametrize("command", sorted(COMMANDS))
+def test_every_command_has_help(command, capsys):
+    with pytest.raises(SystemExit) as exc:
+        main([command, "--help"])
+    out = capsys.readouterr().out
+    assert exc.value.code == 0 and out.startswith("usage: chainplan " + command)
+
+
+RAILED = """
+name: railed
+rails: {vdd: 3.3 V, vmid: 1.65 V}
+source: {name: bridge, kind: sensor, amplitude: 1 mV, dc: 1.75 V, r: 1k}
+stages:
+  - name: amp
+    kind: opamp_noninverting
+    gbw: 1 MHz
+    r_f: 100k
+    r_g: 1k
+    ref: vmid          #<
+  - {name: adc, kind: adc, bits: 12, fs_low: 0 V, fs_high: vdd}
+requirements:
+  - min_gain: 30 dB
+"""
+
+
+@pytest.mark.parametrize("command", ["budget", "check", "noise"])
+def test_an_op_amp_railed_at_dc_is_an_error_not_a_pass(command, cli, spec_file):
+    """100 mV of offset times a gain of 101 puts the output at 11.7 V on a 3.3 V supply:
+    the op-amp saturates (common practice), so no gain or SNR figure may be reported."""
+    path = spec_file(RAILED)
+    rc, out, err = cli(command, path)
+    line = RAILED.splitlines().index("    ref: vmid          #<") + 1
+    assert rc == 2 and out == ""
+    assert f":{line}: amp.ref:" in err and "saturates" in err
