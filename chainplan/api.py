@@ -18,6 +18,7 @@ from .spec import load_chain, load_chain_text
 #: its summary rows (``b.extra_summary``) and JSON keys (``b.extra_json``).
 BUDGET_HOOKS: list[str] = [
     "chainplan.noise:attach_to_budget",
+    "chainplan.aliasing:attach_to_budget",
     "chainplan.requirements:attach_to_budget",
 ]
 

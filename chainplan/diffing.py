@@ -159,7 +159,7 @@ def _chain_fields(c: Chain, whole: set) -> dict:
         out[f"rails.{rail}"] = f"{v:g} V" + (f" {_tol_text(tol)}" if tol else "")
     out["temperature"] = f"{c.temp_k:g} K"
     a = c.analysis
-    for k in ("f_ref_hz", "f_start_hz", "f_stop_hz", "points", "output"):
+    for k in ("f_ref_hz", "f_start_hz", "f_stop_hz", "points", "output", "noise_band_hz"):
         out[f"analysis.{k}"] = str(getattr(a, k))
     for r in c.extra.get("requirements", []):
         out[f"requirements.{r.name}"] = r.describe()

@@ -39,6 +39,7 @@ class Analysis:
     f_stop_hz: float = 1e8
     points: int = 401
     output: str | None = None          # a load stage or node; default: the first ADC
+    noise_band_hz: tuple | None = None  # (low, high) the noise is integrated over; None: the span
 
 
 @dataclass

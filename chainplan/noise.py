@@ -21,9 +21,11 @@ stage of a side branch) draws ``I1 = Yin·(V − in_v·n) + in_i·n``, which is
 deeper in a side branch are neglected (listed in ``NoiseResult.neglected``).
 
 Independent generators add in power; the output PSD is integrated over the
-analysis span (or a brick-wall band the caller asks for) with the trapezoid
-rule.  Converter noise (quantisation q²/12, the converter's own rms noise) is a
-power, spread flat over the integration band.  Everything is vectorised over
+analysis span, or the spec's ``analysis.noise_band``, or a brick-wall band the
+caller asks for, with the trapezoid rule.  Converter noise (quantisation q²/12,
+the converter's own rms noise) is a power, spread flat over the integration
+band; with the converter's ``f_sample`` it is spread flat over 0…f_sample/2 and
+only the part inside the band counts (the oversampling gain).  Everything is vectorised over
 ``(samples, frequencies)``; the only Python loop runs over the generators.
 """
 from __future__ import annotations
@@ -70,8 +72,11 @@ class NoiseResult:
 
 def analyse_noise(ev: Evaluation, bandwidth_hz=None) -> NoiseResult:
     """Noise at the output node of an evaluation.  ``bandwidth_hz``: None integrates
-    over the whole span; a number ``B`` integrates from the span's start to ``B``;
-    a pair ``(low, high)`` integrates between them (brick-wall edges)."""
+    over the spec's ``analysis.noise_band`` or, without one, the whole span; a
+    number ``B`` integrates from the span's start to ``B``; a pair ``(low, high)``
+    integrates between them (brick-wall edges)."""
+    declared = bandwidth_hz is None and ev.chain.analysis.noise_band_hz is None
+    bandwidth_hz = ev.chain.analysis.noise_band_hz if bandwidth_hz is None else bandwidth_hz
     band = integration_band(ev.span, bandwidth_hz)
     w = band_weights(ev.span, *band)
     gens = output_psds(ev, float(np.sum(w)))
@@ -100,7 +105,7 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None) -> NoiseResult:
         enob_bits=(snr_fs - ENOB_OFFSET_DB) / DB_PER_BIT, output=ev.output, converter=conv, band_hz=band,
         gain_ref=gain_ref, vrms={n: np.sqrt(p) for n, p in powers.items()},
         stage_of={name: stage for stage, name, _, _ in gens},
-        neglected=neglected_stages(ev), notes=noise_notes(ev))
+        neglected=neglected_stages(ev), notes=noise_notes(ev) + (span_notes(ev) if declared else []))
 
 
 def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):
@@ -108,7 +113,7 @@ def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):
     the same operating points): (total V/√Hz (S, K), |gain| (S, K), contributors
     [(name, V²/Hz (S, K))]).  Converter noise is spread as in analyse_noise."""
     f_hz = np.asarray(f_hz, dtype=float)
-    band = integration_band(ev.span, bandwidth_hz)
+    band = integration_band(ev.span, ev.chain.analysis.noise_band_hz if bandwidth_hz is None else bandwidth_hz)
     bw = float(np.sum(band_weights(ev.span, *band)))
     grid = np.concatenate(([ev.f_hz[0]], f_hz))
     ev_k = replace(ev, f_hz=grid, ac=run_ac(ev.chain, ev.params, ev.dc.ops, grid))
@@ -121,7 +126,11 @@ def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):
 
 def output_psds(ev: Evaluation, bandwidth: float) -> list:
     """Every generator's PSD at the output over ev.f_hz: [(stage, name, (S, F+1)
-    V²/Hz, power (S,) or None)].  Converter powers come with a flat PSD power/bandwidth."""
+    V²/Hz, power (S,) or None)].  Converter powers come with a flat PSD power/bandwidth;
+    with a sample rate only the share bandwidth/(f_sample/2) of them (at most all) is
+    in band: q²/12 spreads evenly over 0…f_sample/2, so the in-band part of a band B
+    is q²/12·B/(f_sample/2), an oversampling gain of 10·log10(f_sample/(2B)) (Kester,
+    Analog Devices MT-001, from memory)."""
     chain, ac = ev.chain, ev.ac
     out = ev.output
     s = (2j * np.pi * ev.f_hz)[None, :]
@@ -129,6 +138,8 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
     shape = (ev.samples, h.shape[1])
     on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
     conv, _ = converter(ev)
+    f_sample = sample_rate(ev.chain, conv)
+    in_band = 1.0 if f_sample is None else min(1.0, bandwidth / (f_sample / 2.0))
     res = []
     for st in chain.all_stages:
         if st.name not in on_path and st.parent not in on_path:
@@ -138,7 +149,7 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
             name = f"{st.name}: {g.label}"
             if g.power_v2 is not None:
                 if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
-                    power = np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float)), (shape[0],))
+                    power = np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float)) * in_band, (shape[0],))
                     res.append((st.name, name, np.broadcast_to(power[:, None] / bandwidth, shape), power))
                 continue
             if not np.any(np.asarray(g.psd) != 0):
@@ -176,6 +187,26 @@ def noise_notes(ev: Evaluation) -> list:
             notes.append(f"'{st.name}' has no en/in given: its {st.kind} counts as noiseless "
                          "(only its resistors add noise)")
     return notes
+
+
+def span_notes(ev: Evaluation, margin_db: float = 20.0) -> list:
+    """Without a declared band: a note when the response at f_stop is less than
+    ``margin_db`` below the gain at f_ref (noise above the span would count)."""
+    g = np.abs(ev.gain())
+    with np.errstate(divide="ignore"):
+        drop = 20.0 * np.log10(g[:, 0] / g[:, -1])
+    if np.all(drop >= margin_db):
+        return []
+    return [f"the response at f_stop is only {float(np.min(drop)):.1f} dB below the gain at f_ref: noise "
+            "beyond the span is not counted (widen f_stop or declare analysis.noise_band)"]
+
+
+def sample_rate(chain, adc_name: str | None):
+    """The ``f_sample`` of the named ADC stage (Hz), or None when it has none."""
+    if adc_name is None:
+        return None
+    f = chain.stage(adc_name).params.get("f_sample")
+    return None if f is None else float(f)
 
 
 def converter(ev: Evaluation):
@@ -242,7 +273,7 @@ def attach_to_budget(b: Budget) -> None:
     r = analyse_noise(b.ev)
     f = lambda x: float(np.ravel(x)[0])  # noqa: E731
     rows = [("noise at the output (rms)", fmt(f(r.out_vrms), "V")),
-            ("noise referred to the input (rms)", fmt(f(r.in_vrms), "V")),
+            ("noise referred to the input (rms)", fmt(f(r.in_vrms), b.ev.signal_unit)),
             ("SNR of the signal", _db_text(f(r.snr_db)))]
     if r.converter:
         rows += [("SNR of a full-scale sine", _db_text(f(r.snr_fs_db))),
@@ -250,8 +281,13 @@ def attach_to_budget(b: Budget) -> None:
     top = r.ranked[0] if r.ranked else None
     if top is not None and np.isfinite(f(r.shares[top])):
         rows.append(("largest noise contributor", f"{top} ({100 * f(r.shares[top]):.0f} %)"))
+    if b.ev.chain.analysis.noise_band_hz is not None:
+        rows.append(("noise band", f"{fmt(r.band_hz[0], 'Hz')} … {fmt(r.band_hz[1], 'Hz')}"))
+    else:
+        rows += [("noise note", n) for n in span_notes(b.ev)]
     b.extra_summary.extend(rows)
     b.extra_json.update(noise_json(r, brief=True))
+    b.extra_json["noise_band_hz"] = [float(r.band_hz[0]), float(r.band_hz[1])]
 
 
 def noise_json(r: NoiseResult, brief: bool = False) -> dict:

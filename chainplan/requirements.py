@@ -56,6 +56,8 @@ KINDS: dict[str, Kind] = {k.key: k for k in (
     Kind("min_enob", "min_enob_bits", "1", "bits", "min", (), "effective number of bits at the converter"),
     Kind("max_buffer_power", "max_buffer_power_w", "W", "W", "max", ("stages",),
          "total power of the follower stages (or stages:)"),
+    Kind("min_alias_rejection", "min_alias_rejection_db", "dB", "dB", "min", (),
+         "gain drop from f_ref to the first frequency the ADC folds into the band"),
 )}
 NOISE_KINDS = ("min_snr", "min_enob")
 
@@ -162,6 +164,10 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
         raise err("a band edge limit must be above 0 Hz", k.key)
     if k.key in NOISE_KINDS and importlib.util.find_spec("chainplan.noise") is None:
         raise err(f"{k.key} needs the noise analysis, which this version of chainplan does not have", k.key)
+    if k.key == "min_alias_rejection":
+        from .aliasing import sampling_adc
+        if sampling_adc(chain) is None:
+            raise err("min_alias_rejection needs an ADC with 'f_sample' reading the output node", k.key)
     at = _freq(item, "at", err) if "at" in item else None
     band = None
     if k.key == "flatness":
@@ -330,9 +336,14 @@ def _power(v: _Views, r):
     return total + np.zeros(v.n), None
 
 
+def _alias(v: _Views, r):
+    from .aliasing import alias_check
+    return alias_check(v.ev).value_db, None
+
+
 _VALUE = {"min_gain": _gain_db, "max_gain": _gain_db, "flatness": _flatness, "min_f_high": _f_high,
           "max_f_low": _f_low, "min_headroom": _headroom, "max_loading_loss": _loading, "min_snr": _snr,
-          "min_enob": _enob, "max_buffer_power": _power}
+          "min_enob": _enob, "max_buffer_power": _power, "min_alias_rejection": _alias}
 
 
 def evaluate_requirements(ev, reqs=None) -> list[ReqResult]:

@@ -134,7 +134,9 @@ def chain_schema() -> dict:
             "f_start": {**hz, "description": "start of the log-spaced analysis span"},
             "f_stop": {**hz, "description": "end of the analysis span"},
             "points": {"type": "integer", "minimum": 10, "maximum": 100000, "description": "frequency points"},
-            "output": {"type": "string", "description": "the load or node end-to-end figures refer to"}}},
+            "output": {"type": "string", "description": "the load or node end-to-end figures refer to"},
+            "noise_band": {"type": "array", "items": hz, "minItems": 2, "maxItems": 2,
+                           "description": "band the noise is integrated over, [LOW, HIGH] inside the span"}}},
     }
     unknown = [k for k in spec.TOP_KEYS if k not in props]
     props.update({k: _section_schema(k) for k in unknown})

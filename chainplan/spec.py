@@ -20,7 +20,8 @@ from .yamlsrc import LDict, LList, load_file, load_text
 HAZARDS = ("mains", "high_voltage", "patient")
 TOP_KEYS = ("name", "description", "hazards", "temperature", "rails", "source", "stages", "analysis",
             "requirements", "include", "candidates", "corners")
-ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None}
+ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None,
+                 "noise_band": "Hz"}
 NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 
 #: Sections owned by feature modules: key -> "module:function(chain, node, path)".
@@ -317,4 +318,29 @@ def _analysis(ctx, doc, chain) -> Analysis:
             raise ctx.err(f"'{out}' is not a stage of this chain" + nearest(str(out), names),
                           node.line_of("output"), "analysis.output")
         a.output = out
+    if "noise_band" in node:
+        a.noise_band_hz = _noise_band(ctx, node, a)
     return a
+
+
+def _noise_band(ctx, node, a) -> tuple:
+    """``noise_band: [LOW, HIGH]``: two frequencies, in order, inside the span."""
+    line, where = node.line_of("noise_band"), "analysis.noise_band"
+    raw = node["noise_band"]
+    if not isinstance(raw, list) or len(raw) != 2:
+        raise ctx.err("noise_band is a list of two frequencies, e.g. [50 Hz, 5 kHz]", line, where)
+    band = []
+    for r in raw:
+        try:
+            band.append(parse_value(r, "Hz"))
+        except UnitError as exc:
+            raise ctx.err(str(exc), line, where) from None
+    lo, hi = band
+    if not (lo > 0 and math.isfinite(hi)):
+        raise ctx.err("the noise band's ends must be positive, finite frequencies", line, where)
+    if not lo < hi:
+        raise ctx.err("the noise band's low end must be below its high end", line, where)
+    if lo < a.f_start_hz or hi > a.f_stop_hz:
+        raise ctx.err(f"the noise band {lo:g}…{hi:g} Hz must lie inside the analysis span "
+                      f"{a.f_start_hz:g}…{a.f_stop_hz:g} Hz (f_start … f_stop)", line, where)
+    return lo, hi

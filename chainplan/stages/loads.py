@@ -43,6 +43,8 @@ class Adc(_Load):
         "ref": Field("V", "voltage the input resistance returns to", default="0 V", rail_ok=True),
         "noise_rms": Field("V", "the converter's own noise referred to its input, rms, besides quantisation "
                            "(data sheet: transition noise, input-referred noise)", default="0 V", minimum=0.0),
+        "f_sample": Field("Hz", "sample rate (output word rate); given, converter noise spreads over 0…f_sample/2 "
+                          "and the anti-alias rejection is checked", positive=True, tolerable=False),
     }
 
     def op(self, p):
