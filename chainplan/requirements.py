@@ -289,13 +289,16 @@ def _flatness(v: _Views, r):
 
 
 def _f_high(v: _Views, r):
+    """No edge in the span: all that is shown is that the edge lies above f_stop, so
+    f_stop stands in for it (a limit beyond the span fails until the span is widened)."""
     f = v.edges[1]
-    return np.where(np.isnan(f), np.inf, f), None          # no edge in the span: above it
+    return np.where(np.isnan(f), v.ev.span[-1], f), None
 
 
 def _f_low(v: _Views, r):
+    """No edge in the span: the edge lies below f_start, which stands in for it."""
     f = v.edges[0]
-    return np.where(np.isnan(f), 0.0, f), None             # no edge in the span: below it
+    return np.where(np.isnan(f), v.ev.span[0], f), None
 
 
 def _headroom(v: _Views, r):

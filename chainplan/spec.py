@@ -210,7 +210,7 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
         raise ctx.err(f"unknown stage kind '{kind}'" + nearest(str(kind), REGISTRY), node.line_of("kind"), "kind")
     model = REGISTRY[kind]
     if is_source and model.role != "source":
-        raise ctx.err(f"the source must be of kind 'sensor', not '{kind}'", node.line_of("kind"), "kind")
+        raise ctx.err(f"the source must be a sensor (kind sensor or current_sensor), not '{kind}'", node.line_of("kind"), "kind")
     if not is_source and model.role == "source":
         raise ctx.err("a sensor is the chain's source: describe it under 'source:'", node.line_of("kind"), "kind")
     name = node.get("name", default_name)
@@ -311,6 +311,9 @@ def _analysis(ctx, doc, chain) -> Analysis:
         a.points = p
     if not a.f_start_hz < a.f_stop_hz:
         raise ctx.err("f_start must be below f_stop", node.line_of("f_start"), "analysis.f_start")
+    if not a.f_start_hz <= a.f_ref_hz <= a.f_stop_hz:
+        raise ctx.err(f"f_ref ({a.f_ref_hz:g} Hz) must lie inside the span f_start … f_stop "
+                      f"({a.f_start_hz:g} … {a.f_stop_hz:g} Hz)", node.line_of("f_ref"), "analysis.f_ref")
     if "output" in node:
         out = node["output"]
         names = [st.name for st in chain.all_stages]

@@ -26,6 +26,9 @@ def apply_analysis_options(chain, args):
         a.f_start_hz, a.f_stop_hz = _freq(lo, "--span"), _freq(hi, "--span")
         if not a.f_start_hz < a.f_stop_hz:
             raise UsageError("--span: the low end must be below the high end")
+    if not a.f_start_hz <= a.f_ref_hz <= a.f_stop_hz:
+        raise UsageError(f"the reference frequency {a.f_ref_hz:g} Hz lies outside the span "
+                         f"{a.f_start_hz:g} … {a.f_stop_hz:g} Hz: change --at or --span")
     return chain
 
 
