@@ -66,7 +66,15 @@ def test_band_edges_against_the_rc_corner():
     # the grid is interpolated in log f: 301 points over 7 decades, within 0.5 %
     assert r["min_f_high"].value[0] == pytest.approx(FC_HZ, rel=5e-3)
     assert not r["min_f_high"].passed[0]
-    assert r["max_f_low"].value[0] == 0.0 and r["max_f_low"].passed[0]     # DC-coupled: no lower edge
+    # DC-coupled: no lower edge in the span, so f_start (1 Hz) stands in for it and meets 1 Hz
+    assert r["max_f_low"].value[0] == 1.0 and r["max_f_low"].passed[0]
+
+
+def test_a_band_edge_limit_beyond_the_span_fails_until_the_span_is_widened():
+    """No upper edge below f_stop only shows the edge lies above f_stop."""
+    c = chain_from(RC_CHAIN.replace("f_stop: 10 MHz", "f_stop: 10 kHz") + "requirements:\n  - min_f_high: 50 kHz\n")
+    r = {x.name: x for x in check_chain(c)}
+    assert r["min_f_high"].value[0] == 10e3 and not r["min_f_high"].passed[0]
 
 
 def test_headroom_and_loading_loss_by_hand():
