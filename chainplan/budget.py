@@ -60,8 +60,14 @@ class Evaluation:
             bad = bad | ~np.isfinite(np.ravel(v))
         return ~bad
 
+    @property
+    def signal_unit(self) -> str:
+        """Unit of the source signal X the transfers refer to: 'V' (a voltage sensor,
+        V_node/Vs in V/V) or 'A' (a current sensor, V_node/Is in Ω)."""
+        return self.chain.source.model.signal_unit
+
     def gain(self, node: str | None = None):
-        """V_node/Vs over the grid, (S, F+1)."""
+        """V_node/X over the grid, (S, F+1); X is the source EMF or current (signal_unit)."""
         return self.ac.node_h[node or self.output]
 
     def peak(self, node: str):
@@ -77,10 +83,15 @@ class Evaluation:
         return np.minimum(np.ravel(hi) - (dc + pk), (dc - pk) - np.ravel(lo))
 
     def interface_loss_db(self, stage: str, col=slice(None)):
-        """Loading loss where ``stage`` reads its node: 20·log10|1/(1 + Zth·Yin)| (S, F+1);
-        ``col`` picks frequency columns (``col=0``: the reference frequency, (S,))."""
+        """Loading loss where ``stage`` reads its node: 20·log10|1/(1 + Zth·Yin)| (S, F+1),
+        the voltage divider of the Thevenin source and the load; where a stage reads a
+        current sensor it is the current divider 20·log10|Yin/(Ys + Yin)| — the share of
+        the sensor's current that enters the stage (Norton's theorem).  ``col`` picks
+        frequency columns (``col=0``: the reference frequency, (S,))."""
         a, b = (np.asarray(x)[:, col] for x in self.ac.branch_row[stage])
-        return 20 * np.log10(np.abs(a / (a + b * np.asarray(self.ac.y_in[stage])[:, col])))
+        y = np.asarray(self.ac.y_in[stage])[:, col]
+        num = b * y if self.signal_unit == "A" and self.chain.stage(stage).parent == self.chain.source.name else a
+        return 20 * np.log10(np.abs(num / (a + b * y)))
 
     def band_edges(self, node: str | None = None):
         """−3 dB edges around the reference frequency, per sample (nan where the
@@ -138,6 +149,7 @@ class StageRow:
     gain: float | None
     gain_db: float | None
     op: dict = field(default_factory=dict)
+    gain_unit: str = "V/V"     # 'Ω' for a stage whose gain is Vout/Iin (a transimpedance stage)
 
 
 @dataclass
@@ -179,6 +191,8 @@ class Budget:
     #: filled by feature modules (noise, requirements): summary rows and JSON keys
     extra_summary: list = field(default_factory=list)
     extra_json: dict = field(default_factory=dict)
+    #: unit of gain_db: 'dB' (V/V) for a voltage sensor, 'dBΩ' (V/A re 1 Ω) for a current sensor
+    gain_unit: str = "dB"
 
     @property
     def worst_interface(self) -> InterfaceRow | None:
@@ -218,12 +232,16 @@ def analyse(chain: Chain) -> Budget:
             a, b = ac.row[st.name]
             zout = _f(np.abs(b[:, 0] / a[:, 0]))
             g = ac.node_h[st.name][:, 0] / ac.node_h[st.parent][:, 0]
+            unit = getattr(st.model, "gain_unit", "V/V")
+            if unit == "Ω":                                 # Vout/Iin, Iin = V_in·Yin
+                g = g / ac.y_in[st.name][:, 0]
             gain = _f(np.abs(g))
             gain_db = 20 * np.log10(gain)
         else:
             zout = gain = gain_db = None
+            unit = "V/V"
         stages.append(StageRow(st.name, st.kind, zin, zout, gain, gain_db,
-                               {k: _f(v) for k, v in dc.ops[st.name].values.items()}))
+                               {k: _f(v) for k, v in dc.ops[st.name].values.items()}, unit))
     interfaces = []
     for st in chain.stages:
         a, b = ac.branch_row[st.name]
@@ -252,4 +270,5 @@ def analyse(chain: Chain) -> Budget:
     span_db = 20 * np.log10(np.abs(ev.gain()[0, 1:]))
     k = int(np.argmax(span_db))
     return Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs,
-                  peak_gain_db=float(span_db[k]), f_peak_hz=float(ev.span[k]))
+                  peak_gain_db=float(span_db[k]), f_peak_hz=float(ev.span[k]),
+                  gain_unit="dBΩ" if ev.signal_unit == "A" else "dB")

@@ -72,8 +72,7 @@ def run_ac(chain: Chain, params: dict, ops: dict, f_hz: np.ndarray) -> AcResult:
         y_in[st.name] = y
         node_y[st.parent] = node_y[st.parent] + y
     src = chain.source
-    zs = src.model.z_source(params[src.name], s)
-    row = {src.name: (np.ones_like(s) + 0.0 * zs, zs + 0.0 * s)}
+    row = {src.name: src.model.source_row(params[src.name], s)}   # (1, Zs) or Norton (Ys, 1)
     branch_row = {}
     readers = Counter(st.parent for st in chain.stages)
     for st in chain.stages:                                 # forward: Thevenin rows

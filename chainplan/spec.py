@@ -210,7 +210,8 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
         raise ctx.err(f"unknown stage kind '{kind}'" + nearest(str(kind), REGISTRY), node.line_of("kind"), "kind")
     model = REGISTRY[kind]
     if is_source and model.role != "source":
-        raise ctx.err(f"the source must be a sensor (kind sensor or current_sensor), not '{kind}'", node.line_of("kind"), "kind")
+        raise ctx.err(f"the source must be a sensor (kind sensor or current_sensor), not '{kind}'",
+                      node.line_of("kind"), "kind")
     if not is_source and model.role == "source":
         raise ctx.err("a sensor is the chain's source: describe it under 'source:'", node.line_of("kind"), "kind")
     name = node.get("name", default_name)

@@ -4,6 +4,8 @@ Every stage becomes the circuit chainplan's own model stands for:
 
 * the sensor: a voltage source ``DC <dc> AC 1 SIN(...)`` behind its R ‖ C
   (``AC 1``: every AC result is the transfer V(node)/Vs the budget reports);
+  a current sensor: a current source ``AC 1`` into its node with R ‖ C across
+  it (the AC results are then transimpedances V(node)/Is);
 * passive stages: their ladder sections (stages/passive.py) as R and C elements;
 * MOSFET stages: an NMOS with a ``level=1`` model card (KP, VTO, LAMBDA, GAMMA,
   PHI — SPICE's Shichman–Hodges model, which is the square law of
@@ -13,7 +15,8 @@ Every stage becomes the circuit chainplan's own model stands for:
 * the amplifier and op-amp macro models: a voltage-controlled current source
   into a conductance ‖ capacitor (the single pole, A0 and GBW or gain and
   f_3db), a unity voltage-controlled buffer, and the output resistance; the
-  op-amp feedback resistors RF and RG as real resistors;
+  op-amp feedback resistors RF and RG (a transimpedance stage's RF ‖ CF) as real
+  elements;
 * the ADC or load: R ‖ C to its reference.
 
 Supplies and bias voltages are DC voltage sources, one per declared rail (a
@@ -49,7 +52,7 @@ import numpy as np
 from .errors import SpecError
 from .model import Chain, Stage
 from .safety import safety_notice
-from .stages.base import K_BOLTZMANN
+from .stages.base import K_BOLTZMANN, Q_ELECTRON
 from .stages.passive import Passive
 
 #: Conductance of the op-amp/amplifier pole node, S (sets the scale of the pole network only).
@@ -87,7 +90,7 @@ def _num(x) -> str:
 
 
 _ASCII = {"µ": "u", "μ": "u", "Ω": "ohm", "Ω": "ohm", "−": "-", "–": "-", "—": "-", "±": "+/-", "²": "^2",
-          "√": "sqrt", "°": " deg", "‖": "||", "→": "->", "×": "x", "…": "..."}
+          "√": "sqrt", "·": "*", "°": " deg", "‖": "||", "→": "->", "×": "x", "…": "..."}
 
 
 def _ascii(text: str) -> str:
@@ -220,6 +223,19 @@ def _sensor(b: _Builder, st: Stage, p, _in):
     return node
 
 
+def _current_sensor(b: _Builder, st: Stage, p, _in):
+    """A current source ``DC <dc> AC 1 SIN(...)`` into the sensor node, with R ‖ C across it
+    (``AC 1`` A: every AC result is the transimpedance V(node)/Is the budget reports)."""
+    a = b.chain.analysis
+    node = b.new_node(st.name)
+    b.source_elem = b.elem("I", st.name, "0", node, "DC", _num(p["dc"]), "AC 1",
+                           f"SIN({_num(p['dc'])} {_num(p['amplitude'])} {_num(a.f_ref_hz)})")
+    b.r(st.name, node, "0", p["r"])
+    b.c(st.name, node, "0", p["c"])
+    b.noise_current(f"{st.name}_shot", node, math.sqrt(2 * Q_ELECTRON * abs(_val(p["dc"]))))   # 2q·|I|
+    return node
+
+
 def _passive(b: _Builder, st: Stage, p, node_in):
     """Any passive ladder from its own section list (series R/C, shunt R to a reference, shunt C)."""
     secs = st.model.sections(p)
@@ -281,6 +297,25 @@ def _opamp(b: _Builder, st: Stage, p, node_in):
         b.c(f"{st.name}_in", node_in, "0", p["c_in"])
     plus = _input_noise(b, st, p, plus, minus)
     b.pole_buffer(st.name, core, ref, plus, minus, a0, f_pole)
+    if ro != 0:
+        b.r(f"{st.name}_out", core, out, ro, noiseless=True)
+    return out
+
+
+def _opamp_transimpedance(b: _Builder, st: Stage, p, node_in):
+    """The op-amp macro with its (+) input on ``ref``, its (−) input on the stage input,
+    RF ‖ CF from the output back to it, and the input's r_in ‖ c_in to ground."""
+    a0 = 10.0 ** (_val(p["a0"]) / 20.0)
+    ref = b.volts(p["ref"], st)
+    ro = _val(p["r_out"])
+    out = b.new_node(st.name)
+    core = out if ro == 0 else b.new_node(f"{st.name}_int")
+    b.r(f"{st.name}_f", out, node_in, p["r_f"])
+    b.c(f"{st.name}_f", out, node_in, p["c_f"])
+    b.r(f"{st.name}_cm", node_in, "0", p["r_in"], noiseless=True)
+    b.c(f"{st.name}_in", node_in, "0", p["c_in"])
+    plus = _input_noise(b, st, p, ref, node_in)
+    b.pole_buffer(st.name, core, ref, plus, node_in, a0, _val(p["gbw"]) / a0)
     if ro != 0:
         b.r(f"{st.name}_out", core, out, ro, noiseless=True)
     return out
@@ -398,6 +433,8 @@ def _common_emitter(b: _Builder, st: Stage, p, node_in):
 
 EXPORTERS = {
     "sensor": _sensor,
+    "current_sensor": _current_sensor,
+    "opamp_transimpedance": _opamp_transimpedance,
     "adc": _load,
     "load": _load,
     "amplifier": _amplifier,
@@ -443,12 +480,15 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
     src_elem = b.source_elem
     t_c = chain.temp_k - 273.15
     amp = _num(params[src.name]["amplitude"])
+    unit = src.model.signal_unit
     header = [f"{_ascii(chain.name)} - SPICE netlist exported by chainplan",
               f"* from {_ascii(chain.path or 'a chain spec')}",
               *(f"* {_ascii(ln)}".rstrip() for ln in chain.description.splitlines()),
-              f"* The sensor source {src_elem} has AC 1: every AC result is the transfer V(node)/Vs",
-              f"* that the budget reports.  The signal itself is {amp} V peak (the SIN term).",
-              "* Noise: resistors, transistors, data-sheet en/in and bias-source noise (white parts);",
+              f"* The sensor source {src_elem} has AC 1: every AC result is the transfer V(node)/"
+              + ("Is (ohms)" if unit == "A" else "Vs"),
+              f"* that the budget reports.  The signal itself is {amp} {unit} peak (the SIN term).",
+              "* Noise: resistors, transistors, data-sheet en/in, bias-source and sensor shot noise",
+              "* (white parts);",
               "* an ADC's quantisation and own noise are not part of a SPICE noise analysis.",
               "* chainplan node -> SPICE node: " + ", ".join(f"{k} -> {v}" for k, v in b.nodes.items()),
               *(f"* {ln}" for ln in textwrap.wrap(_ascii(safety_notice(chain.hazards) or ""), 90))]
@@ -476,7 +516,7 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
         f"meas ac f_low_hz when vdb({out_node})=edge_db rise=last to={_num(a.f_ref_hz)}",
         f"meas ac f_high_hz when vdb({out_node})=edge_db fall=1 from={_num(a.f_ref_hz)}",
         "setplot noise2",
-        "echo Integrated noise over the span at the output and referred to the sensor in V rms:",
+        f"echo Integrated noise over the span at the output in V rms and referred to the sensor in {unit} rms:",
         "print onoise_total inoise_total",
         "quit",
         ".endc",

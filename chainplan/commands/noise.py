@@ -42,7 +42,7 @@ def run(args) -> int:
     if args.json:
         from ..render.json_out import clean, dumps
         d = {"chain": chain.name, "file": chain.path, "f_ref_hz": chain.analysis.f_ref_hz,
-             "temperature_k": chain.temp_k, **noise_json(res),
+             "temperature_k": chain.temp_k, "input_unit": chain.source.model.signal_unit, **noise_json(res),
              "density": [{"f_hz": f, "out_v_per_rthz": float(dens[0, i]),
                           "in_v_per_rthz": float(dens[0, i] / gain[0, i]) if gain[0, i] > 0 else None}
                          for i, f in enumerate(np.asarray(freqs, dtype=float))]}

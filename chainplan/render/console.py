@@ -37,3 +37,22 @@ def db(x, digits: int = 2) -> str:
 
 def eng(x, unit: str, digits: int = 3) -> str:
     return "—" if x is None else fmt(x, unit, digits)
+
+
+def stage_gain(s) -> tuple[str, str]:
+    """A stage row's gain and gain in dB: V/V, or Ω and dBΩ for a transimpedance stage."""
+    if s.gain is None:
+        return "—", db(s.gain_db)
+    if s.gain_unit == "Ω":
+        return eng(s.gain, "Ω"), db(s.gain_db) + "Ω"
+    return f"{s.gain:.5g}", db(s.gain_db)
+
+
+def end_gain(b, f_ref: str) -> tuple[str, str]:
+    """Summary row of the end-to-end figure: a gain in dB, or for a current sensor a
+    transimpedance in Ω and dBΩ (20·log10 of |V/I| re 1 Ω)."""
+    if b.gain_unit == "dBΩ":
+        return (f"end-to-end transimpedance to '{b.output}' at {f_ref}",
+                f"{eng(10 ** (b.gain_db / 20), 'Ω')} ({db(b.gain_db)}Ω)")
+    return f"end-to-end gain to '{b.output}' at {f_ref}", db(b.gain_db)
+

@@ -25,6 +25,7 @@ def noise_tables(chain, r, freqs, dens, gain, gens, console) -> None:
     console.print(f"noise at '{r.output}'" + (f", converter '{r.converter}'" if r.converter else "") +
                   f"; integrated over {eng(lo, 'Hz')} … {eng(hi, 'Hz')} at {eng(chain.temp_k, 'K')}")
 
+    unit = chain.source.model.signal_unit      # input referral: to the sensor's EMF (V) or current (A)
     t = Table(title="Output noise density", box=bx, title_justify="left")
     for col in ("frequency", "at the output", "referred to the input", "largest contributor there"):
         t.add_column(col, justify="left" if col.startswith("largest") else "right")
@@ -33,7 +34,8 @@ def noise_tables(chain, r, freqs, dens, gain, gens, console) -> None:
         name, psd = max(gens, key=lambda g: g[1][0, i]) if gens else ("—", np.zeros((1, i + 1)))
         where = f"{name} ({100 * psd[0, i] / tot:.0f} %)" if tot > 0 else "—"
         g = gain[0, i]
-        t.add_row(eng(f, "Hz"), eng(dens[0, i], "V/√Hz"), eng(dens[0, i] / g, "V/√Hz") if g > 0 else "—", where)
+        t.add_row(eng(f, "Hz"), eng(dens[0, i], "V/√Hz"), eng(dens[0, i] / g, f"{unit}/√Hz") if g > 0 else "—",
+                  where)
     console.print(t)
 
     t = Table(title="Contributors (share of the output noise power)", box=bx, title_justify="left")
@@ -50,7 +52,7 @@ def noise_tables(chain, r, freqs, dens, gain, gens, console) -> None:
     t.add_column("what")
     t.add_column("value", justify="right")
     t.add_row("noise at the output (rms)", eng(first(r.out_vrms), "V"))
-    t.add_row(f"referred to the input (÷ gain at {eng(chain.analysis.f_ref_hz, 'Hz')})", eng(first(r.in_vrms), "V"))
+    t.add_row(f"referred to the input (÷ gain at {eng(chain.analysis.f_ref_hz, 'Hz')})", eng(first(r.in_vrms), unit))
     t.add_row("SNR of the signal", _db(first(r.snr_db)))
     t.add_row("dynamic range (largest sine the output carries)", _db(first(r.dynamic_range_db)))
     if r.converter:

@@ -21,7 +21,7 @@ import math
 
 from .. import __version__
 from ..budget import Budget
-from .console import db, eng
+from .console import db, end_gain, eng, stage_gain
 from ..safety import safety_notice
 from .tables import _lim, _set_by
 
@@ -101,7 +101,7 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
     out.append(f"<h2>Stages as connected (at {_e(f_ref)})</h2>")
     out.append(_table(["stage", "kind", "Zin", "Zout", "gain", "gain dB"],
                       [(s.name, s.kind, eng(s.zin_ohm, "Ω"), eng(s.zout_ohm, "Ω"),
-                        "—" if s.gain is None else f"{s.gain:.5g}", db(s.gain_db)) for s in b.stages], left=2))
+                        *stage_gain(s)) for s in b.stages], left=2))
     active = _active_rows(b)
     if active:
         out.append("<h2>Active stages (operating point)</h2>")
@@ -144,7 +144,7 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
 def _summary_rows(b: Budget) -> list[tuple]:
     c = b.chain
     f_ref = eng(c.analysis.f_ref_hz, "Hz")
-    rows = [(f"end-to-end gain to '{b.output}' at {f_ref}", db(b.gain_db)),
+    rows = [end_gain(b, f_ref),
             ("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
                            f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")]
     worst, tight = b.worst_interface, b.tightest_node

@@ -8,7 +8,7 @@ import math
 
 from ..budget import Budget
 from ..safety import safety_notice
-from .console import db, eng, table_box
+from .console import db, end_gain, eng, stage_gain, table_box
 
 def chain_heading(chain, console) -> None:
     """The chain's name and file, and the safety caution when it is hazardous."""
@@ -31,8 +31,7 @@ def budget_tables(b: Budget, console) -> None:
     for col in ("stage", "kind", "Zin", "Zout", "gain", "gain dB"):
         t.add_column(col, justify="left" if col in ("stage", "kind") else "right")
     for s in b.stages:
-        t.add_row(s.name, s.kind, eng(s.zin_ohm, "Ω"), eng(s.zout_ohm, "Ω"),
-                  "—" if s.gain is None else f"{s.gain:.5g}", db(s.gain_db))
+        t.add_row(s.name, s.kind, eng(s.zin_ohm, "Ω"), eng(s.zout_ohm, "Ω"), *stage_gain(s))
     console.print(t)
     _active_table(b, console, bx)
 
@@ -62,7 +61,7 @@ def budget_tables(b: Budget, console) -> None:
     t = Table(title="Summary", box=bx, title_justify="left", show_header=False)
     t.add_column("what")
     t.add_column("value")
-    t.add_row(f"end-to-end gain to '{b.output}' at {f_ref}", db(b.gain_db))
+    t.add_row(*end_gain(b, f_ref))
     t.add_row("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
                             f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")
     if b.peak_gain_db is not None and b.peak_gain_db - b.gain_db > 1.0:

@@ -1,17 +1,26 @@
 """The signal source: a sensor as a Thevenin source with a source impedance R ‖ C
-(a piezo element, a photodiode's shunt resistance and capacitance, an electrode
-with a long lead).  Thevenin's theorem; the source noise is the Nyquist noise
-4kT·Re(Zs) of its impedance (Nyquist, Phys. Rev. 32, 1928)."""
+(a piezo element, an electrode with a long lead), or as a Norton source — a
+current in parallel with R ‖ C (a photodiode: photocurrent, shunt resistance,
+junction capacitance).  Thevenin's and Norton's theorems; the source noise is
+the Nyquist noise 4kT·Re(Zs) of its impedance (Nyquist, Phys. Rev. 32, 1928).
+
+A source hands the cascade engine its row ``(A_s, B_s)`` with ``X = A_s·V + B_s·I``
+(``I`` drawn from its node): ``X`` is the signal the chain's transfers refer to.
+A voltage sensor has ``X = Vs`` and the row ``(1, Zs)``; a current sensor has
+``X = Is`` and the row ``(Ys, 1)`` (Norton: ``Is = Ys·V + I``), so every transfer
+V_node/X is then a transimpedance in Ω — exact even for an ideal current
+source (Ys = 0), with no EMF I·Zs that would be infinite at DC."""
 from __future__ import annotations
 
 import numpy as np
 
 from .base import DcState, Field, Op, StageKind, inv
-from .noise_sources import NoiseSource, thermal_v
+from .noise_sources import NoiseSource, shot, thermal_i, thermal_v
 
 
 class Sensor(StageKind):
     kind, title, role = "sensor", "sensor (Thevenin source, R ‖ C)", "source"
+    signal_unit = "V"        # unit of the source signal X every transfer refers to
     FIELDS = {
         "amplitude": Field("V", "signal amplitude (peak) of the open-circuit EMF", required=True, minimum=0.0),
         "dc": Field("V", "DC level of the open-circuit EMF", default="0 V", rail_ok=True),
@@ -22,6 +31,11 @@ class Sensor(StageKind):
     def z_source(self, p, s):
         """Source impedance R ‖ 1/(sC)."""
         return inv(inv(p["r"]) + s * p["c"])
+
+    def source_row(self, p, s):
+        """Row ``(1, Zs)``: ``Vs = V + Zs·I`` (Thevenin)."""
+        zs = self.z_source(p, s)
+        return np.ones_like(s) + 0.0 * zs, zs + 0.0 * s
 
     def dc_state(self, p) -> DcState:
         return DcState(p["dc"], 1.0, p["r"]) if not _is_inf(p["r"]) else DcState(0.0, 0.0, 1.0)
@@ -40,4 +54,44 @@ def _is_inf(x):
     return bool(np.all(np.isinf(x)))
 
 
-KINDS = [Sensor]
+class CurrentSensor(StageKind):
+    kind, title, role = "current_sensor", "current-output sensor (Norton source, I ‖ R ‖ C)", "source"
+    signal_unit = "A"
+    FIELDS = {
+        "amplitude": Field("A", "signal current amplitude (peak), e.g. a photocurrent", required=True, minimum=0.0),
+        "dc": Field("A", "DC current (photocurrent plus dark current); it flows out of the sensor into its node "
+                    "and sets the shot noise 2q·|I|", default="0 A"),
+        "r": Field("ohm", "shunt resistance across the current source", default="inf", positive=True,
+                   allow_inf=True),
+        "c": Field("F", "capacitance across the current source (junction plus lead)", default="0 F", minimum=0.0),
+    }
+
+    def y_source(self, p, s):
+        """Source admittance 1/R + sC."""
+        return inv(p["r"]) + s * p["c"]
+
+    def z_source(self, p, s):
+        """Source impedance R ‖ 1/(sC)."""
+        return inv(self.y_source(p, s))
+
+    def source_row(self, p, s):
+        """Row ``(Ys, 1)``: ``Is = Ys·V + I`` (Norton)."""
+        ys = self.y_source(p, s) + 0.0 * s
+        return ys, np.ones_like(ys)
+
+    def dc_state(self, p) -> DcState:
+        """Norton relation in conductance form ``I = V/R + I_out``: e = I, a = 1/R, b = 1."""
+        return DcState(p["dc"], inv(p["r"]), 1.0)
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        return self.dc_state(p), Op()
+
+    def noise(self, p, s, op, temp_k):
+        """Noise currents into the sensor node: the shunt R's thermal current 4kT/R
+        (Norton form of Nyquist's 4kTR) and the shot noise 2q·|I_dc| of the diode
+        current (Schottky; Graeme, *Photodiode Amplifiers*, noise chapter, from memory)."""
+        return [NoiseSource("r thermal", thermal_i(p["r"], temp_k), out_i=1.0),
+                NoiseSource("shot", shot(p["dc"]), out_i=1.0)]
+
+
+KINDS = [Sensor, CurrentSensor]
