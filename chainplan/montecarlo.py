@@ -20,6 +20,8 @@ regression's R²; what is missing from 1 is the non-linear part.
 """
 from __future__ import annotations
 
+import dataclasses
+
 import importlib.util
 import os
 from dataclasses import dataclass, field
@@ -164,8 +166,11 @@ def _chunk(d: Draws, sl: slice):
     """(metrics, requirement results, validity) of samples ``sl``."""
     ev = evaluate(d.chain, d.params(sl))
     n = sl.stop - sl.start
-    return ({k: np.broadcast_to(v, (n,)) for k, v in metrics(ev).items()}, evaluate_requirements(ev),
-            np.broadcast_to(ev.valid, (n,)) & d.valid[sl])
+    wide = lambda x: np.broadcast_to(x, (n,))  # noqa: E731 - nothing varied: one sample stands for all
+    reqs = [dataclasses.replace(r, value=wide(r.value), margin=wide(r.margin), passed=wide(r.passed),
+                                where=None if r.where is None else (r.where[0], wide(r.where[1])))
+            for r in evaluate_requirements(ev)]
+    return ({k: wide(v) for k, v in metrics(ev).items()}, reqs, wide(ev.valid) & d.valid[sl])
 
 
 def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None,

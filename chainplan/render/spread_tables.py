@@ -40,7 +40,7 @@ def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
     if not res.inputs:
         console.print("no tolerances or corners in this spec: every sample is the nominal chain")
 
-    t = Table(title="Distribution (valid samples)", box=bx, title_justify="left", pad_edge=False)
+    t = Table(title="Distribution (valid samples)", box=bx, title_justify="left", show_edge=False)
     for col in ("figure", "nominal", "mean", "σ", "0.1 %", "median", "99.9 %"):
         t.add_column(col, justify="left" if col == "figure" else "right", no_wrap=True)
     quiet = 0
@@ -49,7 +49,7 @@ def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
         if key.startswith("loading_loss_db.") and max(abs(n0), abs(s.p_low), abs(s.p_high)) < LOSS_QUIET_DB:
             quiet += 1                      # interfaces that never lose a measurable amount
             continue
-        t.add_row(text.replace("loading loss ", "loss "), show(n0, unit), show(s.mean, unit), _sigma(s.std, unit),
+        t.add_row(text.replace("loading loss ", "loss "), show(n0, unit), show(s.mean, unit), _sigma(s.std, s.mean, unit),
                   show(s.p_low, unit), show(s.median, unit), show(s.p_high, unit))
     if quiet:
         t.caption = f"{quiet} more interface{'s' * (quiet != 1)} lose less than {LOSS_QUIET_DB} dB in every sample"
@@ -81,7 +81,8 @@ def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
         for name, share in shown:
             t.add_row(name, _pct(share))
         if len(shown) < len(res.sensitivity):
-            t.add_row(f"({len(res.sensitivity) - len(shown)} more inputs, each below {_pct(MIN_SHARE)})", "")
+            rest = len(res.sensitivity) - len(shown)
+            t.add_row(f"({rest} more input{'s, each' if rest != 1 else ','} below {_pct(MIN_SHARE)})", "")
         rest = 1.0 - sum(s for _, s in res.sensitivity)
         t.add_row("(non-linear and interaction part)", _pct(max(rest, 0.0)))
         console.print(t)
@@ -104,7 +105,10 @@ def _pct(x) -> str:
     return "—" if x is None or not math.isfinite(x) else f"{100 * x:.2f} %"
 
 
-def _sigma(x, unit) -> str:
+def _sigma(x, mean, unit) -> str:
+    """σ, shown as 0 where it is floating-point noise (below 1e-9 of the mean)."""
+    if math.isfinite(x) and math.isfinite(mean) and x <= 1e-9 * abs(mean):
+        x = 0.0
     return show(x, unit).replace("−", "")
 
 
