@@ -40,3 +40,14 @@ def test_an_op_amp_railed_at_dc_is_an_error_not_a_pass(command, cli, spec_file):
     line = RAILED.splitlines().index("    ref: vmid          #<") + 1
     assert rc == 2 and out == ""
     assert f":{line}: amp.ref:" in err and "saturates" in err
+
+
+@pytest.mark.parametrize("samples", ["1", "200"])
+def test_spread_of_a_chain_without_tolerances_reports_the_nominal_chain(cli, samples):
+    from conftest import REPO
+    rc, out, err = cli("spread", str(REPO / "chains" / "vibration_fanout.yaml"), "-n", samples, "--json")
+    import json
+    d = json.loads(out)
+    assert rc == 0 and err == ""
+    assert d["samples"] == int(samples)
+    assert all(r["yield"] == 1.0 for r in d["requirements"])
