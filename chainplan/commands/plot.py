@@ -26,9 +26,13 @@ def add_montecarlo_options(p):
 
 def analyse_for_pictures(args):
     """Budget, noise result (if the noise analysis exists) and Monte Carlo result (if asked for)."""
+    import importlib.util
+
     from ..api import budget_for
     from ..errors import UsageError
     from ..spec import load_chain
+    if importlib.util.find_spec("matplotlib") is None:
+        raise UsageError("figures need matplotlib, which is not installed: pip install matplotlib")
     if args.mc < 0 or args.mc > 1_000_000:
         raise UsageError("--mc takes a number of samples from 1 to 1000000 (0: no Monte Carlo)")
     chain = apply_analysis_options(load_chain(args.file), args)
