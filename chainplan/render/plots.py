@@ -127,8 +127,9 @@ def level_diagram(b: Budget):
         ax.text(x - 0.13, n.dc_v + n.peak_v, f"±{fmt(n.peak_v, 'V')}", fontsize=7, color=colour, ha="right",
                 va="bottom", zorder=8, gid=f"peak:{n.name}")
         if st.role == "source":
-            emf = float(np.ravel(b.ev.params[st.name]["amplitude"])[0])
-            ax.text(x + 0.13, n.dc_v - n.peak_v, f"EMF ±{fmt(emf, 'V')}", fontsize=7, color=QUIET,
+            emf, unit = float(np.ravel(b.ev.params[st.name]["amplitude"])[0]), b.ev.signal_unit
+            ax.text(x + 0.13, n.dc_v - n.peak_v, f"{'EMF' if unit == 'V' else 'current'} ±{fmt(emf, unit)}",
+                    fontsize=7, color=QUIET,
                     ha="left", va="top", zorder=8)
         dc_x.append(x)
         dc_y.append(n.dc_v)
@@ -258,11 +259,11 @@ def gain_plot(b: Budget):
             ax.axvline(edge, color=CLIP, ls="--", lw=1, gid=f"edge:{name}")
             ax.text(edge * 1.12, ax.get_ylim()[0], f"{name} {fmt(edge, 'Hz')}", fontsize=7.5, color=CLIP,
                     va="bottom", ha="left", rotation=90)
-    ax.set_ylabel("gain V(node)/Vs, dB")
+    ax.set_ylabel("gain V(node)/Vs, dB" if b.gain_unit == "dB" else "transimpedance V(node)/Is, dBΩ")
     ax.grid(which="both", color="#e6e6e6", lw=0.6)
     ax.tick_params(labelbottom=False)
     ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, frameon=False)
-    _title(fig, f"{chain.name}: gain to every node; end-to-end {_db(b.gain_db)} at "
+    _title(fig, f"{chain.name}: gain to every node; end-to-end {_db(b.gain_db)}{b.gain_unit[2:]} at "
                 f"{fmt(chain.analysis.f_ref_hz, 'Hz')}")
     h_out = np.asarray(ev.gain(b.output))[0, 1:]
     axp.semilogx(f, np.degrees(np.unwrap(np.angle(h_out))), color="black", lw=1.4, gid="phase")
