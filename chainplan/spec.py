@@ -63,6 +63,11 @@ def build_chain(doc, path: str) -> Chain:
     name = _text(ctx, doc, "name")
     description = _text(ctx, doc, "description") if "description" in doc else ""
     hazards = _hazards(ctx, doc)
+    raw_t = doc.get("temperature")
+    if isinstance(raw_t, (int, float)) and not isinstance(raw_t, bool) or (
+            isinstance(raw_t, str) and re.fullmatch(r"\s*[+\-−]?[\d.]+([eE][+\-]?\d+)?\s*", raw_t)):
+        raise ctx.err(f"'{raw_t}' has no unit: a bare temperature is ambiguous; write e.g. '298 K' or '25 °C'",
+                      doc.line_of("temperature"), "temperature")
     temp_k = _number(ctx, doc, "temperature", "K", "300 K")
     if temp_k <= 0:
         raise ctx.err("temperature must be above 0 K (absolute zero)", doc.line_of("temperature"), "temperature")

@@ -51,3 +51,12 @@ def test_spread_of_a_chain_without_tolerances_reports_the_nominal_chain(cli, sam
     assert rc == 0 and err == ""
     assert d["samples"] == int(samples)
     assert all(r["yield"] == 1.0 for r in d["requirements"])
+
+
+@pytest.mark.parametrize("text", ["25", "300", "2.5e2"])
+def test_a_temperature_without_unit_is_refused(cli, spec_file, text):
+    """25 could be °C or K: a 12x error in kT either way (common practice: always state the unit)."""
+    path = spec_file(f"name: t\ntemperature: {text}\nsource: {{kind: sensor, amplitude: 1 mV}}\n"
+                     "stages:\n  - {name: r, kind: series_r, r: 1k}\n")
+    rc, out, err = cli("budget", path)
+    assert rc == 2 and ":2: temperature:" in err and "°C" in err
