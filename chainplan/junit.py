@@ -8,6 +8,7 @@ from __future__ import annotations
 import xml.etree.ElementTree as ET
 
 from .requirements import ReqResult, show, where_of
+from .safety import safety_notice
 
 
 def failure_text(r: ReqResult, i: int = 0) -> str:
@@ -28,6 +29,10 @@ def junit_xml(suites: list) -> str:
                               errors="0", skipped="0", time="0")
         if chain.path:
             suite.set("file", chain.path)
+        caution = safety_notice(chain.hazards)
+        if caution:                           # hazardous chains carry the caution here too
+            props = ET.SubElement(suite, "properties")
+            ET.SubElement(props, "property", name="caution", value=caution)
         for r in results:
             case = ET.SubElement(suite, "testcase", classname=f"chainplan.{chain.name}",
                                  name=r.name, time="0")

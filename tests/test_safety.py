@@ -31,3 +31,16 @@ def test_the_budget_json_names_the_hazard(cli):
     import json
     rc, out, _ = cli("budget", ECG, "--json")
     assert rc == 0 and json.loads(out)["hazards"] == ["patient"]
+
+
+def test_machine_readable_outputs_carry_the_caution_too(cli):
+    import json
+    import xml.etree.ElementTree as ET
+    rc, out, _ = cli("check", ECG, "--json")
+    assert "patient connection" in json.loads(out)["specs"][0]["caution"]
+    rc, out, _ = cli("budget", ECG, "--json")
+    assert "patient connection" in json.loads(out)["caution"]
+    rc, out, _ = cli("check", ECG, "--junit", "-")
+    xml = out[out.index("<?xml") if "<?xml" in out else out.index("<testsuites"):]
+    props = ET.fromstring(xml).find("testsuite/properties")
+    assert props is not None and "patient connection" in props.find("property").get("value")

@@ -8,7 +8,8 @@ from .common import add_analysis_options, apply_analysis_options
 
 def add_arguments(p):
     p.add_argument("files", nargs="+", metavar="FILE", help="chain specs (YAML) with a requirements: block")
-    p.add_argument("--junit", metavar="PATH", help="also write JUnit XML (one test case per requirement) to PATH")
+    p.add_argument("--junit", metavar="PATH", help="also write JUnit XML (one test case per requirement) to PATH "
+                   "('-': to standard output, instead of the tables)")
     add_analysis_options(p)
 
 
@@ -23,7 +24,9 @@ def run(args) -> int:
         from ..junit import junit_xml
         from ..render.files import write_atomic
         write_atomic({args.junit: junit_xml(checked)})
-    if args.json:
+    if args.junit == "-":
+        pass                                     # the XML is the standard output
+    elif args.json:
         from ..render.check_tables import check_dict
         from ..render.json_out import dumps
         print(dumps(check_dict(checked)))

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 from ..requirements import result_dict, show, where_of
 from .console import table_box
+from ..safety import safety_notice
 from .tables import chain_heading
 
 
@@ -33,6 +34,7 @@ def check_tables(checked: list, console) -> None:
 
 def check_dict(checked: list) -> dict:
     from .json_out import clean
-    specs = [{"chain": c.name, "file": c.path, "passed": all(bool(r.passed[0]) for r in res),
+    specs = [{"chain": c.name, "file": c.path, "caution": safety_notice(c.hazards),
+              "passed": all(bool(r.passed[0]) for r in res),
               "requirements": [result_dict(r) for r in res]} for c, res in checked]
     return clean({"passed": all(s["passed"] for s in specs), "specs": specs})

@@ -5,6 +5,7 @@ import json
 import math
 
 from ..budget import Budget
+from ..safety import safety_notice
 
 
 def clean(x):
@@ -25,6 +26,7 @@ def budget_dict(b: Budget) -> dict:
         "chain": c.name,
         "file": c.path,
         "hazards": c.hazards,
+        "caution": safety_notice(c.hazards),
         "f_ref_hz": c.analysis.f_ref_hz,
         "output": b.output,
         "gain_db": b.gain_db,

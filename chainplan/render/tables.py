@@ -44,6 +44,9 @@ def budget_tables(b: Budget, console) -> None:
         style = "bold yellow" if mark else None
         t.add_row(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), db(r.loss_db, 3), mark,
                   style=style)
+    t.caption = ("each row: the loss recovered if that stage's input were an open circuit; rows along one "
+                 "passive network overlap and do not add")
+    t.caption_justify = "left"
     console.print(t)
 
     tight = b.tightest_node
