@@ -6,8 +6,9 @@ Budget figures compared: the same per-sample metrics a tolerance run reports
 (gain, band edges, every interface's loading loss, every node's headroom,
 power, noise/SNR/ENOB when the noise analysis exists) and every requirement's
 value and status.  A figure with a better direction (less loading loss, more
-headroom, less noise, less power) that moved the wrong way is a regression, as
-is a requirement that passed before and fails now; gain and band edges are
+headroom, less noise, less power) that moved the wrong way by more than a
+significant amount (``SIGNIFICANT``: 0.05 dB, 1 mV or 1 %, ...) is a regression,
+as is a requirement that passed before and fails now; gain and band edges are
 design choices and only reported as changed.
 """
 from __future__ import annotations
@@ -22,6 +23,9 @@ from .model import Chain
 
 #: unit -> (absolute, relative) tolerance under which a figure counts as unchanged
 SAME = {"dB": (0.005, 0.0), "bits": (0.005, 0.0), "V": (1e-6, 1e-6), "Hz": (0.0, 1e-4), "W": (1e-12, 1e-6)}
+#: (absolute, relative) change a figure must move the wrong way by to count as a
+#: regression (``--strict`` fails on these); smaller moves show as "slightly worse"
+SIGNIFICANT = {"dB": (0.05, 0.0), "bits": (0.05, 0.0), "V": (1e-3, 0.01), "Hz": (0.0, 0.01), "W": (1e-9, 0.01)}
 
 
 @dataclass
@@ -211,7 +215,10 @@ def budget_changes(old: Side, new: Side) -> tuple[list[Change], int]:
         verdict, regression = "changed", False
         if better and not (math.isnan(x) or math.isnan(y)):
             worse = (y - x) * better < 0
-            verdict, regression = ("worse" if worse else "better"), worse
+            atol, rtol = SIGNIFICANT.get(unit, (0.0, 0.0))
+            big = math.isinf(x) or math.isinf(y) or abs(y - x) > atol + rtol * max(abs(x), abs(y))
+            verdict = ("worse" if big else "slightly worse") if worse else "better"
+            regression = worse and big
         if key.startswith("headroom_v.") and x >= 0 > y:
             verdict, regression = "clips now", True
         out.append(Change(key, label, unit, x, y, verdict, regression))
