@@ -51,8 +51,8 @@ def budget_tables(b: Budget, console) -> None:
 
     tight = b.tightest_node
     t = Table(title=f"Nodes (DC, signal peak at {f_ref}, limits, headroom)", box=bx, title_justify="left")
-    for col in ("node", "DC", "peak", "low limit", "high limit", "headroom", "headroom dB", "set by", ""):
-        t.add_column(col, justify="left" if col in ("node", "set by", "") else "right")
+    for col in ("node", "DC", "peak", "low limit", "high limit", "headroom", "(dB)", "set by", ""):
+        t.add_column(col, justify="left" if col in ("node", "set by", "") else "right", no_wrap=col != "set by")
     for n in b.nodes:
         mark = "CLIPS" if n.clips else ("tightest" if n is tight else "")
         style = "bold red" if n.clips else ("bold yellow" if mark else None)
