@@ -23,6 +23,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .cascade import run_ac
+from .units import fmt
 
 
 @dataclass
@@ -64,16 +65,15 @@ def alias_check(ev) -> AliasCheck | None:
         rej = 20.0 * np.log10(g[:, :1] / g[:, 1:])
     warnings = []
     if a.f_stop_hz < fs / 2.0:
-        warnings.append(f"f_stop ({a.f_stop_hz:g} Hz) is below f_sample/2 ({fs / 2:g} Hz): the response "
-                        "between them, where signals fold back, is not checked (widen f_stop)")
+        warnings.append(f"f_stop ({fmt(a.f_stop_hz, 'Hz')}) is below f_sample/2 ({fmt(fs / 2, 'Hz')}): the "
+                        "response between them, where signals fold back, is not checked (widen f_stop)")
     if a.noise_band_hz is not None and a.noise_band_hz[1] >= fs / 2.0:
-        warnings.append(f"the noise band reaches f_sample/2 ({fs / 2:g} Hz): the converter aliases part of it")
+        warnings.append(f"the noise band reaches f_sample/2 ({fmt(fs / 2, 'Hz')}): the converter aliases part of it")
     return AliasCheck(adc.name, fs, tuple(freqs), rej, binding, warnings)
 
 
 def attach_to_budget(b) -> None:
     """BUDGET_HOOKS entry: anti-alias rejection rows in the summary, ``alias`` in --json."""
-    from .units import fmt
     chk = alias_check(b.ev)
     if chk is None:
         return

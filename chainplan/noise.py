@@ -75,7 +75,7 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None) -> NoiseResult:
     over the spec's ``analysis.noise_band`` or, without one, the whole span; a
     number ``B`` integrates from the span's start to ``B``; a pair ``(low, high)``
     integrates between them (brick-wall edges)."""
-    declared = bandwidth_hz is None and ev.chain.analysis.noise_band_hz is None
+    whole_span = bandwidth_hz is None and ev.chain.analysis.noise_band_hz is None
     bandwidth_hz = ev.chain.analysis.noise_band_hz if bandwidth_hz is None else bandwidth_hz
     band = integration_band(ev.span, bandwidth_hz)
     w = band_weights(ev.span, *band)
@@ -105,7 +105,16 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None) -> NoiseResult:
         enob_bits=(snr_fs - ENOB_OFFSET_DB) / DB_PER_BIT, output=ev.output, converter=conv, band_hz=band,
         gain_ref=gain_ref, vrms={n: np.sqrt(p) for n, p in powers.items()},
         stage_of={name: stage for stage, name, _, _ in gens},
-        neglected=neglected_stages(ev), notes=noise_notes(ev) + (span_notes(ev) if declared else []))
+        neglected=neglected_stages(ev), notes=noise_notes(ev) + (span_notes(ev) if whole_span else [])
+        + _clip_note(ev.chain.analysis.noise_band_hz if bandwidth_hz is ev.chain.analysis.noise_band_hz else None,
+                     band))
+
+
+def _clip_note(declared, band) -> list:
+    """A declared noise band the span (narrowed with --span) cuts short."""
+    if declared is None or tuple(declared) == tuple(band):
+        return []
+    return [f"the noise band is cut to the span: {band[0]:g} … {band[1]:g} Hz of {declared[0]:g} … {declared[1]:g} Hz"]
 
 
 def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):

@@ -157,3 +157,16 @@ def test_demo_chains_declare_sample_rates():
         if any(st.kind == "adc" and "f_sample" in st.params for st in c.stages):
             chk = alias_check(evaluate(c))
             assert chk is not None and np.all(np.isfinite(chk.rejection_db)), path
+
+
+def test_span_option_that_leaves_out_the_noise_band_is_a_usage_error(spec_file, cli):
+    rc, out, err = cli("budget", spec_file(with_band(CHAIN, "[100 Hz, 5 kHz]")), "--span", "10 kHz:1 MHz",
+                       "--at", "10 kHz")
+    assert rc == 2 and out == "" and "noise_band" in err and err.count("\n") == 1
+
+
+def test_span_option_cutting_the_noise_band_says_so():
+    c = chain_from(with_band(CHAIN, "[100 Hz, 5 kHz]"))
+    c.analysis.f_start_hz = 1e3                    # as --span 1 kHz:… leaves it
+    r = analyse_noise(evaluate(c))
+    assert r.band_hz == (1e3, 5e3) and any("cut to the span" in n for n in r.notes)
