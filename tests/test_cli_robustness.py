@@ -60,3 +60,14 @@ def test_a_temperature_without_unit_is_refused(cli, spec_file, text):
                      "stages:\n  - {name: r, kind: series_r, r: 1k}\n")
     rc, out, err = cli("budget", path)
     assert rc == 2 and ":2: temperature:" in err and "°C" in err
+
+
+def test_buffers_write_refuses_to_overwrite_its_own_input(cli, tmp_path):
+    """The input spec changes only with --in-place (docs/buffers.md)."""
+    import shutil
+    from conftest import REPO
+    shutil.copytree(REPO / "chains", tmp_path / "chains")
+    spec = tmp_path / "chains" / "hydrophone_direct.yaml"
+    before = spec.read_text()
+    rc, out, err = cli("buffers", str(spec), "--min-gain", "20 dB", "--write", str(spec))
+    assert rc == 2 and "--in-place" in err and spec.read_text() == before

@@ -4,6 +4,7 @@ meets the targets, optionally written as a new spec with ``--write``."""
 from __future__ import annotations
 
 import math
+import os
 
 from ..errors import UsageError
 from ..units import UnitError, parse_value
@@ -46,6 +47,8 @@ def run(args) -> int:
         check_interface(chain, args.interface)
     if args.in_place and args.write:
         raise UsageError("give either --write NEW.yaml or --in-place, not both")
+    if args.write and os.path.exists(args.write) and os.path.samefile(args.write, args.file):
+        raise UsageError(f"--write {args.write} names the input spec itself; to rewrite it, use --in-place")
     place = args.place or args.write or args.in_place or any(
         x is not None for x in (args.min_gain, args.min_headroom, args.min_bandwidth, args.max_power))
     if args.headroom_nodes and args.min_headroom is None:
