@@ -80,13 +80,37 @@ def shunt_y(y) -> ABCD:
 
 
 def chain(m1: ABCD, m2: ABCD) -> ABCD:
-    """Cascade of two two-ports: the matrix product ``M1·M2`` written out by hand."""
+    """Cascade of two two-ports: the matrix product ``M1·M2`` written out by hand,
+    skipping the products with the plain 0 and 1 of series and shunt sections
+    (whole-array operations saved in tolerance runs; the values are identical)."""
     return ABCD(
-        m1.A * m2.A + m1.B * m2.C,
-        m1.A * m2.B + m1.B * m2.D,
-        m1.C * m2.A + m1.D * m2.C,
-        m1.C * m2.B + m1.D * m2.D,
+        _add(_mul(m1.A, m2.A), _mul(m1.B, m2.C)),
+        _add(_mul(m1.A, m2.B), _mul(m1.B, m2.D)),
+        _add(_mul(m1.C, m2.A), _mul(m1.D, m2.C)),
+        _add(_mul(m1.C, m2.B), _mul(m1.D, m2.D)),
     )
+
+
+def _plain(x, v) -> bool:
+    return type(x) in (float, int) and x == v
+
+
+def _mul(x, y):
+    if _plain(x, 1.0):
+        return y
+    if _plain(y, 1.0):
+        return x
+    if _plain(x, 0.0) or _plain(y, 0.0):
+        return 0.0
+    return x * y
+
+
+def _add(x, y):
+    if _plain(x, 0.0):
+        return y
+    if _plain(y, 0.0):
+        return x
+    return x + y
 
 
 def unilateral(y_in, inv_av, z_out) -> ABCD:
