@@ -8,7 +8,9 @@ of the chain as it is and of a copy with the buffer inserted by
 
 * ``loss_now_db``: the interface's loading loss, 20·log10|1/(1 + Zth·Yin)|;
 * ``recovered_db``: (loss X→buffer + loss buffer→Y) − loss X→Y: the loading
-  loss the buffer gives back (positive = recovered);
+  loss the buffer gives back (positive = recovered); for a candidate with its
+  own input bias network the loss X→network and network→buffer are both in
+  the first term;
 * ``buffer_gain_db``: the buffer's open-circuit gain Vth(buffer)/V(X), its own
   cost in dB (a follower's gm·R/(1 + (gm + gmb)·R) < 1; Sedra & Smith,
   *Microelectronic Circuits*, follower analysis, from memory);
@@ -73,6 +75,8 @@ class CandidateEffect:
     candidate: str
     kind: str
     buffer: str                  # the inserted stage's name
+    bias_stage: str | None       # its input bias network's stage name, if the candidate brings one
+    input_bias: dict | None      # that network: c_f, r_bias_ohm, bias_v and bias (as written)
     valid: bool                  # the device holds its bias at this node's DC level
     problem: str | None          # why not, in words
     loss_after_db: float | None
@@ -201,11 +205,13 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
     """Full re-analysis of ``chain`` with ``cand`` inserted in front of ``reader``."""
     new = insert_buffers(chain, {reader: cand})
     buf = new.stage(reader).parent
-    x = new.stage(buf).parent
+    bias = new.stage(buf).parent if cand.biased else None
+    x = chain.stage(reader).parent
     with np.errstate(all="ignore"):
         ev = evaluate(new)
         out = CandidateEffect(
-            candidate=cand.name, kind=cand.kind, buffer=buf, valid=bool(ev.valid[0]), problem=None,
+            candidate=cand.name, kind=cand.kind, buffer=buf, bias_stage=bias, input_bias=input_bias_of(cand),
+            valid=bool(ev.valid[0]), problem=None,
             loss_after_db=None, recovered_db=None, buffer_gain_db=None, dc_shift_v=None, net_gain_db=None,
             f_low_before_hz=base.f_low, f_low_after_hz=None, f_high_before_hz=base.f_high, f_high_after_hz=None,
             snr_before_db=base.snr_db, snr_after_db=None, power_w=None, price=cand.price, count=cand.count)
@@ -213,7 +219,7 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
             out.problem = _problem_text(ev, buf)
             return out
         fig = _figures(ev, with_noise)
-        out.loss_after_db = _loss_db(ev, buf) + _loss_db(ev, reader)
+        out.loss_after_db = sum(_loss_db(ev, n) for n in (bias, buf, reader) if n is not None)
         out.recovered_db = out.loss_after_db - _loss_db(base.ev, reader)
         open_gain = abs((1.0 / ev.ac.row[buf][0][0, 0]) / ev.ac.node_h[x][0, 0])
     out.buffer_gain_db = 20 * math.log10(open_gain) if open_gain > 0 else None
@@ -227,6 +233,16 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
         out.headroom.append(NodeChange(n, before, after, change))
     out.new_clips = [h.node for h in out.headroom if h.after_v < 0 and (h.before_v is None or h.before_v >= 0)]
     return out
+
+
+def input_bias_of(cand: Candidate) -> dict | None:
+    """A candidate's input bias network in figures, or None."""
+    st = cand.input_bias
+    if st is None:
+        return None
+    written = st.raw.get("__rails__", {}).get("bias", st.raw.get("bias"))
+    return {"c_f": st.params["c"], "r_bias_ohm": st.params["r_bias"], "bias_v": st.params["bias"],
+            "bias": str(written)}
 
 
 def _problem_text(ev: Evaluation, buf: str) -> str:

@@ -9,6 +9,10 @@ A parts file is a YAML mapping::
         kind: source_follower                # any follower-type stage kind
         kp: 120 µA/V²                        # ...its fields, exactly as in a chain
         i_bias: 50 µA
+        input_bias:                          # optional: its own input bias network
+          c: 100 nF                          # coupling capacitor from the node it reads
+          r_bias: 100M                       # bias resistor from the input to...
+          bias: vdd                          # ...this voltage or rail of the including chain
         cost:                                # optional
           price: 0.35                        # a plain number in your currency
           count: 2                           # parts it adds to the board (default 1)
@@ -19,6 +23,15 @@ relative to the spec) and may list more candidates inline under
 ``candidates:`` in the same form.  Each candidate's stage is built by the same
 validator as a chain's stages (:func:`chainplan.spec.build_stage`), with the
 including chain's rails, so errors read the same and name the parts file.
+
+A candidate with ``input_bias`` is inserted as two stages, an ``ac_coupling``
+(series ``c``, ``r_bias`` to ``bias``) and right after it the follower: the
+pair is one choice, costed as one, and lets a DC-coupled follower work at a
+node whose DC level it could not follow (a piezo element at 0 V).  Rails that
+a candidate names (``bias: vmid``, ``v_pos: vdd``, ``drain: vdd``...) are looked
+up in the rails of the chain that includes the parts file; a rail that chain
+does not declare is a spec error at the parts file's line, saying which chain
+lacks it.
 
 Safety of includes: a path must exist, must stay inside the project of the
 file that includes it (its git work tree, or its folder outside git; symbolic
@@ -37,6 +50,9 @@ from .yamlsrc import LDict, LList, load_file
 
 PARTS_KEYS = ("description", "include", "candidates")
 COST_KEYS = {"price": "1", "count": "1", "power": "W"}
+#: the fields of a candidate's input bias network: those of an ``ac_coupling`` stage
+BIAS_KIND = "ac_coupling"
+BIAS_KEYS = ("c", "r_bias", "bias")
 
 
 @dataclass
@@ -51,6 +67,11 @@ class Candidate:
     count: int = 1
     power_w: float | None = None     # fixed power, overriding the operating point's
     tolerances: dict = field(default_factory=dict)
+    input_bias: Stage | None = None  # an ac_coupling stage inserted right before the follower
+
+    @property
+    def biased(self) -> bool:
+        return self.input_bias is not None
 
     @property
     def kind(self) -> str:
@@ -158,7 +179,6 @@ def _load_parts_file(chain, target: str, stack: tuple, inc_line, inc_from) -> No
 # -- candidates ------------------------------------------------------------------
 
 def _add_candidates(chain, node, line, path) -> None:
-    from .spec import build_stage
     if not isinstance(node, LList):
         raise SpecError("'candidates' is a list of follower stages, each with name:, kind: and its fields",
                         path, line, "candidates")
@@ -176,19 +196,62 @@ def _add_candidates(chain, node, line, path) -> None:
         if "from" in item:
             raise SpecError("a candidate is not connected to anything; the advisor decides where it goes "
                             "(remove 'from:')", path, item.line_of("from"), "from")
-        body = LDict((k, v) for k, v in item.items() if k != "cost")
-        body.line, body.key_lines = item.line, {k: v for k, v in item.key_lines.items() if k != "cost"}
+        own = ("cost", "input_bias")
+        body = LDict((k, v) for k, v in item.items() if k not in own)
+        body.line, body.key_lines = item.line, {k: v for k, v in item.key_lines.items() if k not in own}
         tolerances: dict = {}
-        st = build_stage(path, body, chain.rails, tolerances)
+        st = _build(chain, path, body, tolerances, prefix=None)
         if st.name in names:
             other = names[st.name]
             raise SpecError(f"candidate name '{st.name}' is used twice (also {other.path}:{other.line})", path,
                             item.line_of("name"), "name")
         cand = Candidate(st.name, st, path, item.line, tolerances=tolerances)
+        if "input_bias" in item:
+            cand.input_bias = _input_bias(chain, cand, item["input_bias"], item.line_of("input_bias"), path)
         if "cost" in item:
             _cost(cand, item["cost"], item.line_of("cost"), path)
         names[st.name] = cand
         have.append(cand)
+
+
+def _build(chain, path, body: LDict, tolerances: dict, prefix: str | None) -> Stage:
+    """A stage from a candidate's mapping with the including chain's rails; field names in
+    errors get ``prefix`` (``<candidate>.input_bias``), and a rail the chain lacks says so."""
+    from .spec import NAME_RE, build_stage
+    try:
+        return build_stage(path, body, chain.rails, tolerances)
+    except SpecError as exc:
+        key = (exc.field or "").rpartition(".")[2]
+        field_name = exc.field if prefix is None or exc.field is None else \
+            f"{prefix}.{exc.field.partition('.')[2] or exc.field}"
+        raw = body.get(key)
+        if isinstance(raw, str) and NAME_RE.match(raw) and raw not in chain.rails and "rail" in exc.message:
+            have = ", ".join(sorted(chain.rails)) or "none"
+            msg = (f"'{raw}' is not a declared rail of chain '{chain.name}' ({chain.path}), which includes "
+                   f"this parts file (its rails: {have}); declare '{raw}' under that chain's rails: or give "
+                   "a voltage here")
+            raise SpecError(msg, exc.file, exc.line, field_name) from None
+        if field_name != exc.field:
+            raise SpecError(exc.message, exc.file, exc.line, field_name) from None
+        raise
+
+
+def _input_bias(chain, cand: Candidate, node, line, path) -> Stage:
+    """``input_bias: {c, r_bias, bias}``: the candidate's own AC coupling and bias resistor."""
+    where = f"{cand.name}.input_bias"
+    if not isinstance(node, LDict):
+        raise SpecError("'input_bias' is a mapping: c (coupling capacitor), r_bias (bias resistor) and bias "
+                        "(the voltage or rail it returns to), e.g. {c: 100 nF, r_bias: 100M, bias: vdd}",
+                        path, line, where)
+    for key in node:
+        if key not in BIAS_KEYS:
+            raise SpecError(f"an input bias has no field '{key}'" + nearest(key, BIAS_KEYS), path,
+                            node.line_of(key), f"{where}.{key}")
+    body = LDict(name="input_bias", kind=BIAS_KIND, **node)
+    body.line, body.key_lines = node.line, dict(node.key_lines)
+    st = _build(chain, path, body, cand.tolerances, prefix=where)
+    st.name = f"{cand.name}_input_bias"
+    return st
 
 
 def _cost(cand: Candidate, node, line, path) -> None:

@@ -4,7 +4,8 @@ The original text is kept as it is — comments, order, formatting — and each
 buffer's stage block is inserted textually in the ``stages:`` list right
 before the stage it feeds (using the line numbers the loader recorded).
 The block carries the candidate's fields as written in its parts file, under
-the buffer's stage name.  Where the spec connects stages with ``from:``, the
+the buffer's stage name; a candidate with an input bias network gets a second
+block before it, an ``ac_coupling`` named ``buf_<reader>_bias``.  Where the spec connects stages with ``from:``, the
 buffer gets ``from: <node>`` and the stage it feeds is re-pointed to the
 buffer; where it relies on list order, inserting right before the reader is
 enough.  ``include:`` paths are rewritten relative to the new file when it
@@ -21,9 +22,8 @@ import tempfile
 import yaml
 
 from .errors import SpecError, UsageError
-from .insert import buffer_names
+from .insert import bias_names, buffer_names
 from .model import Chain
-from .parts import Candidate
 
 FROM_RE = re.compile(r"^(\s*(?:-\s+)?from:\s*)([^#\s][^#]*?)(\s*(?:#.*)?)$")
 ITEM_RE = re.compile(r"^(\s*)-\s+(\S)")
@@ -32,7 +32,7 @@ ITEM_RE = re.compile(r"^(\s*)-\s+(\S)")
 def buffered_text(chain: Chain, placement: dict, text: str, new_path: str | None = None) -> str:
     """The spec text with ``placement`` (reader -> Candidate) inserted."""
     lines = text.splitlines(keepends=True)
-    names = buffer_names(chain)
+    names, biases = buffer_names(chain), bias_names(chain)
     explicit = any("from" in st.field_lines for st in chain.stages)
     edits = sorted(placement.items(), key=lambda kv: chain.stage(kv[0]).line, reverse=True)
     for reader, cand in edits:
@@ -49,7 +49,14 @@ def buffered_text(chain: Chain, placement: dict, text: str, new_path: str | None
             if fm is None:
                 raise UsageError(f"cannot rewrite the 'from:' of stage '{reader}' (line {j + 1})")
             lines[j] = fm.group(1) + names[reader] + fm.group(3) + "\n"
-        block = _block(cand, names[reader], st.parent if explicit else None, indent)
+        note = f"{indent}  # buffer '{cand.name}' from {os.path.basename(cand.path)}, placed by chainplan buffers\n"
+        feed = st.parent
+        block = []
+        if cand.input_bias is not None:
+            block += _block(cand.input_bias, biases[reader], feed if explicit else None, indent)
+            block.append(note.replace("# buffer", "# input bias of buffer"))
+            feed = biases[reader]
+        block += _block(cand.stage, names[reader], feed if explicit else None, indent) + [note]
         lines[i:i] = block
     out = "".join(lines)
     if new_path is not None and chain.path is not None:
@@ -57,9 +64,8 @@ def buffered_text(chain: Chain, placement: dict, text: str, new_path: str | None
     return out
 
 
-def _block(cand: Candidate, name: str, parent: str | None, indent: str) -> list[str]:
-    """The candidate's stage block as written in its parts file, named ``name``."""
-    st = cand.stage
+def _block(st, name: str, parent: str | None, indent: str) -> list[str]:
+    """A candidate's stage block as written in its parts file, named ``name``."""
     pad = indent + "  "
     out = [f"{indent}- name: {name}\n", f"{pad}kind: {st.kind}\n"]
     if parent is not None:
@@ -69,7 +75,6 @@ def _block(cand: Candidate, name: str, parent: str | None, indent: str) -> list[
     for key in keys:
         value = rails.get(key, st.raw[key])
         out.append(f"{pad}{key}: {_scalar(value)}\n")
-    out.append(f"{pad}# buffer '{cand.name}' from {os.path.basename(cand.path)}, placed by chainplan buffers\n")
     return out
 
 
@@ -116,7 +121,9 @@ def write_buffered(chain: Chain, placement: dict, out_path: str) -> str:
     except SpecError as exc:
         raise UsageError(f"the buffered spec would not read back at {out_path} ({exc}); "
                          "write it inside the project, e.g. next to the original") from None
-    missing = [n for n in (buffer_names(chain)[r] for r in placement) if n not in [s.name for s in back.stages]]
+    want = [buffer_names(chain)[r] for r in placement] + \
+        [bias_names(chain)[r] for r, c in placement.items() if c.input_bias is not None]
+    missing = [n for n in want if n not in [s.name for s in back.stages]]
     if missing:
         raise UsageError(f"internal check failed: buffers {', '.join(missing)} missing from the written spec")
     tmp = None

@@ -74,15 +74,17 @@ def test_recovered_and_net_gain_are_differences_of_two_full_analyses(tmp_path):
     chain = make(tmp_path, stages="  - name: lead\n    kind: cable\n    length: 10 m\n    c_per_m: 100 pF/m\n")
     a = advise(chain)
     before = evaluate(chain)
-    checked = 0
+    checked, biased = 0, 0
     for row in a.interfaces:
         for e in row.candidates:
             if not e.valid:
                 continue
             after = evaluate(insert_buffers(chain, {row.reader: cand(chain, e.candidate)}))
-            buf = e.buffer
-            want = loss_db(after, buf) + loss_db(after, row.reader) - loss_db(before, row.reader)
+            inserted = [e.buffer] if e.bias_stage is None else [e.bias_stage, e.buffer]
+            assert [st.name for st in after.chain.stages if st.name in inserted] == inserted
+            want = sum(loss_db(after, n) for n in (*inserted, row.reader)) - loss_db(before, row.reader)
             assert e.recovered_db == pytest.approx(want, abs=1e-9)
+            biased += e.bias_stage is not None
             net = analyse(insert_buffers(chain, {row.reader: cand(chain, e.candidate)})).gain_db - \
                 analyse(chain).gain_db
             assert e.net_gain_db == pytest.approx(net, abs=1e-9)
@@ -91,7 +93,7 @@ def test_recovered_and_net_gain_are_differences_of_two_full_analyses(tmp_path):
                     assert h.change_v == pytest.approx(float(after.headroom(h.node)[0]) -
                                                        float(before.headroom(h.node)[0]), abs=1e-12)
             checked += 1
-    assert checked >= 6
+    assert checked >= 6 and biased >= 2
 
 
 def effect_at(chain, reader, name):
@@ -164,11 +166,28 @@ def test_verdict_needed_when_a_follower_wins_back_a_heavy_loss(tmp_path):
 
 
 def test_verdict_would_clip_when_the_node_sits_at_ground(tmp_path):
-    chain = make(tmp_path, dc="0 V")      # a follower cannot sit on a node at 0 V on a single supply
-    (row,) = advise(chain).interfaces
+    chain = make(tmp_path, dc="0 V")      # a DC-coupled follower cannot sit on a node at 0 V on a single supply
+    direct = [c for c in candidates_of(chain) if not c.biased]
+    (row,) = advise(chain, direct).interfaces
     assert row.verdict == "would clip"
     assert all(not e.usable for e in row.candidates)
     assert "0 V DC" in row.reason
+
+
+def test_a_follower_behind_its_own_input_bias_works_at_ground(tmp_path):
+    chain = make(tmp_path, dc="0 V")
+    (row,) = advise(chain).interfaces
+    assert row.verdict == "needed" and cand(chain, row.best).biased
+    usable = {e.candidate for e in row.candidates if e.usable}
+    assert usable == {c.name for c in candidates_of(chain) if c.biased}
+    gate = next(e for e in row.candidates if e.candidate == "nmos_50u_gate")
+    ev = evaluate(insert_buffers(chain, {"adc": cand(chain, "nmos_50u_gate")}))
+    # no gate current: the 100 MΩ pulls the gate to the rail exactly, and the output sits VGS below it
+    assert float(np.ravel(ev.dc.node_v[gate.bias_stage])[0]) == pytest.approx(3.3, abs=1e-12)
+    vgs = float(np.ravel(ev.dc.ops[gate.buffer].values["vgs_v"])[0])
+    assert 0.55 < vgs < 1.0 and gate.dc_shift_v == pytest.approx(3.3 - vgs, abs=1e-12)
+    mid = next(e for e in row.candidates if e.candidate == "opamp_micro_mid")
+    assert mid.dc_shift_v == pytest.approx(1.65, abs=1e-3)        # an op-amp follower keeps its input's level
 
 
 def test_verdict_not_worth_it_without_loading(tmp_path):
@@ -181,10 +200,18 @@ def test_verdict_not_worth_it_without_loading(tmp_path):
 
 
 def test_demo_verdicts():
-    a = advise(load_chain(str(REPO / "chains" / "hydrophone_direct.yaml")))
+    direct = load_chain(str(REPO / "chains" / "hydrophone_direct.yaml"))
+    a = advise(direct)
     v = {i.reader: i.verdict for i in a.interfaces}
-    assert v["lead"] == "would clip"          # the element's node is at 0 V: no DC-coupled buffer works there
+    assert v["lead"] == "needed"              # the element's node is at 0 V: only a follower with its own bias works
+    lead = next(i for i in a.interfaces if i.reader == "lead")
+    assert cand(direct, lead.best).biased
     assert v["gain"] == "not worth it"
+    # hydrophone_buffered.yaml is the direct chain with nmos_50u_gate's parts at the element (gate_bias, follower):
+    # the advisor's gain after inserting it there is that chain's budget
+    buffered = analyse(load_chain(str(REPO / "chains" / "hydrophone_buffered.yaml")))
+    gate = next(e for e in lead.candidates if e.candidate == "nmos_50u_gate")
+    assert a.gain_db + gate.net_gain_db == pytest.approx(buffered.gain_db, abs=1e-9)
     b = advise(load_chain(str(REPO / "chains" / "hydrophone_buffered.yaml")))
     assert {i.reader: i.verdict for i in b.interfaces}["lead"] in ("worth it", "needed")
 

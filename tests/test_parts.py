@@ -41,6 +41,14 @@ FOLLOWER = """\
 {cost}"""
 
 
+BIAS = """\
+    input_bias:
+      c: {c}
+      r_bias: 10M
+      bias: {bias}
+"""
+
+
 def write(path, text):
     path.parent.mkdir(parents=True, exist_ok=True)
     path.write_text(textwrap.dedent(text), encoding="utf-8")
@@ -73,6 +81,16 @@ def test_parts_file_and_inline_candidates_load_with_costs(tmp_path):
     # the default v_pos of an op-amp is the chain's 'vdd' rail: resolved against the including chain
     assert cands[0].stage.params["v_pos"] == pytest.approx(3.3)
     assert cands[0].path.endswith(os.path.join("parts", "a.yaml"))
+
+
+def test_a_candidate_with_an_input_bias_network(tmp_path):
+    parts(tmp_path, "parts/a.yaml", "candidates:\n" + FOLLOWER.format(name="op_mid", cost=BIAS.format(
+        c="100 nF", bias="vmid")))
+    (c,) = candidates_of(load_chain(chain_file(tmp_path, include="include: parts/a.yaml\n")))
+    assert c.biased and c.input_bias.kind == "ac_coupling"
+    assert c.input_bias.params == {"c": pytest.approx(100e-9), "r_bias": pytest.approx(10e6),
+                                   "bias": pytest.approx(1.65)}          # the including chain's vmid
+    assert c.input_bias.raw["__rails__"] == {"bias": "vmid"}             # written back by name
 
 
 def test_nested_includes_resolve_relative_to_each_file(tmp_path):
@@ -117,6 +135,19 @@ BAD = [
      "    gbw: 1 MHz\n", ("chain.yaml", 22), "from", "not connected"),
     ("unknown rail", "candidates:\n" + FOLLOWER.format(name="x", cost="") .replace("gbw", "v_neg: vss\n    gbw"),
      "include: [p.yaml]\n", "", ("p.yaml", 4), "x.v_neg", "not a declared rail"),
+    ("input bias in volts", "candidates:\n" + FOLLOWER.format(name="x", cost=BIAS.format(c="100 V", bias="vmid")),
+     "include: [p.yaml]\n", "", ("p.yaml", 7), "x.input_bias.c", "volts given"),
+    ("input bias to an unknown rail", "candidates:\n" + FOLLOWER.format(name="x", cost=BIAS.format(
+        c="100 nF", bias="vneg")), "include: [p.yaml]\n", "", ("p.yaml", 9), "x.input_bias.bias",
+     "not a declared rail of chain 'parts-test'"),
+    ("input bias with a kind", "candidates:\n" + FOLLOWER.format(name="x", cost=BIAS.format(
+        c="100 nF", bias="vmid") + "      kind: divider\n"), "include: [p.yaml]\n", "", ("p.yaml", 10),
+     "x.input_bias.kind", "no field 'kind'"),
+    ("input bias not a mapping", "candidates:\n" + FOLLOWER.format(name="x", cost="    input_bias: vmid\n"),
+     "include: [p.yaml]\n", "", ("p.yaml", 6), "x.input_bias", "is a mapping"),
+    ("input bias without its resistor", "candidates:\n" + FOLLOWER.format(name="x", cost=BIAS.format(
+        c="100 nF", bias="vmid").replace("      r_bias: 10M\n", "")), "include: [p.yaml]\n", "", ("p.yaml", 7),
+     "x.input_bias.r_bias", "missing required field"),
     ("duplicate names", "candidates:\n" + FOLLOWER.format(name="x", cost="") + FOLLOWER.format(name="x", cost=""),
      "include: [p.yaml]\n", "", ("p.yaml", 6), "name", "used twice"),
 ]

@@ -24,7 +24,8 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
     bx = table_box(console)
     c = a.chain
     console.print(Text(c.name, style="bold"), Text(f"  ({c.path})" if c.path else ""))
-    cands = ", ".join(f"{e.candidate} ({e.kind})" for e in (a.interfaces[0].candidates if a.interfaces else []))
+    cands = ", ".join(f"{e.candidate} ({e.kind}{_bias_text(e)})"
+                      for e in (a.interfaces[0].candidates if a.interfaces else []))
     console.print(f"candidates: {cands or 'none'}; ranked by {a.cost_basis}; at {eng(a.f_ref_hz, 'Hz')}, "
                   f"end-to-end gain now {db(a.gain_db)} to '{a.output}'")
 
@@ -62,6 +63,11 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
         console.print(t)
         for n in notes:
             console.print(n)
+
+
+def _bias_text(e: CandidateEffect) -> str:
+    b = e.input_bias
+    return "" if b is None else f" behind {eng(b['c_f'], 'F')} and {eng(b['r_bias_ohm'], 'Ω')} to {b['bias']}"
 
 
 def _compact_box():
@@ -112,7 +118,8 @@ def advice_dict(a: Advice) -> dict:
 def _effect_dict(e: CandidateEffect) -> dict:
     w = e.worst_headroom
     return {
-        "candidate": e.candidate, "kind": e.kind, "buffer": e.buffer, "valid": e.valid, "problem": e.problem,
+        "candidate": e.candidate, "kind": e.kind, "buffer": e.buffer, "bias_stage": e.bias_stage,
+        "input_bias": e.input_bias, "valid": e.valid, "problem": e.problem,
         "loading_loss_after_db": e.loss_after_db, "recovered_db": e.recovered_db,
         "buffer_gain_db": e.buffer_gain_db, "dc_shift_v": e.dc_shift_v, "net_gain_db": e.net_gain_db,
         "f_low_before_hz": e.f_low_before_hz, "f_low_after_hz": e.f_low_after_hz,
