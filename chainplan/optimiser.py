@@ -1,7 +1,7 @@
 """Exact buffer placement: which candidate buffers to insert at which interfaces
 so that the chain meets its targets (minimum end-to-end gain, minimum
 headroom at every node, band edges, total follower power) at the least total
-cost, ties broken by fewer buffers.
+cost, ties broken by fewer buffers, then fewer parts.
 
 Cost model
 ----------
@@ -10,7 +10,9 @@ operating points where they are inserted (a follower's Id·(drain − v_low),
 an op-amp's i_supply·(v_pos − v_neg), or the parts file's fixed ``power``);
 ``price``: the sum of the candidates' prices (every candidate must state one);
 ``parts``: the number of parts they add (``count``).  The default is ``price``
-when every candidate states a price, else ``power``.
+when every candidate states a price, else ``power``.  A candidate with its own
+input bias network (``input_bias``) is one choice: the AC coupling and the
+follower are inserted, costed and written together.
 
 The search — a shortest path over a DAG of regions, with Pareto labels
 ---------------------------------------------------------------------
@@ -21,45 +23,62 @@ followers and non-inverting stages, the amplifier macro model, a MOSFET
 source follower without Cgs: ABCD with A·D − B·C = 0, Pozar, *Microwave
 Engineering*, ch. 4, from memory; gate or fixed R‖C input).  Where such a
 stage reads a node — an original stage, or a unilateral candidate inserted
-there — the chain splits: nothing downstream changes any voltage upstream,
-and everything downstream depends on upstream only through that node's DC
-level ``v`` and its signal ``V(f)``.  Bilateral candidates (an emitter follower
-draws base current; its input impedance β·R depends on its load) do not cut.
+there (behind its bias network, if it has one) — the chain splits: nothing
+downstream changes any voltage upstream, and everything downstream depends on
+upstream only through that node's DC level ``v`` and its signal ``V(f)``.
+Bilateral candidates (an emitter follower draws base current; its input
+impedance β·R depends on its load) do not cut.
 
 *Regions.*  A region starts at a cut element reading node X (or at the
 source) and extends through every stage it drives up to the next cut
-elements (its terminators), with the choices (no buffer, or a bilateral
-candidate) made at the interfaces inside it.  The engine analyses a region
-as a chain of its own, fed by an ideal source at X with DC level ``v`` and
-unit signal (``chainplan.budget.evaluate``; the terminators appear as their
-input admittance and DC input current only).  A region's node voltages are
-then exactly ``V_X(f)·T_n(f)`` and its DC levels, operating points and device
-validity are exactly those of the whole chain — whatever is placed elsewhere.
+elements (its terminals), with the choices (no buffer, or a bilateral
+candidate) made at the interfaces inside it; a candidate's bias network sits
+in the region that drives it (it loads X), the candidate itself starts the next
+one.  The engine analyses a region as a chain of its own, fed by an ideal
+source at X with DC level ``v`` and unit signal (``chainplan.budget.evaluate``;
+the terminals appear as their input admittance and DC input current only).
+A region's node voltages are then exactly ``V_X(f)·T_n(f)`` and its DC levels,
+operating points and device validity are exactly those of the whole chain —
+whatever is placed elsewhere.  Every region starting at one interface — each
+cut element that can start there, each shape below it, each DC level — is one
+sample of a single engine call (``chainplan.regions``): a stage at each place
+chooses per sample between a plain connection (the identity two-port, which
+changes no number), the element itself, or a terminal's input admittance
+(``chainplan.switch``).
 
 *States* are (cut position, cut element, DC level at its input).  The forward
-pass evaluates every region reachable from the source, batching all DC
-levels of a state group as the engine's samples; it also bounds, per state,
-the upstream gain |V_X/Vs| at the gain frequencies and the upstream follower
-power over all upstream placements.
+pass processes the interfaces in chain order; it analyses each state's shapes
+that a placement within the cost bound can use, and bounds, per state, the
+upstream gain |V_X/Vs| at the gain frequencies, the upstream follower power
+over all upstream placements, and the least cost of reaching the state.
 
 *Labels.*  The backward pass gives every state the Pareto set of its
 completions, each completion (the regions below the state) summarised by
-cost, number of buffers, follower power, and what it needs from upstream:
-an interval [lo, hi] for |V_X/Vs| at each gain frequency (headroom at a node
-n needs a·G·t_n ≤ room_n − H, the gain target G·t_out ≥ Gmin), and — when a
-band edge is required — the completion's normalised response shape.  A
-completion dominates another when it costs no more (cost, then buffers), draws
-no more power, accepts a superset of upstream gains, and has a response at
-least as high at every frequency that can move the band edge (the −3 dB
-edge found by the engine's interpolation is monotone in those values).
+cost, number of buffers and parts, follower power, and what it needs from
+upstream: an interval [lo, hi] for |V_X/Vs| at each gain frequency (headroom
+at a node n needs a·G·t_n ≤ room_n − H, the gain target G·t_out ≥ Gmin), and —
+when a band edge is required — the completion's normalised response shape.  A
+completion dominates another when it costs no more (cost, then buffers, then
+parts), draws no more power, accepts a superset of upstream gains, and has a
+response at least as high at every frequency that can move the band edge (the
+−3 dB edge found by the engine's interpolation is monotone in those values).
 Intervals are clipped to the reachable upstream range before comparing, which
 changes no decision.  A fan-out region combines the label sets of its
-terminators (a product, pruned as it grows), so trees are handled by the same
+terminals (a product, pruned as it grows), so trees are handled by the same
 recursion.  At the source the gain is exactly 1, and the cheapest label whose
 interval contains 1 and whose band edges and power meet the targets is the
 optimum: no placement is ever discarded unless another one at no greater cost
 is feasible wherever it is (exactness).  Tests compare the result with brute
 force enumeration through full analyses (tests/test_optimiser_bruteforce.py).
+
+*Cost bounds.*  Prices, part counts and fixed powers are known before any
+analysis, so the search with cost bound B needs only the region shapes with
+cmin + (a lower bound of their cost) ≤ B, the edges with cmin + cost ≤ B and
+the completions with cmin + cost ≤ B, cmin the least cost of reaching the
+state: every placement costing at most B passes all three tests everywhere
+along it.  The bound grows 0, the cheapest candidate, then doubling; a
+solution within B is optimal.  Each bound's forward pass reuses the analyses
+of the previous ones and analyses only what is new.
 
 Floating point: decisions use a relative tolerance of 1e-9 (DC levels that
 agree to 1e-12 V are one state); the chosen placement is re-analysed in full
@@ -67,15 +86,8 @@ and its figures are the ones reported.  The engine's own DC iteration (for
 base currents) settles to 1e-9 V, so chains with emitter followers agree with
 full analyses to that level.
 
-Cost-bounded deepening: prices, part counts and fixed powers are known before
-any analysis, so a run with cost bound B skips every region shape that would
-take a path over B (bounds 0, the cheapest candidate, then doubling); a
-solution within B is optimal because every placement costing at most B was
-explored.
-
-Complexity: one engine call per (state group, family of region shapes that
-differ only in which unilateral candidate ends them), linear in the chain's
-length for a fixed density of cuts and DC resets; the label sets are
+Complexity: one engine call per interface and cost bound, linear in the
+chain's length for a fixed density of cuts and DC resets; the label sets are
 bounded by the number of cost/gain trade-offs that stay non-dominated — the
 problem contains knapsack (gains multiply, costs add), so no exact method is
 polynomial in the worst case.
@@ -339,8 +351,8 @@ def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None 
     bounds = list(_bounds(search))
     for k, bound in enumerate(bounds):
         if run is None or bound > run.bound:            # reach further: a new forward pass
-            ahead = FORWARD_AHEAD * max(bound, bounds[min(k + 1, len(bounds) - 1)] if bound == 0 else bound)
-            run = Run(search, targets, ahead)
+            reach = bounds[min(k + 1, len(bounds) - 1)] if bound == 0 else bound
+            run = Run(search, targets, reach, ahead=2 * reach)
             run.forward()
         root = run.backward(bound)
         q = run.best(root)
@@ -357,10 +369,6 @@ def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None 
     plan = _plan(chain, search, picks, targets, before, stats)
     stats["seconds"] = time.perf_counter() - t0
     return plan
-
-
-#: A forward pass reaches this many times the cost bound, so the next bounds need none.
-FORWARD_AHEAD = 1.0
 
 
 def _bounds(search: Search):

@@ -3,36 +3,23 @@
 A *region* runs from a cut (or the source) through the stages it drives up to
 the next cuts, with a choice made at each interface inside it: no buffer, a
 bilateral candidate (it stays inside), or a unilateral candidate (it ends the
-region there; see ``is_cut``).  The placement search needs every region shape
-analysed at every DC level its input node can have.
+region there; see ``is_cut``).  The placement search needs region shapes
+analysed at the DC levels their input node can have.
 
-All regions that start at the same interface — every cut element that can
-read that node, every shape downstream of it, every DC level — are analysed
-by **one** engine call (``chainplan.budget.evaluate``): they are stacked along
-the engine's samples axis.  The chain the engine sees is the *superset* of
-the shapes: at every place a stage or a candidate can sit there is a
-:class:`Switch`, a stage whose behaviour is chosen per sample among
-
-* ``pass``: a plain connection — the identity two-port ``[[1, 0], [0, 1]]``
-  (its DC passes the source relation and the load through unchanged), or for
-  a load, nothing at all;
-* ``model``: the element itself (an original stage, a candidate follower or
-  a candidate's input bias network), its own model with its own parameters;
-* ``terminal``: a cut element that ends the region, present only as its input
-  admittance (a shunt ``[[1, 0], [Y, 1]]``) and its DC input current; for the
-  cut kinds both are independent of the element's operating point and load.
-
-A sample's stages downstream of a terminal are all ``pass``, so they load
-nothing.  An identity two-port changes no number (``A·1 + B·0 = A`` exactly),
-so each sample is exactly the region shape it stands for, analysed as a chain
-of its own (the two-port and DC algebra of ``stages/base.py``; Pozar,
-*Microwave Engineering*, ch. 4, from memory).  Nodes that a ``pass`` or a
-terminal joins to the node before it are one electrical node: their limits
-are merged (the tighter wins) and the figures are read at the real node.
-
-DC solutions of the devices solved by bisection are remembered per element and
-exact input row (a pure function of them), so a row met again — in another
-Newton round, another shape, another region — is not solved again.
+Every region that starts at one interface — every cut element that can read
+that node, every shape below it, every DC level — is analysed by **one**
+engine call (``chainplan.budget.evaluate``), stacked along the engine's samples
+axis.  The chain the engine sees is the *superset* of the shapes (a
+:class:`Wave`): at every place where an original stage, a candidate or a
+candidate's bias network can sit there is a ``chainplan.switch.Switch`` that
+is, per sample, a plain connection, the element itself, or a terminal.  A
+sample's stages below a terminal are all plain connections, so each sample is
+exactly the region shape it stands for, analysed as a chain of its own.
+Nodes that a plain connection or a terminal joins to the node before it are
+one electrical node: their limits are merged (the tighter wins) and the
+figures are read at the real node.  Switches that are a plain connection for
+every sample of a call are left out of that call's chain (an identity changes
+no number).
 """
 from __future__ import annotations
 
@@ -105,8 +92,7 @@ class Wave:
     src_names: dict = field(default_factory=dict)        # key -> name of the region's input node
     rows: dict = field(default_factory=dict)
     data: dict | None = None
-    sub: Chain | None = None                             # the superset as a chain for the engine
-    node_name: list = field(default_factory=list)
+    subs: dict = field(default_factory=dict)             # the superset as chains for the engine
     assign: np.ndarray | None = None
     modes: list = field(default_factory=list)            # switch -> mode per variant (array)
     term_node: np.ndarray | None = None                  # (shapes, T) switch of each terminal, −1 none
@@ -282,8 +268,6 @@ class Regions:
         few, to bound the arrays' size: MAX_CELLS samples × frequencies)."""
         if not len(key_of):
             return
-        if w.sub is None:
-            self._superset_chain(w)
         per = max(1, MAX_CELLS // len(self.grid))                   # samples per engine call
         blocks = [self._call(w, key_of[i:i + per], shape_of[i:i + per], v_of[i:i + per])
                   for i in range(0, len(key_of), per)]
@@ -293,16 +277,28 @@ class Regions:
         for i, (k, d, vk) in enumerate(zip(key_of, shape_of, vk_of)):
             w.rows[(w.keys[k], vk)][d] = base + i
 
-    def _superset_chain(self, w: Wave) -> None:
+    def _superset_chain(self, w: Wave, kept: tuple) -> tuple[Chain, list]:
+        """The superset as a chain for the engine, without the switches that are a plain
+        connection for every sample (``kept``: the others); and, per node, the name of the node it
+        is the same as in that chain."""
+        if kept in w.subs:
+            return w.subs[kept]
         src = self.chain.source if w.reader is None else \
             Stage(name="@0", kind="sensor", params={"amplitude": 1.0, "dc": 0.0, "r": 0.0, "c": 0.0}, parent=None)
-        w.node_name = [src.name] + [f"@{i}" for i in range(1, len(w.names))]
-        stages = [_SwitchStage(name=w.node_name[w.node[j]] if w.node[j] > 0 else f"@load{j}", kind="switch",
-                               params={}, parent=w.node_name[w.parent[j]], switch=sw)
-                  for j, sw in enumerate(w.switches)]
-        w.sub = Chain(name=self.chain.name, description="", source=src, stages=stages, rails=self.chain.rails,
-                      temp_k=self.chain.temp_k, analysis=Analysis(f_ref_hz=self.chain.analysis.f_ref_hz),
-                      path=self.chain.path)
+        alias = [src.name] + [""] * (len(w.names) - 1)
+        stages = []
+        for j, sw in enumerate(w.switches):
+            parent = alias[w.parent[j]]
+            if w.node[j] > 0:
+                alias[w.node[j]] = f"@{w.node[j]}" if j in kept else parent
+            if j in kept:
+                stages.append(_SwitchStage(name=alias[w.node[j]] if w.node[j] > 0 else f"@load{j}", kind="switch",
+                                           params={}, parent=parent, switch=sw))
+        sub = Chain(name=self.chain.name, description="", source=src, stages=stages, rails=self.chain.rails,
+                    temp_k=self.chain.temp_k, analysis=Analysis(f_ref_hz=self.chain.analysis.f_ref_hz),
+                    path=self.chain.path)
+        w.subs[kept] = (sub, alias)
+        return sub, alias
 
     def _call(self, w: Wave, key_of, shape_of, v_of) -> dict:
         """One engine call: sample i is shape ``shape_of[i]`` of key ``key_of[i]`` fed at DC ``v_of[i]``."""
@@ -311,9 +307,10 @@ class Regions:
         if w.start is not None:
             starts = np.array([w.start_var[key[2]] for key in w.keys])
             choice[:, w.start] = starts[key_of]
-        for j, sw in enumerate(w.switches):
-            sw.use(choice[:, j])
-        sub = w.sub
+        kept = tuple(j for j in range(len(w.switches)) if np.any(w.modes[j][choice[:, j]] != PASS))
+        for j in kept:
+            w.switches[j].use(choice[:, j])
+        sub, alias = self._superset_chain(w, kept)
         params = nominal_params(sub)
         if w.reader is not None:
             params[sub.source.name]["dc"] = v_of.reshape(n, 1)
@@ -321,10 +318,9 @@ class Regions:
             ev = evaluate(sub, params, self.grid)
             self.calls += 1
             self.samples += n
-            return self._extract(w, ev, choice, shape_of, key_of, n)
+            return self._extract(w, ev, sub, alias, choice, shape_of, key_of, n)
 
-    def _extract(self, w: Wave, ev, choice, shape_of, key_of, n) -> dict:
-        names, sub = w.node_name, w.sub
+    def _extract(self, w: Wave, ev, sub, names, choice, shape_of, key_of, n) -> dict:
         N = len(names)        # the real node each node belongs to: a pass or a terminal joins its output to its input
         rep = np.tile(np.arange(N), (n, 1))
         for j in range(len(w.switches)):
@@ -345,10 +341,10 @@ class Regions:
         room = np.where(real, np.minimum(hi - dc, dc - lo), np.nan)
         valid = np.ones(n, dtype=bool)
         power, cost, parts = np.zeros(n), np.zeros(n), np.zeros(n)
-        for j, sw in enumerate(w.switches):
-            op = ev.dc.ops[sub.stages[j].name]
+        for st in sub.stages:
+            op = ev.dc.ops[st.name]
             valid &= ~np.broadcast_to(np.ravel(op.bad), (n,))
-            pw, c, k = sw.spend(op, self.basis)
+            pw, c, k = st.switch.spend(op, self.basis)
             power, cost, parts = power + pw, cost + c, parts + k
         valid &= np.all(np.isfinite(np.where(real, dc, 0.0)) & np.isfinite(np.where(real, t, 0.0)), axis=1)
         tn = w.term_node[shape_of]                                   # (n, T) node each terminal reads
@@ -380,6 +376,8 @@ class Regions:
 def _merge(a: Shape, b: Shape) -> Shape:
     if not (b.assign or b.terms or b.bufs or b.choices):
         return a
+    if not (a.assign or a.terms or a.bufs or a.choices):
+        return b
     return Shape({**a.assign, **b.assign}, a.terms + b.terms, a.bufs + b.bufs, {**a.choices, **b.choices},
                  a.out if a.out >= 0 else b.out)
 

@@ -90,8 +90,11 @@ class _States:
 class Run:
     """Forward reachability and backward Pareto labels for one set of targets and cost bound."""
 
-    def __init__(self, search: Search, targets, bound: float = math.inf):
+    def __init__(self, search: Search, targets, bound: float = math.inf, ahead: float | None = None):
+        """``ahead`` (≥ bound): also analyse, in the same engine calls, the shapes a search with that
+        bound will need from the states this one reaches (the next bound's calls are then fewer)."""
         self.s, self.t, self.bound = search, targets, bound
+        self.ahead = bound if ahead is None else max(ahead, bound)
         self.tol = REL * max(1.0, abs(bound)) if math.isfinite(bound) else math.inf
         ncol = len(search.cols)
         self.lo_gain = np.zeros(ncol)
@@ -141,8 +144,9 @@ class Run:
         if not len(sids):
             return
         allowed = w.lb[None, :] <= (self.bound - st.cmin[sids])[:, None] + self.tol
+        wanted = allowed | (w.lb[None, :] <= (self.ahead - st.cmin[sids])[:, None] + self.tol)
         rows = np.array([regions.rows_of(w, st.key[i], st.vk[i]) for i in sids])
-        todo = np.nonzero(allowed & (rows < 0))
+        todo = np.nonzero(wanted & (rows < 0))
         if len(todo[0]):                  # the shapes within the bound not analysed yet, in one call
             ts = sids[todo[0]]
             regions.analyse(w, np.array([w.key_index[st.key[i]] for i in ts]), todo[1], st.v[ts],
@@ -331,15 +335,16 @@ class Run:
         return partial
 
     def _prune(self, lb: Labels, i: int) -> Labels:
-        """Drop labels infeasible for every reachable upstream gain, clip their intervals to
-        the reachable range (which changes no decision), then drop the dominated ones."""
+        """Drop labels infeasible for every reachable upstream gain or dearer than the cost bound
+        allows after the cheapest way here, clip their intervals to the reachable range (which
+        changes no decision), then drop the dominated ones."""
         if not len(lb):
             return lb
         st = self.st
         glo, ghi = st.glo[i], st.ghi[i]
         lo, hi = np.maximum(lb.lo, glo), np.minimum(lb.hi, ghi)
         ok = ~np.any(lo > hi * (1 + REL), axis=1) & ~np.any(lo > ghi * (1 + REL), axis=1) & \
-            ~np.any(hi < glo * (1 - REL), axis=1)
+            ~np.any(hi < glo * (1 - REL), axis=1) & (st.cmin[i] + lb.cost <= self.cap + self.cap_tol)
         if self.pmax is not None:
             ok &= ~(lb.power + st.plo[i] > self.pmax * (1 + REL))
         lb.lo, lb.hi = lo, hi

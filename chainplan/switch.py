@@ -46,11 +46,14 @@ class Element:
         self.term_op: Op | None = None
         self.term_y: dict = {}
         self._term_load: DcLoad | None = None
+        self._sig = None
 
     def signature(self):
         """Elements with equal signatures can share one stacked model call."""
-        fixed = tuple(sorted((k, v) for k, v in self.p.items() if not _numeric(v)))
-        return self.kind, tuple(sorted(self.p)), fixed
+        if self._sig is None:
+            fixed = tuple(sorted((k, v) for k, v in self.p.items() if not _numeric(v)))
+            self._sig = self.kind, tuple(sorted(self.p)), fixed
+        return self._sig
 
     # -- as a terminal: input admittance and DC input load only ------------------------------
     def terminal_seen(self, st_in: DcState, v_in) -> None:
@@ -218,7 +221,7 @@ class Switch:
                  for v, m in enumerate(self.modes)]
         self.t_g = np.array([ld.G for ld in loads])
         self.t_i0 = np.array([ld.I0 for ld in loads])
-        self.use(np.zeros(1, dtype=int))
+        self.n, self.active, self.last = 0, [], None
 
     def use(self, choice: np.ndarray) -> None:
         """Set each sample's variant."""

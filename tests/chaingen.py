@@ -39,6 +39,21 @@ CANDIDATES = """candidates:
 """
 
 
+#: a follower behind its own gate bias (an AC coupling to vdd), one choice for the optimiser
+BIASED = """  - name: nmos_gate
+    kind: source_follower
+    kp: 120 µA/V²
+    w_over_l: 200
+    vth0: 0.55 V
+    lambda: 0.04 /V
+    bulk: source
+    i_bias: 50 µA
+    r_bias: 2M
+    input_bias: {c: 100 nF, r_bias: 10M, bias: vdd}
+    cost: {price: 0.15, count: 4}
+"""
+
+
 def _stage(rng: random.Random, i: int) -> str:
     kind = rng.choice(["rc_lowpass", "cable", "ac_coupling", "divider", "series_r", "opamp_noninverting",
                        "source_follower", "amplifier", "emitter_follower"])
@@ -70,11 +85,14 @@ def _stage(rng: random.Random, i: int) -> str:
            f"    bulk: source\n    i_bias: 100 µA\n"
 
 
-def random_chain_text(seed: int, n_stages: int = 3, fanout: bool = False) -> str:
+def random_chain_text(seed: int, n_stages: int = 3, fanout: bool = False, biased: bool = False) -> str:
+    """A seeded random chain; ``biased`` adds a candidate with its own input bias and lets the
+    source sit at 0 V (where only that one can follow it)."""
     rng = random.Random(seed)
     text = f"name: random-{seed}\n" + RAILS
+    levels = ['1.2 V', 'vmid', '2.0 V'] + (['0 V', '0 V'] if biased else [])
     text += (f"source:\n  name: src\n  kind: sensor\n  amplitude: {rng.choice(['20 mV', '100 mV', '300 mV'])}\n"
-             f"  dc: {rng.choice(['1.2 V', 'vmid', '2.0 V'])}\n  r: {rng.choice(['1k', '47k', '1M'])}\n"
+             f"  dc: {rng.choice(levels)}\n  r: {rng.choice(['1k', '47k', '1M'])}\n"
              f"  c: {rng.choice(['0 F', '100 pF'])}\n")
     text += "stages:\n"
     for i in range(n_stages):
@@ -86,4 +104,4 @@ def random_chain_text(seed: int, n_stages: int = 3, fanout: bool = False) -> str
         text += f"  - name: meter\n    kind: load\n    from: {tap}\n    r_in: {rng.choice(['10k', '100k'])}\n" \
                 f"    c_in: 1 nF\n    ref: vmid\n"
     text += "analysis:\n  f_ref: 1 kHz\n  f_start: 10 Hz\n  f_stop: 10 MHz\n  points: 61\n"
-    return text + CANDIDATES
+    return text + CANDIDATES + (BIASED if biased else "")

@@ -1,11 +1,13 @@
-"""The optimiser against brute force: on small seeded random chains (linear and
-with a side branch) every placement of every candidate is analysed in full by
-the engine, independently of the optimiser, and the optimiser must find the
-same feasibility, the same least cost (price and power) and the same number
+"""The optimiser against brute force: on small seeded random chains (linear,
+with a side branch, and with a candidate that brings its own input bias
+network, its source at 0 V) every placement of every candidate is analysed in
+full by the engine, independently of the optimiser, and the optimiser must find
+the same feasibility, the same least cost (price and power) and the same number
 of buffers; when nothing is feasible, the best gain it reports reachable must
 be the brute-force best."""
 from __future__ import annotations
 
+import functools
 import itertools
 import math
 
@@ -24,11 +26,21 @@ from chaingen import random_chain_text
 F_REF = 1e3
 LINEAR = [1, 2, 9, 11]
 FANOUT = [3, 12]
+BIASED = [1, 27]          # sources at 0 V: only the candidate behind its own gate bias can follow them
+
+
+_TABLES: dict = {}
 
 
 def table(chain):
     """Every placement analysed in full: (valid, gain dB, min headroom V, f_high, price, power, buffers,
-    power of all follower-type stages, f_low)."""
+    power of all follower-type stages, f_low); made once per chain (the chains are cached too)."""
+    if id(chain) not in _TABLES:
+        _TABLES[id(chain)] = _table(chain)
+    return _TABLES[id(chain)]
+
+
+def _table(chain):
     cands = candidates_of(chain)
     readers = [st.name for st in chain.stages]
     rows = []
@@ -74,21 +86,24 @@ def between(values, q):
     return 0.5 * (v[i] + v[i + 1])
 
 
-def chain_for(seed, fanout):
+@functools.lru_cache(maxsize=None)
+def chain_for(seed, fanout, biased=False):
     try:
-        c = load_chain_text(random_chain_text(seed, 2 if fanout else 3, fanout), f"/tmp/random-{seed}.yaml")
+        c = load_chain_text(random_chain_text(seed, 2 if fanout or biased else 3, fanout, biased),
+                            f"/tmp/random-{seed}.yaml")
         ev = evaluate(c)
     except SpecError:
         return None
     return c if bool(ev.valid[0]) else None
 
 
-CASES = [(s, False) for s in LINEAR] + [(s, True) for s in FANOUT]
+CASES = [(s, False, False) for s in LINEAR] + [(s, True, False) for s in FANOUT] + [(s, False, True) for s in BIASED]
 
 
-@pytest.mark.parametrize("seed,fanout", CASES, ids=[f"{'tree' if f else 'line'}-{s}" for s, f in CASES])
-def test_optimiser_matches_brute_force(seed, fanout):
-    chain = chain_for(seed, fanout)
+@pytest.mark.parametrize("seed,fanout,biased", CASES,
+                         ids=[f"{'tree' if f else 'biased' if b else 'line'}-{s}" for s, f, b in CASES])
+def test_optimiser_matches_brute_force(seed, fanout, biased):
+    chain = chain_for(seed, fanout, biased)
     assert chain is not None, "the seeded chain must be a valid chain (pick another seed)"
     rows = table(chain)
     valid = [r for r in rows if r[0]]
@@ -108,7 +123,7 @@ def test_optimiser_matches_brute_force(seed, fanout):
     if lows:
         targets.append(Targets(min_gain_db={F_REF: between([r[1] for r in valid], 0.4)},
                                max_f_low_hz=between(lows, 0.5)))
-    needed = 0
+    needed, gate = 0, 0
     for t in targets:
         for basis in ("price", "power"):
             want = best(rows, t, basis)
@@ -119,7 +134,9 @@ def test_optimiser_matches_brute_force(seed, fanout):
                 assert plan.n_buffers == want[1], (t, basis)
                 assert plan.measured.meets()
                 needed += plan.n_buffers > 0
+                gate += any(p.candidate == "nmos_gate" for p in plan.placements)
     assert needed > 0, "at least one target set must need a buffer, or the comparison proves little"
+    assert gate > 0 or not biased, "the biased candidate must be the answer somewhere, or it is not tested"
 
 
 def test_best_reachable_gain_when_infeasible():

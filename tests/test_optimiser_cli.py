@@ -124,3 +124,25 @@ def test_write_to_another_folder_of_the_project_moves_the_include(project, capsy
     assert code == 0, err
     assert "include: [../chains/parts/followers.yaml]" in new.read_text(encoding="utf-8")
     assert analyse(load_chain(str(new))).gain_db >= 31.8
+
+
+def test_a_candidate_with_its_own_bias_is_written_as_two_blocks(project, capsys):
+    """The element of hydrophone_direct.yaml sits at 0 V: only a follower behind its own gate bias
+    can buffer it; --write inserts its ac_coupling and the follower, the pair reading back as one."""
+    src = project / "hydrophone_direct.yaml"
+    new = project / "direct_buffered.yaml"
+    code, out, err = cli(["buffers", src, "--min-gain", "30 dB", "--json", "--write", new], capsys)
+    assert code == 0, err
+    d = json.loads(out)
+    (pl,) = d["placements"]
+    assert pl["candidate"].endswith("_gate")
+    chain = load_chain(str(new))
+    buf = chain.stage(pl["buffer"])
+    bias = chain.stage(buf.parent)
+    assert bias.kind == "ac_coupling" and bias.name == pl["buffer"] + "_bias"
+    assert bias.parent == pl["from"] and chain.stage(pl["to"]).parent == buf.name
+    assert bias.params["r_bias"] == pytest.approx(100e6) and bias.params["bias"] == pytest.approx(3.3)
+    assert bias.raw["__rails__"]["bias"] == "vdd"                  # written by rail name, as in the parts file
+    after = analyse(chain)
+    assert after.gain_db == pytest.approx(d["after"]["gain_db"][0]["db"], abs=1e-9)
+    assert after.gain_db >= 30.0

@@ -180,8 +180,8 @@ def plan_tables(p: Plan, console, requirements=None) -> None:
         console.print("not targeted by the optimiser" + (" (checked on the result above)" if requirements else "")
                       + ": " + ", ".join(p.targets.skipped))
     st = p.stats
-    console.print(f"search: {st.get('states', 0)} states, {st.get('analyses', 0)} region analyses, "
-                  f"{st.get('seconds', 0.0):.2f} s")
+    console.print(f"search: {st.get('states', 0)} states, {st.get('analyses', 0)} region analyses in "
+                  f"{st.get('engine_calls', 0)} engine calls, {st.get('seconds', 0.0):.2f} s")
 
 
 def _origin(p: Plan, kind: str) -> str:
