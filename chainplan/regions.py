@@ -95,8 +95,9 @@ class Wave:
     subs: dict = field(default_factory=dict)             # the superset as chains for the engine
     assign: np.ndarray | None = None
     modes: list = field(default_factory=list)            # switch -> mode per variant (array)
-    term_node: np.ndarray | None = None                  # (shapes, T) switch of each terminal, −1 none
-    term_key: list = field(default_factory=list)         # shape -> [child key per terminal]
+    term_node: np.ndarray | None = None                  # (shapes, T) node each terminal reads, −1 none
+    term_kid: np.ndarray | None = None                   # (shapes, T) child key of each terminal (index)
+    child_keys: list = field(default_factory=list)
     out_node: np.ndarray | None = None
     lb: np.ndarray | None = None
     nbuf: np.ndarray | None = None
@@ -242,13 +243,15 @@ class Regions:
         w.assign = np.zeros((n_sh, n_sw), dtype=int)
         T = max((len(sh.terms) for sh in w.shapes), default=0)
         w.term_node = np.full((n_sh, T), -1, dtype=int)
-        w.term_key = []
+        w.term_kid = np.full((n_sh, T), -1, dtype=int)
+        index: dict = {}
         for i, sh in enumerate(w.shapes):
             for j, v in sh.assign.items():
                 w.assign[i, j] = v
-            for k, (j, _) in enumerate(sh.terms):
+            for k, (j, key) in enumerate(sh.terms):
                 w.term_node[i, k] = w.parent[j]
-            w.term_key.append([key for _, key in sh.terms])
+                w.term_kid[i, k] = index.setdefault(key, len(index))
+        w.child_keys = list(index)
         w.out_node = np.array([sh.out for sh in w.shapes], dtype=int)
         w.nbuf = np.array([len(sh.bufs) for sh in w.shapes], dtype=int)
         w.lb = np.array([sum(self.lb_of(o) for _, o in sh.bufs) +

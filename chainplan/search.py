@@ -180,9 +180,13 @@ class Run:
             if not len(has):
                 continue
             cv = data["term_v"][row[has], j]
-            for p, v in zip(has, cv):
-                child[p, j] = self._state(w.term_key[d[p]][j], vkey(v), v)
-            c = child[has, j]
+            kid = w.term_kid[d[has], j]
+            vks = np.round(cv / V_KEY) * V_KEY
+            combos, first, back = np.unique(np.stack((kid, vks), axis=1), axis=0, return_index=True,
+                                            return_inverse=True)
+            made = np.array([self._state(w.child_keys[int(kk)], float(vk), float(cv[f]))
+                             for (kk, vk), f in zip(combos, first)])
+            c = child[has, j] = made[back.reshape(-1)]
             t = data["term_t"][row[has], j][:, cols]
             np.minimum.at(st.glo, c, glo[has] * t)
             np.maximum.at(st.ghi, c, ghi[has] * t)
