@@ -4,8 +4,9 @@ An interface is named by the stage that reads it: interface ``Y`` is the
 connection from Y's parent node X into Y.  A buffer inserted there becomes a
 new stage (named ``buf_<Y>``, made unique) that reads X, and Y then reads the
 buffer.  A candidate with its own input bias network brings a second stage,
-an ``ac_coupling`` named ``buf_<Y>_bias``: it reads X and the buffer reads it.  Every other stage keeps its parent, so siblings at a fan-out node stay
-on X.  The input chain is never modified: stages are copied, and the engine
+an ``ac_coupling`` named ``buf_<Y>_bias``: it reads X and the buffer reads it.
+Every other stage keeps its parent, so siblings at a fan-out node stay on X.
+The input chain is never modified: stages are copied, and the engine
 (:func:`chainplan.budget.evaluate`) re-analyses the copy in full.
 """
 from __future__ import annotations

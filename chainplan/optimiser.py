@@ -349,16 +349,29 @@ def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None 
     search = Search(chain, cands, basis, grid, cols)
     picks, run = None, None
     bounds = list(_bounds(search))
-    for k, bound in enumerate(bounds):
+    k = 0
+    while k < len(bounds):
+        bound = bounds[k]
+        if k == CHECK_AFTER and math.isinf(bounds[-1]):
+            # deeper bounds reach ever more states: first settle whether anything is feasible at
+            # all, and if so let the cost of one feasible placement be the last bound
+            some = _feasible(search, targets)
+            if some is None:
+                break
+            top = _plan(chain, search, some, targets, before, {}).cost
+            bounds = [b for b in bounds[k:] if b < top] + [top]
+            k = 0
+            continue
         if run is None or bound > run.bound:            # reach further: a new forward pass
             reach = bounds[min(k + 1, len(bounds) - 1)] if bound == 0 else bound
-            run = Run(search, targets, reach, ahead=2 * reach)
+            run = Run(search, targets, reach)
             run.forward()
         root = run.backward(bound)
         q = run.best(root)
         if q is not None and root.cost[q] <= bound + REL * max(1.0, abs(bound)):
             picks = run.choices(root, q)
             break
+        k += 1
     regions = search.regions
     stats = {"states": run.st.n, "region_shapes": sum(len(w.shapes) for w in regions.waves.values()),
              "analyses": regions.samples, "engine_calls": regions.calls, "cost_bound": run.cap}
@@ -369,6 +382,10 @@ def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None 
     plan = _plan(chain, search, picks, targets, before, stats)
     stats["seconds"] = time.perf_counter() - t0
     return plan
+
+
+#: Cost bounds tried before checking that any placement is feasible at all (see optimise).
+CHECK_AFTER = 4
 
 
 def _bounds(search: Search):
@@ -408,7 +425,8 @@ def _plan(chain, search, picks, targets, before, stats) -> Plan:
 # -- when nothing works: what cannot be met, and the best reachable ---------------------------
 
 def _feasible(search: Search, targets: Targets):
-    run = Run(search, targets)
+    """Some placement meeting ``targets`` (reader -> candidate index), or None."""
+    run = Run(search, targets, cheapest=False)
     run.forward()
     root = run.backward()
     q = run.best(root)

@@ -115,7 +115,6 @@ class Regions:
         self.readers = {st.name: [] for st in chain.all_stages}
         for st in chain.stages:
             self.readers[st.parent].append(st)
-        self.order = {st.name: i for i, st in enumerate(chain.stages)}
         self.cut = {st.name: is_cut(st) for st in chain.stages}
         self.uni = [is_cut(c.stage) for c in cands]
         self.out_stage = _output_stage(chain)
@@ -203,8 +202,8 @@ class Regions:
         bias_sw = None
         biased = [o for o, c in enumerate(cands) if c.input_bias is not None]
         if biased:
-            bias_sw = self._add(w, self._switch("two_port", [(PASS, None)] + [(MODEL, self.bias_el[o]) for o in biased]),
-                                at, self.bias_at[q.name])
+            variants = [(PASS, None)] + [(MODEL, self.bias_el[o]) for o in biased]
+            bias_sw = self._add(w, self._switch("two_port", variants), at, self.bias_at[q.name])
             at = w.node[bias_sw]
         variants = [(PASS, None)] + [((TERMINAL if self.uni[o] else MODEL), self.cand_el[o]) for o in range(len(cands))]
         buf_sw = self._add(w, self._switch("two_port", variants), at, self.names[q.name])

@@ -21,11 +21,7 @@ from .model import Chain
 from .parts import Candidate
 from .regions import ROOT, Regions
 
-V_KEY = 1e-12       # DC levels closer than this (V) are one state
-
-
-def vkey(v: float) -> float:
-    return round(float(v) / V_KEY) * V_KEY
+V_KEY = 1e-12       # DC levels that round to the same multiple of this (V) are one state
 
 
 class Search:
@@ -90,11 +86,10 @@ class _States:
 class Run:
     """Forward reachability and backward Pareto labels for one set of targets and cost bound."""
 
-    def __init__(self, search: Search, targets, bound: float = math.inf, ahead: float | None = None):
-        """``ahead`` (≥ bound): also analyse, in the same engine calls, the shapes a search with that
-        bound will need from the states this one reaches (the next bound's calls are then fewer)."""
-        self.s, self.t, self.bound = search, targets, bound
-        self.ahead = bound if ahead is None else max(ahead, bound)
+    def __init__(self, search: Search, targets, bound: float = math.inf, cheapest: bool = True):
+        """``cheapest=False``: any feasible placement will do, so completions are compared by what
+        they accept and need (gain intervals, power, response), not by cost."""
+        self.s, self.t, self.bound, self.cheapest = search, targets, bound, cheapest
         self.tol = REL * max(1.0, abs(bound)) if math.isfinite(bound) else math.inf
         ncol = len(search.cols)
         self.lo_gain = np.zeros(ncol)
@@ -144,9 +139,8 @@ class Run:
         if not len(sids):
             return
         allowed = w.lb[None, :] <= (self.bound - st.cmin[sids])[:, None] + self.tol
-        wanted = allowed | (w.lb[None, :] <= (self.ahead - st.cmin[sids])[:, None] + self.tol)
         rows = np.array([regions.rows_of(w, st.key[i], st.vk[i]) for i in sids])
-        todo = np.nonzero(wanted & (rows < 0))
+        todo = np.nonzero(allowed & (rows < 0))
         if len(todo[0]):                  # the shapes within the bound not analysed yet, in one call
             ts = sids[todo[0]]
             regions.analyse(w, np.array([w.key_index[st.key[i]] for i in ts]), todo[1], st.v[ts],
@@ -181,7 +175,7 @@ class Run:
                 continue
             cv = data["term_v"][row[has], j]
             kid = w.term_kid[d[has], j]
-            vks = np.round(cv / V_KEY) * V_KEY
+            vks = np.round(cv / V_KEY) * V_KEY              # the state's DC level key
             combos, first, back = np.unique(np.stack((kid, vks), axis=1), axis=0, return_index=True,
                                             return_inverse=True)
             made = np.array([self._state(w.child_keys[int(kk)], float(vk), float(cv[f]))
@@ -277,14 +271,15 @@ class Run:
                          hi=np.where(has[:, None], np.minimum(hi, kid.hi / t), hi),
                          state=np.full(len(q), i), d=e["d"][q], kid=k)
             if self.band:
-                own = self._own_shape(w, data, rows, e["d"][q])
+                own = self._own_shape(data, rows)
                 scaled = kid.shape * (tt[:, 1:1 + own.shape[1]] / tt[:, :1])
                 kid_has = has & kid.has_shape
                 out.shape = np.where(kid_has[:, None], scaled, own)
                 out.has_shape = kid_has | (w.out_node[e["d"][q]] >= 0)
         return self._prune(Labels.concat([out, *parts]), i)
 
-    def _own_shape(self, w, data, rows, d):
+    def _own_shape(self, data, rows):
+        """The output's response over the span, normalised at f_ref (nan where the region has none)."""
         out_t = data["out_t"][rows]
         return out_t[:, 1:1 + self.s.chain.analysis.points] / out_t[:, :1]
 
@@ -318,7 +313,7 @@ class Run:
                          parts=data["parts"][[row]], power=data["power"][[row]], lo=e["olo"][q:q + 1], hi=hi,
                          state=np.array([i]), d=np.array([d]), kid=np.array([-1]))
         if self.band:
-            partial.shape = self._own_shape(w, data, [row], [d])
+            partial.shape = self._own_shape(data, [row])
             partial.has_shape = np.array([w.out_node[d] >= 0])
         kids_of = [()]
         for j in np.nonzero(e["child"][q] >= 0)[0]:
@@ -360,7 +355,12 @@ class Run:
         if len(lb) <= 1:
             return np.arange(len(lb))
         idx = order(lb)
-        return idx[nondominated(lb.take(idx), p_floor if self.pmax is not None else None,
+        ranked = lb.take(idx)
+        if not self.cheapest:
+            if lb.lo.shape[1] == 1 and self.pmax is None and not self.band:
+                return interval_cover(lb.lo[:, 0], lb.hi[:, 0])
+            ranked.cost, ranked.nbuf, ranked.parts = (np.zeros(len(idx)),) * 3
+        return idx[nondominated(ranked, p_floor if self.pmax is not None else None,
                                 np.nonzero(self.rel)[0] if self.band else None)]
 
     # -- at the source ---------------------------------------------------------------------------
@@ -399,6 +399,27 @@ class Run:
 
 
 _EMPTY = Labels(cost=np.zeros(0))
+
+
+def interval_cover(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Indices of a few of the intervals [lo, hi] whose union is the union of them all (greedy:
+    from the left, the interval reaching furthest).  For feasibility alone, one gain frequency and
+    nothing else compared, a completion is worth only the upstream gains it accepts, and joining
+    maps every accepted gain on its own (G' accepted iff G'·t is and G' is in the region's own
+    range), so the union is all that matters."""
+    o = np.argsort(lo, kind="stable")
+    keep, reach, i, n = [], -np.inf, 0, len(o)
+    while i < n:
+        limit = max(reach, lo[o[i]])
+        best, best_hi = -1, reach
+        while i < n and lo[o[i]] <= limit:
+            if hi[o[i]] > best_hi:
+                best, best_hi = o[i], hi[o[i]]
+            i += 1
+        if best >= 0:
+            keep.append(best)
+            reach = best_hi
+    return np.array(sorted(keep), dtype=int)
 
 
 def _zeros(n: int, ncol: int, points: int) -> Labels:

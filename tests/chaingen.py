@@ -5,9 +5,7 @@ import random
 
 RAILS = "rails:\n  vdd: 3.3 V\n  vmid: 1.65 V\n"
 
-#: candidate buffers, one of each follower family, in parts-file form
-CANDIDATES = """candidates:
-  - name: nmos_small
+NMOS = """  - name: {name}
     kind: source_follower
     kp: 120 µA/V²
     w_over_l: 200
@@ -16,7 +14,10 @@ CANDIDATES = """candidates:
     bulk: source
     i_bias: 50 µA
     r_bias: 2M
-    cost: {price: 0.12}
+"""
+
+#: candidate buffers, one of each follower family, in parts-file form
+CANDIDATES = "candidates:\n" + NMOS.format(name="nmos_small") + """    cost: {price: 0.12}
   - name: npn
     kind: emitter_follower
     beta: 150
@@ -39,17 +40,8 @@ CANDIDATES = """candidates:
 """
 
 
-#: a follower behind its own gate bias (an AC coupling to vdd), one choice for the optimiser
-BIASED = """  - name: nmos_gate
-    kind: source_follower
-    kp: 120 µA/V²
-    w_over_l: 200
-    vth0: 0.55 V
-    lambda: 0.04 /V
-    bulk: source
-    i_bias: 50 µA
-    r_bias: 2M
-    input_bias: {c: 100 nF, r_bias: 10M, bias: vdd}
+#: the same follower behind its own gate bias (an AC coupling to vdd), one choice for the optimiser
+BIASED = NMOS.format(name="nmos_gate") + """    input_bias: {c: 100 nF, r_bias: 10M, bias: vdd}
     cost: {price: 0.15, count: 4}
 """
 

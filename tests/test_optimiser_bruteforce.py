@@ -16,6 +16,7 @@ import pytest
 
 from chainplan.budget import evaluate
 from chainplan.errors import SpecError
+from chainplan import optimiser
 from chainplan.insert import insert_buffers
 from chainplan.optimiser import Targets, optimise
 from chainplan.parts import candidates_of
@@ -103,6 +104,17 @@ CASES = [(s, False, False) for s in LINEAR] + [(s, True, False) for s in FANOUT]
 @pytest.mark.parametrize("seed,fanout,biased", CASES,
                          ids=[f"{'tree' if f else 'biased' if b else 'line'}-{s}" for s, f, b in CASES])
 def test_optimiser_matches_brute_force(seed, fanout, biased):
+    compare_with_brute_force(seed, fanout, biased)
+
+
+def test_checking_feasibility_first_changes_no_optimum(monkeypatch):
+    """After CHECK_AFTER failing cost bounds the optimiser looks for any feasible placement and
+    ends the deepening at its cost: forced from the first bound on, the optima stay the same."""
+    monkeypatch.setattr(optimiser, "CHECK_AFTER", 1)
+    compare_with_brute_force(LINEAR[1], False, False)
+
+
+def compare_with_brute_force(seed, fanout, biased):
     chain = chain_for(seed, fanout, biased)
     assert chain is not None, "the seeded chain must be a valid chain (pick another seed)"
     rows = table(chain)
