@@ -129,15 +129,9 @@ class Group:
         rows[:, 0] = self.uids[which]
         for c, x in enumerate((*st_in, v_in, *out_load)):
             rows[:, c + 1:c + 2] = x
-        if k <= 32:
-            blob = rows.tobytes()
-            first: dict = {}
-            back = np.array([first.setdefault(blob[i * 56:(i + 1) * 56], len(first)) for i in range(k)])
-            keys = list(first)
-        else:
-            uniq, back = np.unique(rows.view(_ROW).ravel(), return_inverse=True)
-            keys = [u.tobytes() for u in uniq]
-            back = back.reshape(-1)
+        uniq, back = np.unique(rows.view(_ROW).ravel(), return_inverse=True)
+        keys = [u.tobytes() for u in uniq]                  # one per distinct input row
+        back = back.reshape(-1)
         miss = [j for j, key in enumerate(keys) if key not in self.memo]
         if miss:
             m = np.frombuffer(b"".join(keys[j] for j in miss)).reshape(len(miss), 7)
@@ -147,7 +141,7 @@ class Group:
             for j, flat in zip(miss, self._flatten(st, op, len(miss))):
                 self.memo[keys[j]] = flat
         table = np.array([self.memo[key] for key in keys])
-        return self._unflatten(table if len(keys) == k and np.all(back == np.arange(k)) else table[back])
+        return self._unflatten(table[back])
 
     def _flatten(self, st, op, n) -> np.ndarray:
         layout = self.layouts.setdefault(self.kind, sorted(op.values))
