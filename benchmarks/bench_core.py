@@ -22,8 +22,8 @@ import numpy as np
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
-from chainplan.budget import evaluate, nominal_params  # noqa: E402
-from chainplan.spec import load_chain_text  # noqa: E402
+from chainplan.engine.budget import evaluate, nominal_params  # noqa: E402
+from chainplan.spec.loader import load_chain_text  # noqa: E402
 
 TEN_STAGES = """
 name: bench-10

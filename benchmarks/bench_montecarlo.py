@@ -65,7 +65,7 @@ analysis: {f_ref: 1 kHz, f_start: 1 Hz, f_stop: 10 MHz, points: 199}
 
 
 def load():
-    from chainplan.spec import load_chain_text
+    from chainplan.spec.loader import load_chain_text
     return load_chain_text(CHAIN, "bench-10-stage")
 
 
@@ -79,7 +79,7 @@ def rss_mb() -> float:
 
 def child_run(samples: int, noise: bool, workers: int) -> None:
     """Run in a fresh process: one full Monte Carlo; print time and memory as JSON."""
-    from chainplan import montecarlo as mc
+    from chainplan.studies import montecarlo as mc
     if not noise:
         mc.has_noise = lambda: False
     chain = load()
@@ -102,10 +102,10 @@ def full_run(samples: int, noise: bool, workers: int) -> dict:
 
 def loop_run(n: int) -> float:
     """Per-sample seconds of single analyses in a Python loop (same work per sample)."""
-    from chainplan import montecarlo as mc
-    from chainplan.budget import evaluate
-    from chainplan.requirements import evaluate_requirements
-    from chainplan.tolerances import draw
+    from chainplan.studies import montecarlo as mc
+    from chainplan.engine.budget import evaluate
+    from chainplan.studies.requirements import evaluate_requirements
+    from chainplan.studies.tolerances import draw
     chain = load()
     d = draw(chain, n, seed=1)
     t0 = time.perf_counter()
@@ -128,9 +128,9 @@ def best_of(fn, repeat: int = 5):
 
 def floor_run(samples: int) -> tuple[float, float]:
     """(seconds of the hand-written 2×2 cascade over all samples, engine seconds for the same chunks' AC+DC)."""
-    from chainplan import montecarlo as mc
-    from chainplan.budget import evaluate
-    from chainplan.tolerances import draw
+    from chainplan.studies import montecarlo as mc
+    from chainplan.engine.budget import evaluate
+    from chainplan.studies.tolerances import draw
     chain = load()
     chunk = mc.chunk_size(chain)
     d = draw(chain, chunk, seed=1)
@@ -224,7 +224,7 @@ def spice_deck(chain, d, n: int, print_gain: bool) -> str:
 
 
 def spice_run(n: int, print_gain: bool = False):
-    from chainplan.tolerances import draw
+    from chainplan.studies.tolerances import draw
     chain = load()
     d = draw(chain, max(n, 1), seed=1)
     deck = spice_deck(chain, d, n, print_gain)
@@ -250,9 +250,9 @@ def main():
     a = ap.parse_args()
     if a.child:
         return child_run(a.child, noise=not a.no_noise, workers=a.workers)
-    from chainplan.montecarlo import has_noise
+    from chainplan.studies.montecarlo import has_noise
     chain = load()
-    F = len(__import__("chainplan.budget", fromlist=["x"]).frequency_grid(chain))
+    F = len(__import__("chainplan.engine.budget", fromlist=["x"]).frequency_grid(chain))
     print(f"chain: {len(chain.stages)} stages, {F} frequencies, {len(chain.extra['tolerances'])} part tolerances, "
           f"{len(chain.extra['rail_tolerances'])} rail tolerances, supply corner")
     print(f"load average before the run: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
@@ -276,7 +276,7 @@ def main():
         t0, _, _ = spice_run(0)
         tn, gains, d = spice_run(a.spice, print_gain=True)
         per = (tn - t0) / a.spice
-        from chainplan import montecarlo as mc
+        from chainplan.studies import montecarlo as mc
         ours = mc.run_draws(d).metrics["gain_db"][:len(gains)]
         dev = np.max(np.abs(20 * np.log10(gains) - ours)) if gains else float("nan")
         print(f"ngspice ({a.spice} samples, one process, .control loop with alter + ac, 197 points): "

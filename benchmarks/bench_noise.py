@@ -19,9 +19,9 @@ sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
 from bench_core import TEN_STAGES, median_time  # noqa: E402
-from chainplan.budget import analyse, evaluate, nominal_params  # noqa: E402
-from chainplan.noise import analyse_noise, output_psds  # noqa: E402
-from chainplan.spec import load_chain_text  # noqa: E402
+from chainplan.engine.budget import analyse, evaluate, nominal_params  # noqa: E402
+from chainplan.engine.noise import analyse_noise, output_psds  # noqa: E402
+from chainplan.spec.loader import load_chain_text  # noqa: E402
 
 
 def main() -> None:

@@ -33,9 +33,9 @@ import time
 HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path.insert(0, os.path.dirname(HERE))
 
-from chainplan.optimiser import Targets, measure, optimise  # noqa: E402
-from chainplan.parts import candidates_of  # noqa: E402
-from chainplan.spec import load_chain_text  # noqa: E402
+from chainplan.placement.optimiser import Targets, measure, optimise  # noqa: E402
+from chainplan.spec.parts import candidates_of  # noqa: E402
+from chainplan.spec.loader import load_chain_text  # noqa: E402
 
 #: the six candidates: five of chains/parts/followers.yaml and nmos_200u below
 SIX = ("nmos_50u", "nmos_500u", "npn_ef", "opamp_micro", "opamp_fast", "nmos_200u")

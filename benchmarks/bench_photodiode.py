@@ -19,8 +19,8 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
 from chainplan.api import budget_for  # noqa: E402
-from chainplan.budget import evaluate, nominal_params  # noqa: E402
-from chainplan.spec import load_chain  # noqa: E402
+from chainplan.engine.budget import evaluate, nominal_params  # noqa: E402
+from chainplan.spec.loader import load_chain  # noqa: E402
 
 
 def _median_s(fn, runs: int) -> float:

@@ -21,11 +21,11 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
 from chainplan.api import budget_for  # noqa: E402
-from chainplan.noise import analyse_noise  # noqa: E402
+from chainplan.engine.noise import analyse_noise  # noqa: E402
 from chainplan.render import plots  # noqa: E402
 from chainplan.render.report import report_html  # noqa: E402
-from chainplan.spec import load_chain  # noqa: E402
-from chainplan.spice_export import export  # noqa: E402
+from chainplan.spec.loader import load_chain  # noqa: E402
+from chainplan.render.spice import export  # noqa: E402
 
 
 def median_s(fn, runs: int) -> float:

@@ -1,7 +1,7 @@
 """chainplan: signal budgets of sensor readout chains."""
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from .version import __version__  # noqa: E402
 
 from .api import budget_for as budget  # noqa: E402
 from .api import load, loads  # noqa: E402

@@ -1,7 +1,7 @@
 """The Python API: load a spec, analyse it, read the result objects.
 
     >>> import chainplan
-    >>> chain = chainplan.load("chains/hydrophone_buoy.yaml")
+    >>> chain = chainplan.load("chains/hydrophone_buffered.yaml")
     >>> b = chainplan.budget(chain)
     >>> b.gain_db, b.worst_interface.loss_db
 """
@@ -9,17 +9,17 @@ from __future__ import annotations
 
 import importlib
 
-from .budget import Budget, analyse
-from .model import Chain
-from .spec import load_chain, load_chain_text
+from .engine.budget import Budget, analyse
+from .spec.model import Chain
+from .spec.loader import load_chain, load_chain_text
 
 #: Feature hooks run on every nominal budget (noise, requirements), as
 #: "module:function" strings imported on use; each takes the Budget and adds
 #: its summary rows (``b.extra_summary``) and JSON keys (``b.extra_json``).
 BUDGET_HOOKS: list[str] = [
-    "chainplan.noise:attach_to_budget",
-    "chainplan.aliasing:attach_to_budget",
-    "chainplan.requirements:attach_to_budget",
+    "chainplan.engine.noise:attach_to_budget",
+    "chainplan.engine.aliasing:attach_to_budget",
+    "chainplan.studies.requirements:attach_to_budget",
 ]
 
 

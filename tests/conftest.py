@@ -31,7 +31,7 @@ def par(*zs):
 
 def chain_from(text: str, path: str = "<test>"):
     """A validated Chain from (indented) YAML text."""
-    from chainplan.spec import load_chain_text
+    from chainplan.spec.loader import load_chain_text
     return load_chain_text(textwrap.dedent(text), path)
 
 

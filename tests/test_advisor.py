@@ -11,12 +11,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from chainplan.advisor import THRESHOLDS, advise
-from chainplan.budget import analyse, evaluate
+from chainplan.placement.advisor import THRESHOLDS, advise
+from chainplan.engine.budget import analyse, evaluate
 from chainplan.cli import main
-from chainplan.insert import insert_buffers
-from chainplan.parts import candidates_of
-from chainplan.spec import load_chain
+from chainplan.spec.insert import insert_buffers
+from chainplan.spec.parts import candidates_of
+from chainplan.spec.loader import load_chain
 
 REPO = Path(__file__).resolve().parent.parent
 VT_300K = 0.025852  # kT/q at 300 K, CODATA constants (handbook value 25.85 mV)

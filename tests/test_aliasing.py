@@ -8,8 +8,8 @@ import math
 import numpy as np
 import pytest
 
-from chainplan.budget import evaluate
-from chainplan.noise import analyse_noise
+from chainplan.engine.budget import evaluate
+from chainplan.engine.noise import analyse_noise
 from conftest import chain_from
 
 # A 1 kΩ source, an ideal follower, an RC low-pass (1 kΩ, 10 nF) into an ADC.
@@ -65,7 +65,7 @@ def test_noise_band_equals_the_bandwidth_option(spec_file, cli):
 
 
 def test_alias_rejection_of_a_single_pole_rc():
-    from chainplan.aliasing import alias_check
+    from chainplan.engine.aliasing import alias_check
     ev = evaluate(chain_from(CHAIN))
     chk = alias_check(ev)
     h = lambda f: 1 / (1 + 1j * f / FC_HZ)         # noqa: E731  first-order low-pass response (textbook)
@@ -80,7 +80,7 @@ def test_alias_rejection_of_a_single_pole_rc():
 
 
 def test_min_alias_rejection_requirement_and_budget(spec_file, cli):
-    from chainplan.requirements import check_chain
+    from chainplan.studies.requirements import check_chain
     text = CHAIN + "requirements:\n  - min_alias_rejection: 40 dB\n  - min_alias_rejection: 3 dB\n    name: low\n"
     strict, low = check_chain(chain_from(text))
     expected = -20 * math.log10(abs(1 / (1 + 1j * FS_HZ / (2 * FC_HZ))))   # first-order response (textbook)
@@ -94,8 +94,8 @@ def test_min_alias_rejection_requirement_and_budget(spec_file, cli):
 
 
 def test_requirement_vectorised_over_samples():
-    from chainplan.budget import nominal_params
-    from chainplan.requirements import evaluate_requirements
+    from chainplan.engine.budget import nominal_params
+    from chainplan.studies.requirements import evaluate_requirements
     c = chain_from(CHAIN + "requirements:\n  - min_alias_rejection: 3 dB\n")
     params = nominal_params(c)
     caps = np.array([[1e-9], [10e-9], [47e-9]])          # (samples, 1), as a tolerance run passes them
@@ -109,7 +109,7 @@ def test_requirement_vectorised_over_samples():
 
 
 def test_warning_when_f_stop_is_below_half_the_sample_rate():
-    from chainplan.aliasing import alias_check
+    from chainplan.engine.aliasing import alias_check
     chk = alias_check(evaluate(chain_from(CHAIN.replace("f_stop: 10 MHz", "f_stop: 10 kHz"))))
     assert len(chk.warnings) == 1 and "f_stop" in chk.warnings[0]
 
@@ -150,8 +150,8 @@ def test_alias_requirement_needs_a_sample_rate(spec_file, cli):
 
 def test_demo_chains_declare_sample_rates():
     from conftest import DEMO_CHAINS
-    from chainplan.aliasing import alias_check
-    from chainplan.spec import load_chain
+    from chainplan.engine.aliasing import alias_check
+    from chainplan.spec.loader import load_chain
     for path in DEMO_CHAINS:
         c = load_chain(str(path))
         if any(st.kind == "adc" and "f_sample" in st.params for st in c.stages):

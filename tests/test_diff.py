@@ -134,7 +134,7 @@ def test_bad_revisions_and_paths_exit_2_with_one_line(cli, repo, tmp_path, spec_
 def test_a_tiny_move_the_wrong_way_is_not_a_regression():
     """31 µV less headroom out of 0.7 V is below the 1 mV / 1 % threshold (common practice:
     a CI gate must not fail on numerical noise of a design change)."""
-    from chainplan.diffing import budget_changes, Side
+    from chainplan.studies.diffing import budget_changes, Side
     from conftest import chain_from
     base = chain_from("name: t\nsource: {kind: sensor, amplitude: 1 mV}\nstages:\n  - {name: r, kind: series_r, r: 1k}\n")
     old = Side("old", base, {"headroom_v.r": 0.727000}, {})

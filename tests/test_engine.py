@@ -6,9 +6,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from chainplan.budget import evaluate, nominal_params
+from chainplan.engine.budget import evaluate, nominal_params
 from conftest import DEMO_CHAINS, FAN_OUT_SPEC, chain_from, par
-from chainplan.spec import load_chain
+from chainplan.spec.loader import load_chain
 
 EXTRA_CHAINS = {
     "emitter-follower": """

@@ -9,10 +9,10 @@ import math
 import numpy as np
 import pytest
 
-from chainplan import montecarlo as mc
-from chainplan.budget import analyse
+from chainplan.studies import montecarlo as mc
+from chainplan.engine.budget import analyse
 from chainplan.errors import SpecError
-from chainplan.tolerances import corner_draws, draw
+from chainplan.studies.tolerances import corner_draws, draw
 from conftest import chain_from
 
 DIVIDER = """
@@ -175,7 +175,7 @@ def test_an_out_of_range_draw_is_an_invalid_sample_not_an_error():
 
 def test_metric_names_match_the_metrics():
     c = chain_from(FOLLOWER)
-    from chainplan.budget import evaluate
+    from chainplan.engine.budget import evaluate
     assert list(mc.metrics(evaluate(c))) == mc.metric_names(c)
 
 

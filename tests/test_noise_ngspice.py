@@ -17,8 +17,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from chainplan.budget import evaluate
-from chainplan.noise import analyse_noise, density_at
+from chainplan.engine.budget import evaluate
+from chainplan.engine.noise import analyse_noise, density_at
 from chainplan.stages.base import K_BOLTZMANN
 from conftest import chain_from
 from helpers_ngspice import _values, needs_ngspice, run, run_noise

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from chainplan.budget import evaluate, nominal_params
-from chainplan.noise import analyse_noise, band_weights, density_at
+from chainplan.engine.budget import evaluate, nominal_params
+from chainplan.engine.noise import analyse_noise, band_weights, density_at
 from chainplan.stages.base import K_BOLTZMANN, Q_ELECTRON
 from chainplan.stages.noise_sources import thermal_v
 from conftest import chain_from

@@ -14,13 +14,13 @@ import math
 import numpy as np
 import pytest
 
-from chainplan.budget import evaluate
+from chainplan.engine.budget import evaluate
 from chainplan.errors import SpecError
-from chainplan import optimiser
-from chainplan.insert import insert_buffers
-from chainplan.optimiser import Targets, optimise
-from chainplan.parts import candidates_of
-from chainplan.spec import load_chain_text
+from chainplan.placement import optimiser
+from chainplan.spec.insert import insert_buffers
+from chainplan.placement.optimiser import Targets, optimise
+from chainplan.spec.parts import candidates_of
+from chainplan.spec.loader import load_chain_text
 
 from chaingen import random_chain_text
 

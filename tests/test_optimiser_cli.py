@@ -9,10 +9,10 @@ from pathlib import Path
 
 import pytest
 
-from chainplan.budget import analyse
+from chainplan.engine.budget import analyse
 from chainplan.cli import main
-from chainplan.optimiser import Targets, optimise
-from chainplan.spec import load_chain
+from chainplan.placement.optimiser import Targets, optimise
+from chainplan.spec.loader import load_chain
 
 REPO = Path(__file__).resolve().parent.parent
 

@@ -9,8 +9,8 @@ import pytest
 
 from chainplan.cli import main
 from chainplan.errors import SpecError
-from chainplan.parts import candidates_of, project_root
-from chainplan.spec import load_chain
+from chainplan.spec.parts import candidates_of, project_root
+from chainplan.spec.loader import load_chain
 
 CHAIN = """\
 name: parts-test

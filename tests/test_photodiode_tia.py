@@ -9,9 +9,9 @@ import math
 import numpy as np
 import pytest
 
-from chainplan.budget import analyse, evaluate
-from chainplan.noise import density_at
-from chainplan.spice_export import export
+from chainplan.engine.budget import analyse, evaluate
+from chainplan.engine.noise import density_at
+from chainplan.render.spice import export
 from chainplan.stages import REGISTRY
 from chainplan.stages.base import K_BOLTZMANN, Q_ELECTRON
 from conftest import REPO, chain_from

@@ -14,8 +14,8 @@ pytest.importorskip("matplotlib")
 from chainplan.api import budget_for                                    # noqa: E402
 from chainplan.render import plots                                      # noqa: E402
 from chainplan.render.tables import safety_notice                       # noqa: E402
-from chainplan.spec import load_chain                                   # noqa: E402
-from chainplan.units import fmt                                         # noqa: E402
+from chainplan.spec.loader import load_chain                                   # noqa: E402
+from chainplan.spec.units import fmt                                         # noqa: E402
 from conftest import REPO                                               # noqa: E402
 
 CHAINS = {p: REPO / "chains" / f"{p}.yaml" for p in ("ph_probe_dc", "vibration_fanout", "ecg_patient_frontend")}
@@ -89,7 +89,7 @@ def test_gain_plot_lines_are_the_chain_response(budgets):
 
 
 def test_noise_plot_shows_density_and_shares(budgets):
-    noise = pytest.importorskip("chainplan.noise")
+    noise = pytest.importorskip("chainplan.engine.noise")
     b = budgets["ecg_patient_frontend"]
     nr = noise.analyse_noise(b.ev)
     fig = plots.noise_plot(nr, b.chain)
@@ -102,7 +102,7 @@ def test_noise_plot_shows_density_and_shares(budgets):
 
 
 def test_montecarlo_histograms_hold_every_valid_sample_and_the_limits(budgets):
-    mcmod = pytest.importorskip("chainplan.montecarlo")
+    mcmod = pytest.importorskip("chainplan.studies.montecarlo")
     chain = load_chain(str(CHAINS["ecg_patient_frontend"]))
     mc = mcmod.run(chain, 200, seed=3)
     fig = plots.montecarlo_plot(mc)

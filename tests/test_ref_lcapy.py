@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from chainplan.budget import evaluate
+from chainplan.engine.budget import evaluate
 from conftest import FAN_OUT_SPEC, chain_from
 
 FREQS = np.array([10.0, 300.0, 1591.5494, 5e3, 1e5, 1e7])

@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from chainplan.budget import analyse, evaluate
+from chainplan.engine.budget import analyse, evaluate
 from conftest import chain_from
 from helpers_ngspice import needs_ngspice, run_ac, run_op
 

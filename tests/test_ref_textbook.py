@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from chainplan.budget import analyse, evaluate
+from chainplan.engine.budget import analyse, evaluate
 from conftest import chain_from, par
 
 # CODATA 2018 (exact in the 2019 SI), written out here rather than imported.

@@ -13,7 +13,7 @@ from chainplan.api import budget_for                                    # noqa: 
 from chainplan.render.console import db, eng                           # noqa: E402
 from chainplan.render.report import report_html                        # noqa: E402
 from chainplan.render.tables import safety_notice                      # noqa: E402
-from chainplan.spec import load_chain                                   # noqa: E402
+from chainplan.spec.loader import load_chain                                   # noqa: E402
 from conftest import REPO                                               # noqa: E402
 
 ECG = REPO / "chains" / "ecg_patient_frontend.yaml"
@@ -62,8 +62,8 @@ class _Doc(HTMLParser):
 
 @pytest.fixture(scope="module")
 def ecg_report():
-    noise = pytest.importorskip("chainplan.noise")
-    mcmod = pytest.importorskip("chainplan.montecarlo")
+    noise = pytest.importorskip("chainplan.engine.noise")
+    mcmod = pytest.importorskip("chainplan.studies.montecarlo")
     chain = load_chain(str(ECG))
     b = budget_for(chain)
     mc = mcmod.run(chain, 200, seed=2)

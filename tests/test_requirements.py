@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from chainplan.errors import SpecError
-from chainplan.requirements import check_chain, evaluate_requirements
+from chainplan.studies.requirements import check_chain, evaluate_requirements
 from conftest import chain_from
 
 # An ideal 1 V source, 1 kΩ source resistance, a 1 kΩ/3 kΩ divider and an RC
@@ -86,7 +86,7 @@ def test_headroom_and_loading_loss_by_hand():
     ll = r["max_loading_loss"]
     assert ll.value[0] == pytest.approx(-20 * math.log10(4 / 5), abs=1e-6)
     assert not ll.passed[0]
-    from chainplan.requirements import where_of
+    from chainplan.studies.requirements import where_of
     assert where_of(ll) == "src → div"
 
 
@@ -98,7 +98,7 @@ def test_power_of_followers():
 
 
 def test_every_kind_accepts_its_spec_form():
-    from chainplan.requirements import KINDS, NOISE_KINDS
+    from chainplan.studies.requirements import KINDS, NOISE_KINDS
     text = """
   - min_gain: -10 dB
   - max_gain: 0 dB
@@ -149,7 +149,7 @@ def test_unknown_node_through_the_cli_exits_2_without_traceback(cli, spec_file, 
 
 def test_impossible_sample_fails_every_requirement():
     c = rc_with("  - min_gain: -50 dB\n")
-    from chainplan.budget import evaluate, nominal_params
+    from chainplan.engine.budget import evaluate, nominal_params
     p = nominal_params(c)
     p["src"]["dc"] = np.array([[1.0], [1.0]])
     ev = evaluate(c, p)
@@ -186,7 +186,7 @@ def test_budget_json_and_summary_carry_requirement_status(cli, spec_file):
 def test_demo_chains_with_requirements_pass_or_fail_as_described(cli):
     """Demo chains say in their description whether their requirements are meant to fail."""
     from conftest import DEMO_CHAINS
-    from chainplan.spec import load_chain
+    from chainplan.spec.loader import load_chain
     for path in DEMO_CHAINS:
         c = load_chain(str(path))
         if not c.extra.get("requirements"):
@@ -198,7 +198,7 @@ def test_demo_chains_with_requirements_pass_or_fail_as_described(cli):
 
 def test_every_requirement_kind_is_documented():
     from conftest import REPO
-    from chainplan.requirements import KINDS
+    from chainplan.studies.requirements import KINDS
     text = (REPO / "docs" / "requirements.md").read_text(encoding="utf-8")
     for k in KINDS.values():
         assert f"| `{k.key}` | `{k.kind}` |" in text, k.key
@@ -207,7 +207,7 @@ def test_every_requirement_kind_is_documented():
 def test_schema_describes_requirements_and_corners():
     jsonschema = pytest.importorskip("jsonschema")
     import yaml
-    from chainplan.schema import chain_schema
+    from chainplan.spec.schema import chain_schema
     schema = chain_schema()
     good = yaml.safe_load(RC_CHAIN + "requirements:\n  - min_gain: -10 dB\n  - flatness: 1 dB\n    band: [1 Hz, 1 kHz]\n"
                           "corners: {temperature: [0 °C, 50 °C], supply: ±5 %}\n")
@@ -220,9 +220,9 @@ def test_schema_describes_requirements_and_corners():
 
 
 def test_snr_and_enob_requirements_read_the_noise_analysis():
-    pytest.importorskip("chainplan.noise")
-    from chainplan.budget import evaluate
-    from chainplan.noise import analyse_noise
+    pytest.importorskip("chainplan.engine.noise")
+    from chainplan.engine.budget import evaluate
+    from chainplan.engine.noise import analyse_noise
     c = rc_with("  - min_snr: 60 dB\n  - min_enob: 16\n")
     ev = evaluate(c)
     snr, enob = evaluate_requirements(ev)

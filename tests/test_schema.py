@@ -9,8 +9,8 @@ import json
 import pytest
 import yaml
 
-from chainplan.schema import chain_schema, dumps, unit_pattern
-from chainplan.units import UnitError, parse_toleranced
+from chainplan.spec.schema import chain_schema, dumps, unit_pattern
+from chainplan.spec.units import UnitError, parse_toleranced
 from conftest import DEMO_CHAINS, REPO
 
 jsonschema = pytest.importorskip("jsonschema")

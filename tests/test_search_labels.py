@@ -5,8 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from chainplan.labels import REL, Labels, nondominated, order
-from chainplan.search import interval_cover
+from chainplan.placement.labels import REL, Labels, nondominated, order
+from chainplan.placement.search import interval_cover
 
 
 def naive_front(lb: Labels) -> list[int]:

@@ -12,10 +12,10 @@ import textwrap
 import numpy as np
 import pytest
 
-from chainplan.budget import analyse
+from chainplan.engine.budget import analyse
 from chainplan.errors import SpecError
-from chainplan.spec import load_chain
-from chainplan.spice_export import EXPORTERS, export
+from chainplan.spec.loader import load_chain
+from chainplan.render.spice import EXPORTERS, export
 from chainplan.stages import REGISTRY
 from chainplan.stages.passive import Passive
 from conftest import DEMO_CHAINS, chain_from
@@ -114,7 +114,7 @@ def test_ngspice_noise_density_agrees(make):
     chains whose noise chainplan neglects somewhere (a side branch) are skipped, the
     frequency sits far above every 1/f corner, and the converter's quantisation power
     (no SPICE element) is left out of chainplan's sum."""
-    noise = pytest.importorskip("chainplan.noise")
+    noise = pytest.importorskip("chainplan.engine.noise")
     chain = make()
     b = analyse(chain)
     nr = noise.analyse_noise(b.ev)

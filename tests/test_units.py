@@ -1,4 +1,4 @@
-"""Tests for chainplan.units: parsing of engineering values and formatting."""
+"""Tests for chainplan.spec.units: parsing of engineering values and formatting."""
 
 import math
 from fractions import Fraction
@@ -6,7 +6,7 @@ from fractions import Fraction
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from chainplan.units import (
+from chainplan.spec.units import (
     PREFIXES, UNITS, Tolerance, Unit, UnitError, fmt, parse_toleranced, parse_value,
 )
 

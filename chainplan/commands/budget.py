@@ -11,7 +11,7 @@ def add_arguments(p):
 
 def run(args) -> int:
     from ..api import budget_for
-    from ..spec import load_chain
+    from ..spec.loader import load_chain
     chain = apply_analysis_options(load_chain(args.file), args)
     b = budget_for(chain)
     if args.json:

@@ -7,7 +7,7 @@ import math
 import os
 
 from ..errors import UsageError
-from ..units import UnitError, parse_value
+from ..spec.units import UnitError, parse_value
 from .common import add_analysis_options, apply_analysis_options
 
 
@@ -33,8 +33,8 @@ def add_arguments(p):
 
 
 def run(args) -> int:
-    from ..parts import candidates_of, load_parts
-    from ..spec import load_chain
+    from ..spec.parts import candidates_of, load_parts
+    from ..spec.loader import load_chain
     chain = apply_analysis_options(load_chain(args.file), args)
     for path in args.parts:
         load_parts(chain, path)
@@ -43,7 +43,7 @@ def run(args) -> int:
         raise UsageError(f"{args.file} has no candidate buffers: add 'include: [parts/followers.yaml]' (a parts "
                          "file) or 'candidates:' to the spec, or pass --parts FILE")
     if args.interface is not None:
-        from ..insert import check_interface
+        from ..spec.insert import check_interface
         check_interface(chain, args.interface)
     if args.in_place and args.write:
         raise UsageError("give either --write NEW.yaml or --in-place, not both")
@@ -57,7 +57,7 @@ def run(args) -> int:
 
 
 def _advise(chain, args) -> int:
-    from ..advisor import advise
+    from ..placement.advisor import advise
     a = advise(chain)
     if args.json:
         from ..render.advisor_tables import advice_dict
@@ -72,7 +72,7 @@ def _advise(chain, args) -> int:
 
 def targets_from_args(chain, args):
     """The optimiser's targets: the command-line options plus the spec's requirements."""
-    from ..optimiser import Targets, check_nodes, targets_from_requirements
+    from ..placement.optimiser import Targets, check_nodes, targets_from_requirements
     t = Targets()
     if args.min_gain is not None:
         t.min_gain_db[chain.analysis.f_ref_hz] = _value(args.min_gain, "dB", "--min-gain")
@@ -110,18 +110,18 @@ def _value(text, unit, opt, positive=False):
 
 
 def _place(chain, args) -> int:
-    from ..optimiser import optimise
+    from ..placement.optimiser import optimise
     plan = optimise(chain, targets_from_args(chain, args), basis=args.cost)
     reqs = None
     if plan.feasible and chain.extra.get("requirements"):
-        from ..budget import evaluate
-        from ..requirements import evaluate_requirements
+        from ..engine.budget import evaluate
+        from ..studies.requirements import evaluate_requirements
         reqs = evaluate_requirements(evaluate(plan.buffered))
     written = None
     if args.write or args.in_place:
         if not plan.feasible:
             raise UsageError("nothing written: no placement meets the targets (see the table without --write)")
-        from ..spec_writer import write_buffered
+        from ..spec.writer import write_buffered
         written = args.file if args.in_place else args.write
         write_buffered(chain, {p.reader: _cand(chain, p.candidate) for p in plan.placements}, written)
     if args.json:
@@ -141,5 +141,5 @@ def _place(chain, args) -> int:
 
 
 def _cand(chain, name):
-    from ..parts import candidates_of
+    from ..spec.parts import candidates_of
     return next(c for c in candidates_of(chain) if c.name == name)

@@ -14,14 +14,14 @@ def add_arguments(p):
 
 
 def run(args) -> int:
-    from ..requirements import check_chain
-    from ..spec import load_chain
+    from ..studies.requirements import check_chain
+    from ..spec.loader import load_chain
     checked = []
     for path in args.files:                      # every spec is read and checked before anything is written
         chain = apply_analysis_options(load_chain(path), args)
         checked.append((chain, check_chain(chain)))
     if args.junit:
-        from ..junit import junit_xml
+        from ..render.junit import junit_xml
         from ..render.files import write_atomic
         write_atomic({args.junit: junit_xml(checked)})
     if args.junit == "-":

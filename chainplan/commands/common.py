@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 
 from ..errors import UsageError
-from ..units import UnitError, parse_value
+from ..spec.units import UnitError, parse_value
 
 
 def add_analysis_options(p, json: bool = True):

@@ -20,7 +20,7 @@ def add_arguments(p):
 
 
 def run(args) -> int:
-    from ..diffing import compare, load_side
+    from ..studies.diffing import compare, load_side
     from ..errors import UsageError
     if args.json and args.markdown:
         raise UsageError("--json and --markdown exclude each other")

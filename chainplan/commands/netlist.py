@@ -11,8 +11,8 @@ def add_arguments(p):
 
 def run(args) -> int:
     from ..errors import UsageError
-    from ..spec import load_chain
-    from ..spice_export import export
+    from ..spec.loader import load_chain
+    from ..render.spice import export
     if not 1 <= args.per_decade <= 10000:
         raise UsageError("--per-decade takes a whole number from 1 to 10000")
     text = export(load_chain(args.file), points_per_decade=args.per_decade).text()

@@ -25,10 +25,10 @@ def add_arguments(p):
 def run(args) -> int:
     import numpy as np
 
-    from ..budget import check_operating_points, evaluate
+    from ..engine.budget import check_operating_points, evaluate
     from ..errors import UsageError
-    from ..noise import analyse_noise, density_at, noise_json
-    from ..spec import load_chain
+    from ..engine.noise import analyse_noise, density_at, noise_json
+    from ..spec.loader import load_chain
     chain = apply_analysis_options(load_chain(args.file), args)
     band = _band(args.bandwidth)
     ev = evaluate(chain)

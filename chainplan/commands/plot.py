@@ -30,7 +30,7 @@ def analyse_for_pictures(args):
 
     from ..api import budget_for
     from ..errors import UsageError
-    from ..spec import load_chain
+    from ..spec.loader import load_chain
     if importlib.util.find_spec("matplotlib") is None:
         raise UsageError("figures need matplotlib, which is not installed: pip install matplotlib")
     if args.mc < 0 or args.mc > 1_000_000:
@@ -39,13 +39,13 @@ def analyse_for_pictures(args):
     b = budget_for(chain)
     noise = mc = None
     try:
-        from ..noise import analyse_noise
+        from ..engine.noise import analyse_noise
     except ImportError:
         analyse_noise = None
     if analyse_noise is not None:
         noise = analyse_noise(b.ev)
     if args.mc:
-        from ..montecarlo import run as run_mc
+        from ..studies.montecarlo import run as run_mc
         mc = run_mc(chain, args.mc, seed=args.seed)
     return b, noise, mc
 

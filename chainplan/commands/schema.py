@@ -7,7 +7,7 @@ def add_arguments(p):
 
 
 def run(args) -> int:
-    from ..schema import dumps
+    from ..spec.schema import dumps
     text = dumps()
     if args.output:
         from ..render.files import write_atomic

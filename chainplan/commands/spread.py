@@ -21,9 +21,9 @@ def add_arguments(p):
 
 
 def run(args) -> int:
-    from ..montecarlo import run as run_mc
-    from ..spec import load_chain
-    from ..units import UnitError, parse_value
+    from ..studies.montecarlo import run as run_mc
+    from ..spec.loader import load_chain
+    from ..spec.units import UnitError, parse_value
     if not 1 <= args.samples <= 10_000_000:
         raise UsageError("--samples is a whole number from 1 to 10000000")
     min_yield = None
@@ -35,14 +35,14 @@ def run(args) -> int:
         if not 0 <= min_yield <= 1:
             raise UsageError("--min-yield is a percentage from 0 to 100 %")
     chain = apply_analysis_options(load_chain(args.file), args)
-    from ..budget import check_operating_points, evaluate
+    from ..engine.budget import check_operating_points, evaluate
     nominal = evaluate(chain)
     check_operating_points(chain, nominal.dc)
     _check_rank(chain, args.rank)
     with _Progress(args.samples) as tick:
         res = run_mc(chain, args.samples, args.seed, progress=tick, key=args.rank)
-    from ..montecarlo import run_draws
-    from ..tolerances import corner_draws
+    from ..studies.montecarlo import run_draws
+    from ..studies.tolerances import corner_draws
     corners = run_draws(corner_draws(chain))
     if args.json:
         from ..render.json_out import dumps
@@ -60,7 +60,7 @@ def _check_rank(chain, key):
     if key is None:
         return
     from ..errors import nearest
-    from ..montecarlo import metric_names
+    from ..studies.montecarlo import metric_names
     names = metric_names(chain) + [r.name for r in chain.extra.get("requirements", [])]
     if key not in names:
         raise UsageError(f"--rank: '{key}' is not a metric or requirement of this chain" + nearest(key, names))

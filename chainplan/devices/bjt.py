@@ -12,8 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..solve import bisect
-from ..stages.base import K_BOLTZMANN, Q_ELECTRON
+from .solve import bisect
+from ..constants import K_BOLTZMANN, Q_ELECTRON
 
 
 def thermal_voltage(temp_k):
@@ -50,14 +50,3 @@ def solve_emitter(p, v_b, v_c, i_out, vt):
     return (ve, *currents(ve))
 
 
-def device_fields():
-    """Spec fields shared by the BJT stages (NPN)."""
-    from ..stages.base import Field
-    return {
-        "beta": Field("1", "current gain β (SPICE BF)", default="100", positive=True),
-        "va": Field("V", "Early voltage (SPICE VAF)", default="inf", positive=True, allow_inf=True),
-        "i_s": Field("A", "saturation current (SPICE IS)", default="1e-15 A", positive=True),
-        "vce_sat": Field("V", "collector–emitter saturation voltage", default="0.2 V", minimum=0.0),
-        "collector": Field("V", "collector supply", default="vdd", rail_ok=True),
-        "v_low": Field("V", "rail the emitter side returns to", default="0 V", rail_ok=True),
-    }

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..solve import bisect
+from .solve import bisect
 
 
 def threshold(vth0, gamma, phi, vsb):
@@ -51,23 +51,6 @@ def solve_source(p, v_g, v_d, v_bulk, i_out):
     vov = v_g - vs - vth
     i_d = drain_current(p["kp"], p["w_over_l"], vov, v_d - vs, p["lambda"])
     return vs, i_d, vov, vth, vsb
-
-
-def device_fields():
-    """Spec fields shared by every MOSFET stage (level-1 parameter names in words)."""
-    from ..stages.base import Field
-    return {
-        "kp": Field("A/V2", "transconductance parameter k' = µn·Cox (SPICE KP)", required=True, positive=True),
-        "w_over_l": Field("1", "aspect ratio W/L", required=True, positive=True),
-        "vth0": Field("V", "zero-bias threshold voltage (SPICE VTO)", required=True),
-        "lambda": Field("1/V", "channel-length modulation (SPICE LAMBDA)", default="0 /V", minimum=0.0),
-        "gamma": Field("sqrtV", "body-effect coefficient (SPICE GAMMA)", default="0 √V", minimum=0.0),
-        "phi": Field("V", "surface potential 2φF (SPICE PHI)", default="0.6 V", positive=True),
-        "drain": Field("V", "drain supply", default="vdd", rail_ok=True),
-        "v_low": Field("V", "rail the source side returns to", default="0 V", rail_ok=True),
-        "bulk": Field("V", "bulk connection: 'source', 'low' (the v_low rail), or a voltage/rail",
-                      default="low", rail_ok=True, choices=("source", "low")),
-    }
 
 
 def bulk_voltage(p):

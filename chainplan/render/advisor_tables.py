@@ -1,15 +1,15 @@
 """Tables and JSON of the buffer advice and of an optimised placement.
 
-They only read the result objects of chainplan.advisor and chainplan.optimiser.
+They only read the result objects of chainplan.placement.advisor and chainplan.placement.optimiser.
 Markers survive without colour: the verdict is a word, a clipping node is
 written 'CLIPS', a candidate that cannot be biased says 'no bias'."""
 from __future__ import annotations
 
 import math
 
-from ..advisor import Advice, CandidateEffect
-from ..optimiser import Measured, Plan, Shortfall, target_text
-from ..units import fmt
+from ..placement.advisor import Advice, CandidateEffect
+from ..placement.optimiser import Measured, Plan, Shortfall, target_text
+from ..spec.units import fmt
 from .console import db, eng, table_box
 from .json_out import clean
 
@@ -170,7 +170,7 @@ def plan_tables(p: Plan, console, requirements=None) -> None:
         t = Table(title="Spec requirements on the result", box=bx, title_justify="left")
         for col in ("requirement", "value", "limit", "status"):
             t.add_column(col, justify="left" if col in ("requirement", "status") else "right")
-        from ..requirements import show
+        from ..studies.requirements import show
         for r in requirements:
             ok = bool(r.passed[0])
             t.add_row(r.name, show(float(r.value[0]), r.unit), show(r.limit, r.unit), "met" if ok else "FAILS",
@@ -226,7 +226,7 @@ def _edge(f, side) -> str:
 
 
 def plan_dict(p: Plan, requirements=None) -> dict:
-    from ..requirements import result_dict
+    from ..studies.requirements import result_dict
     t = p.targets
     return clean({
         "chain": p.chain.name, "file": p.chain.path, "feasible": p.feasible, "cost_basis": p.cost_basis,

@@ -1,9 +1,9 @@
 """Terminal tables and JSON of requirement checks (``chainplan check``)."""
 from __future__ import annotations
 
-from ..requirements import result_dict, show, where_of
+from ..studies.requirements import result_dict, show, where_of
 from .console import table_box
-from ..safety import safety_notice
+from ..spec.safety import safety_notice
 from .tables import chain_heading
 
 

@@ -3,9 +3,9 @@ from __future__ import annotations
 
 import math
 
-from ..diffing import Diff
-from ..requirements import show
-from ..safety import safety_notice
+from ..studies.diffing import Diff
+from ..studies.requirements import show
+from ..spec.safety import safety_notice
 from .console import table_box
 
 MARK = {"worse": "worse", "clips now": "CLIPS NOW", "fails now": "FAILS NOW"}

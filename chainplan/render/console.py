@@ -6,7 +6,7 @@ import sys
 
 import math
 
-from ..units import fmt
+from ..spec.units import fmt
 
 
 def make_console(file=None):

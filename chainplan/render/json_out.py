@@ -4,8 +4,8 @@ from __future__ import annotations
 import json
 import math
 
-from ..budget import Budget
-from ..safety import safety_notice
+from ..engine.budget import Budget
+from ..spec.safety import safety_notice
 
 
 def clean(x):

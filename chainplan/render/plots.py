@@ -24,9 +24,9 @@ import textwrap
 
 import numpy as np
 
-from ..budget import Budget
-from ..units import fmt
-from ..safety import safety_notice
+from ..engine.budget import Budget
+from ..spec.units import fmt
+from ..spec.safety import safety_notice
 
 ROOM, ROOM_EDGE, LIMIT = "#dcefdc", "#8cc48c", "#2e7d32"
 BAND, TIGHT, CLIP = "#2f6db5", "#e69500", "#c62828"
@@ -280,7 +280,7 @@ def gain_plot(b: Budget):
 
 def noise_plot(nr, chain, top: int = 6):
     """Output noise density (total and the largest contributors) and each
-    contributor's share of the output noise power, from a ``chainplan.noise.NoiseResult``."""
+    contributor's share of the output noise power, from a ``chainplan.engine.noise.NoiseResult``."""
     fig = _figure(10.0, 5.0)
     margin = _caution_margin(fig, chain)
     gs = fig.add_gridspec(1, 2, width_ratios=[1.6, 1.0], wspace=0.55, left=0.08, right=0.97, top=0.86,
@@ -320,13 +320,13 @@ def noise_plot(nr, chain, top: int = 6):
 def montecarlo_plot(mc, nominal: dict | None = None, max_panels: int = 9):
     """Histograms of every requirement's value with its limit (the failing side shaded)
     and yield — or, without requirements, of the main metrics — from a
-    ``chainplan.montecarlo.McResult``; ``nominal`` (name -> value) adds the nominal design."""
-    from ..requirements import show
+    ``chainplan.studies.montecarlo.McResult``; ``nominal`` (name -> value) adds the nominal design."""
+    from ..studies.requirements import show
     nominal = nominal or {}
     panels = [(r.name, r.name, np.asarray(r.value), r.limit, r.unit, r.sense, mc.yield_of(r))
               for r in mc.requirements]
     if not panels:
-        from ..montecarlo import metric_info
+        from ..studies.montecarlo import metric_info
         for key in ("gain_db", "f_low_hz", "f_high_hz", "power_w", "snr_db", "enob_bits"):
             if key in mc.metrics:
                 label, unit, _ = metric_info(mc.chain, key)
@@ -387,12 +387,12 @@ def figures(b: Budget, noise=None, mc=None) -> dict:
 
 
 def _requirements(b: Budget) -> list:
-    from ..requirements import evaluate_requirements
+    from ..studies.requirements import evaluate_requirements
     return evaluate_requirements(b.ev)
 
 
 def _nominal_metrics(b: Budget) -> dict:
-    from ..montecarlo import metrics
+    from ..studies.montecarlo import metrics
     return metrics(b.ev)
 
 

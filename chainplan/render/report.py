@@ -19,10 +19,10 @@ from __future__ import annotations
 import html
 import math
 
-from .. import __version__
-from ..budget import Budget
+from ..version import __version__
+from ..engine.budget import Budget
 from .console import db, end_gain, eng, stage_gain
-from ..safety import safety_notice
+from ..spec.safety import safety_notice
 from .tables import _lim, _set_by
 
 CSS = """
@@ -164,7 +164,7 @@ def _summary_rows(b: Budget) -> list[tuple]:
 def _requirement_rows(b: Budget):
     if not b.chain.extra.get("requirements"):
         return None
-    from ..requirements import evaluate_requirements, show, where_of
+    from ..studies.requirements import evaluate_requirements, show, where_of
     res = evaluate_requirements(b.ev)
     rows = [(r.name, show(float(r.value[0]), r.unit), r.requirement.describe(), show(float(r.margin[0]), r.unit),
              "pass" if r.passed[0] else "FAIL", where_of(r) or "") for r in res]
@@ -185,7 +185,7 @@ def _active_rows(b: Budget) -> list[tuple]:
 
 
 def _montecarlo_html(mc) -> list[str]:
-    from ..requirements import show
+    from ..studies.requirements import show
     out = [f"<h2>Monte Carlo: {mc.samples} samples, seed {mc.seed}</h2>",
            f"<p>All requirements met in <b>{100 * mc.yield_all:.2f} %</b> of the samples.</p>"]
     if mc.requirements:
@@ -193,7 +193,7 @@ def _montecarlo_html(mc) -> list[str]:
                           [(r.name, r.requirement.describe(), f"{100 * mc.yield_of(r):.2f} %")
                            for r in mc.requirements],
                           classes=["fail" if mc.yield_of(r) < 1 else "" for r in mc.requirements]))
-    from ..montecarlo import metric_info
+    from ..studies.montecarlo import metric_info
     rows = []
     for name in mc.metrics:
         st = mc.stats(name)

@@ -3,8 +3,8 @@ from __future__ import annotations
 
 import math
 
-from ..montecarlo import McResult, metric_info, metrics, stats
-from ..requirements import evaluate_requirements, show
+from ..studies.montecarlo import McResult, metric_info, metrics, stats
+from ..studies.requirements import evaluate_requirements, show
 from .tables import chain_heading
 from .console import table_box
 

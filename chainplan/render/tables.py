@@ -6,8 +6,8 @@ from __future__ import annotations
 
 import math
 
-from ..budget import Budget
-from ..safety import safety_notice
+from ..engine.budget import Budget
+from ..spec.safety import safety_notice
 from .console import db, end_gain, eng, stage_gain, table_box
 
 def chain_heading(chain, console) -> None:

@@ -22,17 +22,15 @@ from typing import Any, Callable, NamedTuple
 
 import numpy as np
 
-#: Boltzmann constant, J/K (CODATA 2018, exact since the 2019 SI redefinition).
-K_BOLTZMANN = 1.380649e-23
-#: Elementary charge, C (CODATA 2018, exact).
-Q_ELECTRON = 1.602176634e-19
+from ..constants import K_BOLTZMANN, Q_ELECTRON  # noqa: F401  (re-exported for the stages)
+
 
 
 @dataclass(frozen=True)
 class Field:
     """One parameter of a stage kind, as written in a chain spec."""
 
-    unit: str                      # unit id for chainplan.units, or 'choice'
+    unit: str                      # unit id for chainplan.spec.units, or 'choice'
     doc: str
     required: bool = False
     default: Any = None            # spec-style string ("0 V", "vdd", "inf"), or None = absent
@@ -255,7 +253,7 @@ class StageKind:
 
     # -- noise -------------------------------------------------------------
     def noise(self, p: dict, s, op: Op, temp_k) -> list:
-        """Noise sources of this stage (see chainplan.noise)."""
+        """Noise sources of this stage (see chainplan.engine.noise)."""
         return []
 
 

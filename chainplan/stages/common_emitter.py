@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..devices import bjt
+from .device_fields import bjt_fields
 from .base import DcLoad, Field, Op, StageKind, dc_source, inv, unilateral
 from .noise_sources import NoiseSource, shot, thermal_i, thermal_v
 
@@ -20,7 +21,7 @@ class CommonEmitter(StageKind):
     kind, title = "common_emitter", "BJT common-emitter stage (NPN)"
     draws_input_current = True
     FIELDS = {
-        **bjt.device_fields(),
+        **bjt_fields(),
         "r_c": Field("ohm", "collector load resistor to the collector supply", required=True, positive=True),
         "r_e": Field("ohm", "emitter degeneration resistor to v_low", default="0 Ω", minimum=0.0),
     }

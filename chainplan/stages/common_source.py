@@ -12,7 +12,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..devices import mosfet
-from ..solve import bisect
+from ..devices.solve import bisect
+from .device_fields import mosfet_fields
 from .base import Field, Op, StageKind, dc_source, inv, unilateral
 from .noise_sources import (NoiseSource, density, mosfet_channel_psd, mosfet_noise_fields, sink_noise_field,
                             thermal_i, thermal_v)
@@ -21,7 +22,7 @@ from .noise_sources import (NoiseSource, density, mosfet_channel_psd, mosfet_noi
 class CommonSource(StageKind):
     kind, title = "common_source", "MOSFET common-source stage (NMOS)"
     FIELDS = {
-        **mosfet.device_fields(),
+        **mosfet_fields(),
         "r_d": Field("ohm", "drain load resistor to the drain supply", positive=True),
         "i_load": Field("A", "current-source load from the drain supply (instead of r_d)", positive=True),
         "r_load": Field("ohm", "output resistance of the current-source load", default="inf",

@@ -13,15 +13,16 @@ from __future__ import annotations
 import numpy as np
 
 from ..devices import bjt
+from .device_fields import bjt_fields
 from .base import DcLoad, Field, Op, StageKind, dc_source, follower, inv
-from .noise_sources import NoiseSource, density, shot, sink_noise_field, thermal_i
+from .noise_sources import NoiseSource, follower_low_side_noise, shot, sink_noise_field
 
 
 class EmitterFollower(StageKind):
     kind, title, follower_type = "emitter_follower", "BJT emitter follower (NPN)", True
     draws_input_current = True
     FIELDS = {
-        **bjt.device_fields(),
+        **bjt_fields(),
         "i_bias": Field("A", "bias current sink from the emitter to v_low", positive=True),
         "r_e": Field("ohm", "emitter resistor to v_low (instead of i_bias)", positive=True),
         "r_bias": Field("ohm", "output resistance of the bias current sink", default="inf",
@@ -77,11 +78,7 @@ class EmitterFollower(StageKind):
         v = op.values
         out = [NoiseSource("collector shot", shot(v["ic_a"]), out_i=1.0),
                NoiseSource("base shot", shot(v["ib_a"]), in_i=1.0, out_i=1.0)]
-        if p.get("i_bias") is not None:
-            out.append(NoiseSource("i_bias noise", density(p["i_bias_noise"], s, 0.0), out_i=1.0))
-        else:
-            out.append(NoiseSource("r_e thermal", thermal_i(p["r_e"], temp_k), out_i=1.0))
-        return out
+        return out + [follower_low_side_noise(p, s, temp_k, "r_e")]
 
     def abcd(self, p, s, op):
         v = op.values

@@ -18,9 +18,9 @@ a two-port (Hillbrand & Russer, IEEE Trans. CAS 23, 1976, from memory)::
 
 One generator may act at several places at once (a base shot current leaves the
 base and enters the emitter): the coefficients are then correlated and
-chainplan.noise adds their transfers before squaring.  Coefficients may be
+chainplan.engine.noise adds their transfers before squaring.  Coefficients may be
 complex and frequency dependent.  A converter's noise is no density but a
-power added at the output (``power_v2``, V²); chainplan.noise spreads it flat
+power added at the output (``power_v2``, V²); chainplan.engine.noise spreads it flat
 over the integration band.
 """
 from __future__ import annotations
@@ -107,3 +107,11 @@ def input_noise_fields() -> dict:
                     default="0 A/√Hz", minimum=0.0),
         "in_corner": Field("Hz", "1/f corner of the current noise", default="0 Hz", minimum=0.0),
     }
+
+
+def follower_low_side_noise(p, s, temp_k, r_field: str) -> NoiseSource:
+    """The noise current of what pulls a follower's output low, into the output
+    node: the current sink's declared noise, or the resistor's 4kT/R."""
+    if p.get("i_bias") is not None:
+        return NoiseSource("i_bias noise", density(p["i_bias_noise"], s, 0.0), out_i=1.0)
+    return NoiseSource(f"{r_field} thermal", thermal_i(p[r_field], temp_k), out_i=1.0)

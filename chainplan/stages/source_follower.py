@@ -13,15 +13,16 @@ from __future__ import annotations
 import numpy as np
 
 from ..devices import mosfet
+from .device_fields import mosfet_fields
 from .base import Field, Op, StageKind, dc_source, follower, inv
-from .noise_sources import (NoiseSource, density, mosfet_channel_psd, mosfet_noise_fields, sink_noise_field,
-                            thermal_i)
+from .noise_sources import (NoiseSource, follower_low_side_noise, mosfet_channel_psd, mosfet_noise_fields,
+                            sink_noise_field)
 
 
 class SourceFollower(StageKind):
     kind, title, follower_type = "source_follower", "MOSFET source follower (NMOS)", True
     FIELDS = {
-        **mosfet.device_fields(),
+        **mosfet_fields(),
         "i_bias": Field("A", "bias current sink from the source to v_low", positive=True),
         "r_s": Field("ohm", "source resistor to v_low (instead of i_bias)", positive=True),
         "r_bias": Field("ohm", "output resistance of the bias current sink", default="inf",
@@ -73,11 +74,7 @@ class SourceFollower(StageKind):
         source, the output node: exact, Cgs/Cgd included.  The source resistor's
         4kT/RS or the sink's noise current enter the same node."""
         out = [NoiseSource("channel", mosfet_channel_psd(p, s, op.values["gm_s"], temp_k), out_i=1.0)]
-        if p.get("i_bias") is not None:
-            out.append(NoiseSource("i_bias noise", density(p["i_bias_noise"], s, 0.0), out_i=1.0))
-        else:
-            out.append(NoiseSource("r_s thermal", thermal_i(p["r_s"], temp_k), out_i=1.0))
-        return out
+        return out + [follower_low_side_noise(p, s, temp_k, "r_s")]
 
     def abcd(self, p, s, op):
         v = op.values

@@ -1,5 +1,5 @@
 """Requirements a chain must meet: the spec's ``requirements:`` block, parsed
-strictly, and evaluated per sample on an :class:`~chainplan.budget.Evaluation`.
+strictly, and evaluated per sample on an :class:`~chainplan.engine.budget.Evaluation`.
 
 Spec form — a list; each item has exactly one limit key plus its options::
 
@@ -27,16 +27,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import SpecError, nearest
-from .units import UnitError, fmt, parse_value
-from .yamlsrc import LDict, LList
+from ..errors import SpecError, nearest
+from ..spec.units import UnitError, fmt, parse_value
+from ..spec.yamlsrc import LDict, LList
 
 
 @dataclass(frozen=True)
 class Kind:
     key: str            # the spec key, e.g. 'min_gain'
     kind: str           # the kind id with its unit, e.g. 'min_gain_db'
-    unit: str           # unit id for chainplan.units
+    unit: str           # unit id for chainplan.spec.units
     symbol: str         # unit shown in tables ('bits' for ENOB)
     sense: str          # 'min' (value ≥ limit) or 'max' (value ≤ limit)
     options: tuple      # extra keys the item may carry
@@ -162,10 +162,10 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
         raise err(f"{k.key} cannot be negative", k.key)
     if k.key in ("min_f_high", "max_f_low") and limit == 0:
         raise err("a band edge limit must be above 0 Hz", k.key)
-    if k.key in NOISE_KINDS and importlib.util.find_spec("chainplan.noise") is None:
+    if k.key in NOISE_KINDS and importlib.util.find_spec("chainplan.engine.noise") is None:
         raise err(f"{k.key} needs the noise analysis, which this version of chainplan does not have", k.key)
     if k.key == "min_alias_rejection":
-        from .aliasing import sampling_adc
+        from ..engine.aliasing import sampling_adc
         if sampling_adc(chain) is None:
             raise err("min_alias_rejection needs an ADC with 'f_sample' reading the output node", k.key)
     at = _freq(item, "at", err) if "at" in item else None
@@ -247,7 +247,7 @@ class _Views:
     (one extra AC pass reusing the operating points) and the noise analysis."""
 
     def __init__(self, ev, reqs):
-        from .cascade import run_ac
+        from ..engine.cascade import run_ac
         self.ev, self.n = ev, ev.samples
         extra = sorted({f for r in reqs for f in (r.at_hz, *(r.band_hz or ())) if f is not None}
                        - {ev.f_hz[0]})
@@ -266,7 +266,7 @@ class _Views:
 
     @functools.cached_property
     def noise(self):
-        from .noise import analyse_noise
+        from ..engine.noise import analyse_noise
         return analyse_noise(self.ev)
 
 
@@ -340,7 +340,7 @@ def _power(v: _Views, r):
 
 
 def _alias(v: _Views, r):
-    from .aliasing import alias_check
+    from ..engine.aliasing import alias_check
     return alias_check(v.ev).value_db, None
 
 
@@ -399,19 +399,19 @@ def attach_to_budget(b) -> None:
 
 def check_chain(chain) -> list[ReqResult]:
     """The nominal chain's requirement results (an impossible nominal bias is a SpecError)."""
-    from .budget import check_operating_points, evaluate
+    from ..engine.budget import check_operating_points, evaluate
     ev = evaluate(chain)
     check_operating_points(chain, ev.dc)
     return evaluate_requirements(ev)
 
 
 def __getattr__(name):
-    """``SCHEMAS``: the JSON Schema of the ``requirements:`` section for chainplan.schema,
+    """``SCHEMAS``: the JSON Schema of the ``requirements:`` section for chainplan.spec.schema,
     built from KINDS when asked for (keeps the schema module out of every start-up)."""
     if name != "SCHEMAS":
         raise AttributeError(name)
-    from .schema import field_schema
-    from .stages.base import Field
+    from ..spec.schema import field_schema
+    from ..stages.base import Field
     value = lambda unit, doc: field_schema(Field(unit, doc, tolerable=False))  # noqa: E731
     names = {"anyOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}, "minItems": 1}]}
     props = {k.key: value(k.unit, k.what) for k in KINDS.values()}

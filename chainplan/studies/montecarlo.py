@@ -28,8 +28,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .budget import evaluate, frequency_grid
-from .model import Chain
+from ..engine.budget import evaluate, frequency_grid
+from ..spec.model import Chain
 from .requirements import ReqResult, evaluate_requirements, per_sample
 from .tolerances import Draws, draw
 
@@ -111,7 +111,7 @@ def metrics(ev) -> dict:
             buffers = buffers + (per(pw) if st.model.follower_type else 0.0)
     out["power_w"], out["buffer_power_w"] = per(power), per(buffers)
     if has_noise():
-        from .noise import analyse_noise
+        from ..engine.noise import analyse_noise
         nr = analyse_noise(ev)
         for key in ("out_vrms", "in_vrms"):
             out[f"noise_{key}"] = per(getattr(nr, key))
@@ -138,7 +138,7 @@ def metric_info(chain: Chain, key: str) -> tuple[str, str, int]:
 
 
 def has_noise() -> bool:
-    return importlib.util.find_spec("chainplan.noise") is not None
+    return importlib.util.find_spec("chainplan.engine.noise") is not None
 
 
 def metric_names(chain: Chain) -> list:

@@ -11,8 +11,8 @@ import numpy as np
 
 from .cascade import AcResult, run_ac
 from .dcpass import DcResult, solve_dc
-from .errors import SpecError
-from .model import Chain
+from ..errors import SpecError
+from ..spec.model import Chain
 
 SQRT_HALF = 1.0 / np.sqrt(2.0)
 

@@ -38,11 +38,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .budget import nominal_params
-from .errors import SpecError, nearest
-from .model import Chain
-from .units import UnitError, parse_toleranced, parse_value
-from .yamlsrc import LDict, LList
+from ..engine.budget import nominal_params
+from ..errors import SpecError, nearest
+from ..spec.model import Chain
+from ..spec.units import UnitError, parse_toleranced, parse_value
+from ..spec.yamlsrc import LDict, LList
 
 CORNER_KEYS = ("temperature", "supply", "rails")
 
@@ -216,8 +216,8 @@ def __getattr__(name):
     """``SCHEMAS``: the JSON Schema of the ``corners:`` section for chainplan.schema (built when asked for)."""
     if name != "SCHEMAS":
         raise AttributeError(name)
-    from .schema import field_schema
-    from .stages.base import Field
+    from ..spec.schema import field_schema
+    from ..stages.base import Field
     temp = field_schema(Field("K", "temperature"))
     return {"corners": {"type": "object", "additionalProperties": False, "properties": {
         "temperature": {"anyOf": [{"type": "array", "items": temp, "minItems": 2, "maxItems": 2},

@@ -35,16 +35,16 @@ elements (its terminals), with the choices (no buffer, or a bilateral
 candidate) made at the interfaces inside it; a candidate's bias network sits
 in the region that drives it (it loads X), the candidate itself starts the next
 one.  The engine analyses a region as a chain of its own, fed by an ideal
-source at X with DC level ``v`` and unit signal (``chainplan.budget.evaluate``;
+source at X with DC level ``v`` and unit signal (``chainplan.engine.budget.evaluate``;
 the terminals appear as their input admittance and DC input current only).
 A region's node voltages are then exactly ``V_X(f)·T_n(f)`` and its DC levels,
 operating points and device validity are exactly those of the whole chain —
 whatever is placed elsewhere.  Every region starting at one interface — each
 cut element that can start there, each shape below it, each DC level — is one
-sample of a single engine call (``chainplan.regions``): a stage at each place
+sample of a single engine call (``chainplan.placement.regions``): a stage at each place
 chooses per sample between a plain connection (the identity two-port, which
 changes no number), the element itself, or a terminal's input admittance
-(``chainplan.switch``).
+(``chainplan.placement.switch``).
 
 *States* are (cut position, cut element, DC level at its input).  The forward
 pass processes the interfaces in chain order; it analyses each state's shapes
@@ -101,15 +101,15 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .budget import check_operating_points, evaluate, frequency_grid
-from .cascade import run_ac
-from .errors import UsageError, nearest
-from .insert import insert_buffers
+from ..engine.budget import check_operating_points, evaluate, frequency_grid
+from ..engine.cascade import run_ac
+from ..errors import UsageError, nearest
+from ..spec.insert import insert_buffers
 from .labels import REL
-from .model import Chain
-from .parts import Candidate, candidates_of, default_cost_basis, supply_power
+from ..spec.model import Chain
+from ..spec.parts import Candidate, candidates_of, default_cost_basis, supply_power
 from .search import Run, Search
-from .units import fmt
+from ..spec.units import fmt
 
 
 # -- targets -------------------------------------------------------------------------------

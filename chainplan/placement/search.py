@@ -1,6 +1,6 @@
 """The exact placement search: forward reachability over search states and backward Pareto
-labels, over the batched region analyses of ``chainplan.regions``.  The argument for
-exactness is in ``chainplan.optimiser``'s docstring.
+labels, over the batched region analyses of ``chainplan.placement.regions``.  The argument for
+exactness is in ``chainplan.placement.optimiser``'s docstring.
 
 A *state* is (key, DC level): the cut element a region starts with — ``ROOT`` for the
 source, ``(reader, phase, candidate)`` otherwise — and the DC level of the node it reads.
@@ -15,10 +15,10 @@ import types
 
 import numpy as np
 
-from .budget import Evaluation, frequency_grid
+from ..engine.budget import Evaluation, frequency_grid
 from .labels import REL, Labels, Pool, nondominated, order
-from .model import Chain
-from .parts import Candidate
+from ..spec.model import Chain
+from ..spec.parts import Candidate
 from .regions import ROOT, Regions
 
 V_KEY = 1e-12       # DC levels that round to the same multiple of this (V) are one state

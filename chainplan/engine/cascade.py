@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .model import Chain
+from ..spec.model import Chain
 
 
 class NodeGains(dict):

@@ -1,16 +1,16 @@
 """Markdown reference of every stage kind's fields, generated from the same
 ``FIELDS`` tables that validate specs, so docs/spec.md cannot drift.
 
-    python -m chainplan.fieldref docs/spec.md     # rewrite the generated part
+    python -m chainplan.spec.fieldref docs/spec.md     # rewrite the generated part
 """
 from __future__ import annotations
 
 import sys
 
-from .stages import REGISTRY
+from ..stages import REGISTRY
 from .units import UNITS
 
-BEGIN, END = "<!-- generated: stage fields (python -m chainplan.fieldref docs/spec.md) -->", "<!-- end generated -->"
+BEGIN, END = "<!-- generated: stage fields (python -m chainplan.spec.fieldref docs/spec.md) -->", "<!-- end generated -->"
 
 
 def _default(f) -> str:

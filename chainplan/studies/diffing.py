@@ -18,8 +18,8 @@ import os
 import subprocess
 from dataclasses import dataclass, field
 
-from .errors import UsageError
-from .model import Chain
+from ..errors import UsageError
+from ..spec.model import Chain
 
 #: unit -> (absolute, relative) tolerance under which a figure counts as unchanged
 SAME = {"dB": (0.005, 0.0), "bits": (0.005, 0.0), "V": (1e-6, 1e-6), "Hz": (0.0, 1e-4), "W": (1e-12, 1e-6)}
@@ -114,7 +114,7 @@ def read_revision(path: str, rev: str) -> str:
 def load_side(path: str, rev: str | None = None, prepare=None) -> Side:
     """Load and analyse one side: a file as it is, or at a git revision.
     ``prepare(chain)`` may adjust the chain (command-line analysis options)."""
-    from .spec import load_chain, load_chain_text
+    from ..spec.loader import load_chain, load_chain_text
     if rev is None:
         chain, label = load_chain(path), path
     else:
@@ -126,7 +126,7 @@ def load_side(path: str, rev: str | None = None, prepare=None) -> Side:
 
 
 def analyse_side(chain: Chain, label: str) -> Side:
-    from .budget import check_operating_points, evaluate
+    from ..engine.budget import check_operating_points, evaluate
     from .montecarlo import metrics
     from .requirements import evaluate_requirements, result_dict
     ev = evaluate(chain)

@@ -2,9 +2,9 @@
 would do there — found by re-analysing the whole chain with the buffer
 inserted, never by rules of thumb.
 
-Every figure is a difference of two full analyses (``chainplan.budget.evaluate``
+Every figure is a difference of two full analyses (``chainplan.engine.budget.evaluate``
 of the chain as it is and of a copy with the buffer inserted by
-``chainplan.insert``), at the reference frequency unless said otherwise:
+``chainplan.spec.insert``), at the reference frequency unless said otherwise:
 
 * ``loss_now_db``: the interface's loading loss, 20·log10|1/(1 + Zth·Yin)|;
 * ``recovered_db``: (loss X→buffer + loss buffer→Y) − loss X→Y: the loading
@@ -47,10 +47,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .budget import Evaluation, check_operating_points, evaluate
-from .insert import insert_buffers
-from .model import Chain
-from .parts import Candidate, candidates_of, default_cost_basis, supply_power
+from ..engine.budget import Evaluation, check_operating_points, evaluate
+from ..spec.insert import insert_buffers
+from ..spec.model import Chain
+from ..spec.parts import Candidate, candidates_of, default_cost_basis, supply_power
 
 THRESHOLDS = {
     "needed_loss_db": 3.0,     # an interface losing this much or more needs a buffer...
@@ -176,7 +176,7 @@ def _figures(ev: Evaluation, with_noise: bool) -> _Figures:
 def _snr_db(ev: Evaluation) -> float | None:
     """SNR at the converter when the noise analysis is installed, else None."""
     try:
-        from .noise import analyse_noise
+        from ..engine.noise import analyse_noise
     except ImportError:
         return None
     return float(np.ravel(analyse_noise(ev).snr_db)[0])
@@ -296,12 +296,12 @@ def _signed(x) -> str:
 
 
 def _volts(v) -> str:
-    from .units import fmt
+    from ..spec.units import fmt
     return fmt(v, "V")
 
 
 def _watts(w) -> str:
-    from .units import fmt
+    from ..spec.units import fmt
     return fmt(w or 0.0, "W")
 
 
@@ -355,7 +355,7 @@ def _why_not(effects: list[CandidateEffect]) -> str:
 
 def _band_text(e: CandidateEffect) -> str:
     """The band edge that moves outward most, before → after."""
-    from .units import fmt
+    from ..spec.units import fmt
     f = lambda x, side: f"{side} span" if x is None else fmt(x, "Hz")  # noqa: E731
     hi = (e.f_high_after_hz or math.inf) / e.f_high_before_hz if e.f_high_before_hz else 1.0
     lo = e.f_low_before_hz / (e.f_low_after_hz or 0.0) if e.f_low_before_hz and e.f_low_after_hz else \

@@ -278,7 +278,7 @@ def band_weights(f_hz, lo, hi) -> np.ndarray:
 
 def attach_to_budget(b: Budget) -> None:
     """Budget hook: noise rows in the summary, noise keys in --json."""
-    from .units import fmt
+    from ..spec.units import fmt
     r = analyse_noise(b.ev)
     f = lambda x: float(np.ravel(x)[0])  # noqa: E731
     rows = [("noise at the output (rms)", fmt(f(r.out_vrms), "V")),

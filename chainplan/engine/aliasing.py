@@ -23,7 +23,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .cascade import run_ac
-from .units import fmt
+from ..spec.units import fmt
 
 
 @dataclass

@@ -1,11 +1,11 @@
 """JSON Schema (draft-07) of the chain spec, generated from the definitions that
 validate specs: the stage kinds' ``FIELDS`` and ``ONE_OF`` tables
-(``chainplan.stages.REGISTRY``), the units of ``chainplan.units``, and the
-top-level keys, hazards and analysis keys of ``chainplan.spec``.  YAML-aware
+(``chainplan.stages.REGISTRY``), the units of ``chainplan.spec.units``, and the
+top-level keys, hazards and analysis keys of ``chainplan.spec.loader``.  YAML-aware
 editors use it to complete and check chain files; chainplan's own loader stays
 the authority (it also checks ranges, rails and connections).
 
-    python -m chainplan.schema docs/chain.schema.json    # regenerate the file
+    python -m chainplan.spec.schema docs/chain.schema.json    # regenerate the file
 
 A feature module that parses a top-level section (``spec.SECTION_PARSERS``) may
 describe it with a ``SCHEMAS = {key: schema}`` dict; without one the section
@@ -16,10 +16,9 @@ from __future__ import annotations
 import importlib
 import json
 import re
-import sys
 
-from . import spec
-from .stages import REGISTRY
+from . import loader as spec
+from ..stages import REGISTRY
 from .units import PREFIXES, UNITS
 
 SCHEMA_ID = "https://chainplan.invalid/chain.schema.json"
@@ -155,7 +154,3 @@ def chain_schema() -> dict:
 def dumps() -> str:
     return json.dumps(chain_schema(), indent=2, ensure_ascii=False) + "\n"
 
-
-if __name__ == "__main__":   # python -m chainplan.schema PATH
-    from .render.files import write_atomic
-    write_atomic({sys.argv[1]: dumps()})

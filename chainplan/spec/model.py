@@ -9,8 +9,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from .stages import REGISTRY
-from .stages.base import StageKind
+from ..stages import REGISTRY
+from ..stages.base import StageKind
 
 
 @dataclass

@@ -1,4 +1,4 @@
-"""Chain specs: YAML files in git, parsed strictly into a :class:`~chainplan.model.Chain`.
+"""Chain specs: YAML files in git, parsed strictly into a :class:`~chainplan.spec.model.Chain`.
 
 Every problem becomes one :class:`~chainplan.errors.SpecError` naming file,
 line and field, with what would be valid.  The format is documented in
@@ -11,9 +11,9 @@ import importlib
 import math
 import re
 
-from .errors import SpecError, nearest
+from ..errors import SpecError, nearest
 from .model import Analysis, Chain, Stage
-from .stages import REGISTRY
+from ..stages import REGISTRY
 from .units import UnitError, parse_toleranced, parse_value
 from .yamlsrc import LDict, LList, load_file, load_text
 
@@ -26,10 +26,10 @@ NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 
 #: Sections owned by feature modules: key -> "module:function(chain, node, path)".
 SECTION_PARSERS: dict[str, str] = {
-    "requirements": "chainplan.requirements:parse_section",
-    "corners": "chainplan.tolerances:parse_corners",
-    "include": "chainplan.parts:parse_include",
-    "candidates": "chainplan.parts:parse_candidates",
+    "requirements": "chainplan.studies.requirements:parse_section",
+    "corners": "chainplan.studies.tolerances:parse_corners",
+    "include": "chainplan.spec.parts:parse_include",
+    "candidates": "chainplan.spec.parts:parse_candidates",
 }
 
 

@@ -7,14 +7,14 @@ buffer.  A candidate with its own input bias network brings a second stage,
 an ``ac_coupling`` named ``buf_<Y>_bias``: it reads X and the buffer reads it.
 Every other stage keeps its parent, so siblings at a fan-out node stay on X.
 The input chain is never modified: stages are copied, and the engine
-(:func:`chainplan.budget.evaluate`) re-analyses the copy in full.
+(:func:`chainplan.engine.budget.evaluate`) re-analyses the copy in full.
 """
 from __future__ import annotations
 
 import copy
 import dataclasses
 
-from .errors import UsageError, nearest
+from ..errors import UsageError, nearest
 from .model import Chain, Stage
 
 
@@ -63,7 +63,7 @@ def check_interface(chain: Chain, reader: str) -> None:
 
 
 def insert_buffers(chain: Chain, placement: dict) -> Chain:
-    """A copy of ``chain`` with ``placement[reader]`` (a :class:`~chainplan.parts.Candidate`)
+    """A copy of ``chain`` with ``placement[reader]`` (a :class:`~chainplan.spec.parts.Candidate`)
     inserted in front of each named reader, named as :func:`buffer_names` says."""
     for reader in placement:
         check_interface(chain, reader)

@@ -21,7 +21,7 @@ A parts file is a YAML mapping::
 A chain spec names parts files under ``include:`` (a path or a list of paths,
 relative to the spec) and may list more candidates inline under
 ``candidates:`` in the same form.  Each candidate's stage is built by the same
-validator as a chain's stages (:func:`chainplan.spec.build_stage`), with the
+validator as a chain's stages (:func:`chainplan.spec.loader.build_stage`), with the
 including chain's rails, so errors read the same and name the parts file.
 
 A candidate with ``input_bias`` is inserted as two stages, an ``ac_coupling``
@@ -42,9 +42,9 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass, field
 
-from .errors import SpecError, nearest
+from ..errors import SpecError, nearest
 from .model import Stage
-from .stages import REGISTRY
+from ..stages import REGISTRY
 from .units import UnitError, parse_value
 from .yamlsrc import LDict, LList, load_file
 
@@ -60,7 +60,7 @@ class Candidate:
     """One candidate buffer: a follower-type stage (not yet connected) and its cost."""
 
     name: str
-    stage: Stage                 # parent is None; connected by chainplan.insert
+    stage: Stage                 # parent is None; connected by chainplan.spec.insert
     path: str                    # file that defines it
     line: int
     price: float | None = None
@@ -217,7 +217,7 @@ def _add_candidates(chain, node, line, path) -> None:
 def _build(chain, path, body: LDict, tolerances: dict, prefix: str | None) -> Stage:
     """A stage from a candidate's mapping with the including chain's rails; field names in
     errors get ``prefix`` (``<candidate>.input_bias``), and a rail the chain lacks says so."""
-    from .spec import NAME_RE, build_stage
+    from .loader import NAME_RE, build_stage
     try:
         return build_stage(path, body, chain.rails, tolerances)
     except SpecError as exc:

@@ -49,11 +49,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import SpecError
-from .model import Chain, Stage
-from .safety import safety_notice
-from .stages.base import K_BOLTZMANN, Q_ELECTRON
-from .stages.passive import Passive
+from ..errors import SpecError
+from ..spec.model import Chain, Stage
+from ..spec.safety import safety_notice
+from ..stages.base import K_BOLTZMANN, Q_ELECTRON
+from ..stages.passive import Passive
 
 #: Conductance of the op-amp/amplifier pole node, S (sets the scale of the pole network only).
 G_POLE = 1e-3
@@ -261,18 +261,28 @@ def _load(b: _Builder, st: Stage, p, node_in):
     return None
 
 
+def _output_nodes(b: _Builder, st: Stage, p):
+    """The stage's output node and the controlled source's own node behind r_out
+    (the same node when r_out is 0)."""
+    out = b.new_node(st.name)
+    return out, (out if _val(p["r_out"]) == 0 else b.new_node(f"{st.name}_int"))
+
+
+def _drive(b: _Builder, st: Stage, p, out, core, ref, plus, minus, gain, f_pole_hz):
+    """A single-pole voltage amplifier of (+) − (−) into ``core``, then r_out to ``out``."""
+    b.pole_buffer(st.name, core, ref, plus, minus, gain, f_pole_hz)
+    if _val(p["r_out"]) != 0:
+        b.r(f"{st.name}_out", core, out, p["r_out"], noiseless=True)
+    return out
+
+
 def _amplifier(b: _Builder, st: Stage, p, node_in):
     in_ref, out_ref = b.volts(p["in_ref"], st), b.volts(p["out_ref"], st)
     b.r(f"{st.name}_in", node_in, in_ref, p["r_in"], noiseless=True)
     b.c(f"{st.name}_in", node_in, "0", p["c_in"])
-    ro = _val(p["r_out"])
-    out = b.new_node(st.name)
-    core = out if ro == 0 else b.new_node(f"{st.name}_int")
+    out, core = _output_nodes(b, st, p)
     plus = _input_noise(b, st, p, node_in)
-    b.pole_buffer(st.name, core, out_ref, plus, in_ref, _val(p["gain"]), _val(p["f_3db"]))
-    if ro != 0:
-        b.r(f"{st.name}_out", core, out, ro, noiseless=True)
-    return out
+    return _drive(b, st, p, out, core, out_ref, plus, in_ref, _val(p["gain"]), _val(p["f_3db"]))
 
 
 def _opamp(b: _Builder, st: Stage, p, node_in):
@@ -281,9 +291,7 @@ def _opamp(b: _Builder, st: Stage, p, node_in):
     a0 = 10.0 ** (_val(p["a0"]) / 20.0)
     f_pole = _val(p["gbw"]) / a0
     ref = b.volts(p.get("ref", 0.0), st)
-    ro = _val(p["r_out"])
-    out = b.new_node(st.name)
-    core = out if ro == 0 else b.new_node(f"{st.name}_int")
+    out, core = _output_nodes(b, st, p)
     if st.kind == "opamp_follower":
         plus, minus = node_in, out
     else:
@@ -296,10 +304,7 @@ def _opamp(b: _Builder, st: Stage, p, node_in):
         b.r(f"{st.name}_cm", node_in, "0", p["r_in"], noiseless=True)
         b.c(f"{st.name}_in", node_in, "0", p["c_in"])
     plus = _input_noise(b, st, p, plus, minus)
-    b.pole_buffer(st.name, core, ref, plus, minus, a0, f_pole)
-    if ro != 0:
-        b.r(f"{st.name}_out", core, out, ro, noiseless=True)
-    return out
+    return _drive(b, st, p, out, core, ref, plus, minus, a0, f_pole)
 
 
 def _opamp_transimpedance(b: _Builder, st: Stage, p, node_in):
@@ -307,18 +312,13 @@ def _opamp_transimpedance(b: _Builder, st: Stage, p, node_in):
     RF ‖ CF from the output back to it, and the input's r_in ‖ c_in to ground."""
     a0 = 10.0 ** (_val(p["a0"]) / 20.0)
     ref = b.volts(p["ref"], st)
-    ro = _val(p["r_out"])
-    out = b.new_node(st.name)
-    core = out if ro == 0 else b.new_node(f"{st.name}_int")
+    out, core = _output_nodes(b, st, p)
     b.r(f"{st.name}_f", out, node_in, p["r_f"])
     b.c(f"{st.name}_f", out, node_in, p["c_f"])
     b.r(f"{st.name}_cm", node_in, "0", p["r_in"], noiseless=True)
     b.c(f"{st.name}_in", node_in, "0", p["c_in"])
     plus = _input_noise(b, st, p, ref, node_in)
-    b.pole_buffer(st.name, core, ref, plus, node_in, a0, _val(p["gbw"]) / a0)
-    if ro != 0:
-        b.r(f"{st.name}_out", core, out, ro, noiseless=True)
-    return out
+    return _drive(b, st, p, out, core, ref, plus, node_in, a0, _val(p["gbw"]) / a0)
 
 
 def _input_noise(b: _Builder, st: Stage, p, plus, minus=None) -> str:
@@ -367,10 +367,7 @@ def _source_follower(b: _Builder, st: Stage, p, node_in):
     drain, low = b.volts(p["drain"], st), b.volts(p["v_low"], st)
     _mos_instance(b, st, p, drain, node_in, out, _mos_bulk(b, st, p, out, low), model)
     _channel_noise_notes(b, st, p)
-    if p.get("i_bias") is not None:
-        _sink(b, f"{st.name}_bias", out, low, p["i_bias"], p["r_bias"], p.get("i_bias_noise", 0.0))
-    else:
-        b.r(f"{st.name}_s", out, low, p["r_s"])
+    _follower_low_side(b, st, p, out, low, "s")
     b.c(f"{st.name}_gs", node_in, out, p["cgs"])
     b.c(f"{st.name}_gd", node_in, drain, p["cgd"])
     return out
@@ -390,6 +387,15 @@ def _common_source(b: _Builder, st: Stage, p, node_in):
     else:
         _sink(b, f"{st.name}_load", drain, out, p["i_load"], p["r_load"], p.get("i_load_noise", 0.0))
     return out
+
+
+def _follower_low_side(b: _Builder, st: Stage, p, out, low, terminal: str):
+    """What pulls a follower's output to its low rail: the current sink, or the
+    source/emitter resistor (``terminal`` "s" or "e")."""
+    if p.get("i_bias") is not None:
+        _sink(b, f"{st.name}_bias", out, low, p["i_bias"], p["r_bias"], p.get("i_bias_noise", 0.0))
+    else:
+        b.r(f"{st.name}_{terminal}", out, low, p[f"r_{terminal}"])
 
 
 def _sink(b: _Builder, wanted, a, c, amps, r_out, noise_a):
@@ -412,10 +418,7 @@ def _emitter_follower(b: _Builder, st: Stage, p, node_in):
     out = b.new_node(st.name)
     coll, low = b.volts(p["collector"], st), b.volts(p["v_low"], st)
     b.elem("Q", st.name, coll, node_in, out, model)
-    if p.get("i_bias") is not None:
-        _sink(b, f"{st.name}_bias", out, low, p["i_bias"], p["r_bias"], p.get("i_bias_noise", 0.0))
-    else:
-        b.r(f"{st.name}_e", out, low, p["r_e"])
+    _follower_low_side(b, st, p, out, low, "e")
     return out
 
 
@@ -465,7 +468,7 @@ def _exporter(chain: Chain, st: Stage):
 def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
     """The SPICE netlist of a chain at its nominal values (raises SpecError, naming
     the stage, when a stage has no SPICE form)."""
-    from .budget import nominal_params
+    from ..engine.budget import nominal_params
     params = nominal_params(chain)
     fns = {st.name: _exporter(chain, st) for st in chain.all_stages}   # refuse before building anything
     b = _Builder(chain)

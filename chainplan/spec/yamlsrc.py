@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import yaml
 
-from .errors import SpecError
+from ..errors import SpecError
 
 
 class LDict(dict):

@@ -21,7 +21,7 @@ import tempfile
 
 import yaml
 
-from .errors import SpecError, UsageError
+from ..errors import SpecError, UsageError
 from .insert import bias_names, buffer_names
 from .model import Chain
 
@@ -107,7 +107,7 @@ def _move_includes(text: str, old_path: str, new_path: str) -> str:
 
 def write_buffered(chain: Chain, placement: dict, out_path: str) -> str:
     """Write the buffered spec to ``out_path`` atomically; returns the text written."""
-    from .spec import load_chain_text
+    from .loader import load_chain_text
     if chain.path is None or not os.path.isfile(chain.path):
         raise UsageError("the chain was not read from a file; there is no text to rewrite")
     with open(chain.path, encoding="utf-8") as fh:

@@ -1,4 +1,4 @@
-"""Region analyses for the exact buffer placement (``chainplan.optimiser``), batched.
+"""Region analyses for the exact buffer placement (``chainplan.placement.optimiser``), batched.
 
 A *region* runs from a cut (or the source) through the stages it drives up to
 the next cuts, with a choice made at each interface inside it: no buffer, a
@@ -8,10 +8,10 @@ analysed at the DC levels their input node can have.
 
 Every region that starts at one interface — every cut element that can read
 that node, every shape below it, every DC level — is analysed by **one**
-engine call (``chainplan.budget.evaluate``), stacked along the engine's samples
+engine call (``chainplan.engine.budget.evaluate``), stacked along the engine's samples
 axis.  The chain the engine sees is the *superset* of the shapes (a
 :class:`Wave`): at every place where an original stage, a candidate or a
-candidate's bias network can sit there is a ``chainplan.switch.Switch`` that
+candidate's bias network can sit there is a ``chainplan.placement.switch.Switch`` that
 is, per sample, a plain connection, the element itself, or a terminal.  A
 sample's stages below a terminal are all plain connections, so each sample is
 exactly the region shape it stands for, analysed as a chain of its own.
@@ -27,10 +27,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .budget import evaluate, nominal_params
-from .insert import bias_names, buffer_names
-from .model import Analysis, Chain, Stage
-from .parts import Candidate
+from ..engine.budget import evaluate, nominal_params
+from ..spec.insert import bias_names, buffer_names
+from ..spec.model import Analysis, Chain, Stage
+from ..spec.parts import Candidate
 from .switch import MODEL, PASS, TERMINAL, Element, Switch
 
 #: Kinds that cut the chain (unilateral input and output; DC from the input node voltage only).

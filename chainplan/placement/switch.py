@@ -1,5 +1,5 @@
 """A stage whose element is chosen per sample: how many region shapes go through the
-engine (``chainplan.cascade``, ``chainplan.dcpass``) in one call.
+engine (``chainplan.engine.cascade``, ``chainplan.engine.dcpass``) in one call.
 
 A :class:`Switch` holds variants, each ``(mode, Element or None)``:
 
@@ -23,9 +23,9 @@ import itertools
 
 import numpy as np
 
-from .model import Stage
-from .parts import Candidate
-from .stages.base import ABCD, NO_LOAD, DcLoad, DcState, Op
+from ..spec.model import Stage
+from ..spec.parts import Candidate
+from ..stages.base import ABCD, NO_LOAD, DcLoad, DcState, Op
 
 PASS, MODEL, TERMINAL = 0, 1, 2
 #: Kinds whose DC operating point is solved numerically (worth remembering per input row).

@@ -7,8 +7,8 @@ from __future__ import annotations
 
 import xml.etree.ElementTree as ET
 
-from .requirements import ReqResult, show, where_of
-from .safety import safety_notice
+from ..studies.requirements import ReqResult, show, where_of
+from ..spec.safety import safety_notice
 
 
 def failure_text(r: ReqResult, i: int = 0) -> str:

@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .model import Chain
-from .stages.base import DcLoad, DcState, Op, dc_node_voltage, dc_with_sibling
+from ..spec.model import Chain
+from ..stages.base import DcLoad, DcState, Op, dc_node_voltage, dc_with_sibling
 
 
 @dataclass

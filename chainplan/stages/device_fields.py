@@ -1,0 +1,31 @@
+"""Spec fields of the device models (chainplan.devices), shared by the stages built on them."""
+from __future__ import annotations
+
+from .base import Field
+
+def mosfet_fields():
+    """Spec fields shared by every MOSFET stage (level-1 parameter names in words)."""
+    return {
+        "kp": Field("A/V2", "transconductance parameter k' = µn·Cox (SPICE KP)", required=True, positive=True),
+        "w_over_l": Field("1", "aspect ratio W/L", required=True, positive=True),
+        "vth0": Field("V", "zero-bias threshold voltage (SPICE VTO)", required=True),
+        "lambda": Field("1/V", "channel-length modulation (SPICE LAMBDA)", default="0 /V", minimum=0.0),
+        "gamma": Field("sqrtV", "body-effect coefficient (SPICE GAMMA)", default="0 √V", minimum=0.0),
+        "phi": Field("V", "surface potential 2φF (SPICE PHI)", default="0.6 V", positive=True),
+        "drain": Field("V", "drain supply", default="vdd", rail_ok=True),
+        "v_low": Field("V", "rail the source side returns to", default="0 V", rail_ok=True),
+        "bulk": Field("V", "bulk connection: 'source', 'low' (the v_low rail), or a voltage/rail",
+                      default="low", rail_ok=True, choices=("source", "low")),
+    }
+
+
+def bjt_fields():
+    """Spec fields shared by the BJT stages (NPN)."""
+    return {
+        "beta": Field("1", "current gain β (SPICE BF)", default="100", positive=True),
+        "va": Field("V", "Early voltage (SPICE VAF)", default="inf", positive=True, allow_inf=True),
+        "i_s": Field("A", "saturation current (SPICE IS)", default="1e-15 A", positive=True),
+        "vce_sat": Field("V", "collector–emitter saturation voltage", default="0.2 V", minimum=0.0),
+        "collector": Field("V", "collector supply", default="vdd", rail_ok=True),
+        "v_low": Field("V", "rail the emitter side returns to", default="0 V", rail_ok=True),
+    }
