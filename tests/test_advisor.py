@@ -124,13 +124,15 @@ def test_source_follower_against_the_square_law(tmp_path):
 
 def test_opamp_follower_closed_loop_gain(tmp_path):
     """Franco, Design with Operational Amplifiers (from memory): a follower's gain is A/(1 + A)
-    with the single-pole A(f) = A0/(1 + j·f·A0/GBW)."""
+    with the single-pole A(f) = A0/(1 + j·f·A0/GBW); its − input's c_in hangs on the output
+    through Ro, so the open-circuit gain is A/(1 + A + Ro·jωCin) (nodal analysis)."""
     chain = make(tmp_path)
     _, e = effect_at(chain, "adc", "opamp_micro")
     p = cand(chain, "opamp_micro").stage.params
     a0 = 10 ** (p["a0"] / 20)
     a = a0 / (1 + 1j * 1e3 * a0 / p["gbw"])
-    assert e.buffer_gain_db == pytest.approx(20 * math.log10(abs(a / (1 + a))), abs=1e-9)
+    ro_y = p["r_out"] * 2j * math.pi * 1e3 * p["c_in"]
+    assert e.buffer_gain_db == pytest.approx(20 * math.log10(abs(a / (1 + a + ro_y))), abs=1e-9)
     assert abs(e.dc_shift_v) < 1e-4                               # a follower keeps the DC level
     assert e.power_w == pytest.approx(p["i_supply"] * 3.3, rel=1e-12)
 

@@ -138,6 +138,7 @@ NONINV_NET = """
 Vsrc e 0 dc 0 ac 1
 Rsrc e p 10k
 Cin p 0 10p
+Cinm m 0 10p
 Een pi p n1 0 {g_en}
 Gip 0 p n2 0 {g_in}
 RF out m 90k
@@ -177,6 +178,14 @@ RL out 0 10k
 
 def test_opamp_inverting_stage():
     compare(INV_CHAIN, INV_NET.format(**SPICE_VALUES), "out")
+
+
+def test_opamp_inverting_stage_input_capacitance():
+    """c_in (and r_in) sit at the − input: the noise gain rises as 1 + RF·(1/(RG + Rs) + s·Cin)
+    (issue 11 item 6); the hand netlist has them at node m."""
+    chain = INV_CHAIN.replace("r_g: 2k,", "r_g: 2k, c_in: 20 pF, r_in: 1meg,")
+    net = INV_NET.replace("RF out m 20k", "RF out m 20k\nCinm m 0 20p\nGrinm m 0 m 0 1e-6")
+    compare(chain, net.format(**SPICE_VALUES), "out")
 
 
 # ---------------------------------------------------------------------------

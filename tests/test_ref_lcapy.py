@@ -294,7 +294,8 @@ stages:
 
 def test_opamp_noninverting_network(lcapy):
     """Non-inverting stage, same element-level op-amp as above, with its input R ‖ C
-    and Ro loaded by the feedback divider and a 600 Ω ‖ 2 nF load."""
+    at both inputs (the − input's in the feedback network, issue 11 item 6) and Ro
+    loaded by the feedback divider and a 600 Ω ‖ 2 nF load."""
     ev = evaluate(chain_from(NONINV), f_hz=FREQS)
     net = f"""
 Rs 1 2 10000
@@ -303,6 +304,8 @@ Cin 2 0 5e-12
 {opamp_elements(70, 2e6, 200, plus="2", minus="3", out="4")}
 Rf 4 3 9000
 Rg 3 0 1000
+Rinm 3 0 1000000
+Cinm 3 0 5e-12
 RL 4 0 600
 CL 4 0 2e-9
 """

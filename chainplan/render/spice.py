@@ -287,7 +287,8 @@ def _amplifier(b: _Builder, st: Stage, p, node_in):
 
 def _opamp(b: _Builder, st: Stage, p, node_in):
     """Follower, non-inverting or inverting: open loop A0/(1 + s·A0/(2π·GBW)) from
-    (+) − (−), output referred to ``ref``, Ro, and the feedback resistors."""
+    (+) − (−), output referred to ``ref``, Ro, the feedback resistors, and r_in ‖ c_in
+    at each input (the (−) input's r_in returns to ``ref``, as in the model)."""
     a0 = 10.0 ** (_val(p["a0"]) / 20.0)
     f_pole = _val(p["gbw"]) / a0
     ref = b.volts(p.get("ref", 0.0), st)
@@ -303,6 +304,8 @@ def _opamp(b: _Builder, st: Stage, p, node_in):
     if st.kind != "opamp_inverting":      # chainplan's inverting model has its (+) input on ref
         b.r(f"{st.name}_cm", node_in, "0", p["r_in"], noiseless=True)
         b.c(f"{st.name}_in", node_in, "0", p["c_in"])
+    b.r(f"{st.name}_cmm", minus, ref, p["r_in"], noiseless=True)    # the (−) input's own shunt
+    b.c(f"{st.name}_inm", minus, "0", p["c_in"])
     plus = _input_noise(b, st, p, plus, minus)
     return _drive(b, st, p, out, core, ref, plus, minus, a0, f_pole)
 

@@ -21,8 +21,10 @@ COMMON = {
     "gbw": Field("Hz", "gain–bandwidth product", required=True, positive=True),
     "a0": Field("dB", "open-loop DC gain", default="120 dB", positive=True),
     "r_out": Field("ohm", "open-loop output resistance", default="0 Ω", minimum=0.0),
-    "r_in": Field("ohm", "common-mode input resistance", default="inf", positive=True, allow_inf=True),
-    "c_in": Field("F", "input capacitance", default="0 F", minimum=0.0),
+    "r_in": Field("ohm", "common-mode input resistance, at each input", default="inf", positive=True,
+                  allow_inf=True),
+    "c_in": Field("F", "common-mode input capacitance, at each input (the − input's is in the feedback "
+                  "network: it sets the noise gain and the phase margin)", default="0 F", minimum=0.0),
     "v_pos": Field("V", "positive supply", default="vdd", rail_ok=True),
     "v_neg": Field("V", "negative supply", default="0 V", rail_ok=True),
     "swing_high": Field("V", "output swing limit below the positive supply", default="0.1 V", minimum=0.0),
@@ -42,6 +44,12 @@ FEEDBACK = {
 }
 
 
+def y_input(p, s):
+    """Admittance of one input to AC ground: 1/r_in + s·c_in (the common-mode
+    input impedance of a data sheet, at each input)."""
+    return inv(p["r_in"]) + s * p["c_in"]
+
+
 def inv_open_loop(p, s):
     """1/A(s) = 1/A0 + s/(2π·GBW) for a single-pole op-amp (A0 → ∞ stays exact)."""
     return 10.0 ** (-p["a0"] / 20.0) + s / (2 * np.pi * p["gbw"])
@@ -56,16 +64,20 @@ class _OpAmp(StageKind):
     def _power(self, p):
         return p["i_supply"] * (p["v_pos"] - p["v_neg"])
 
-    def _feedback(self, p):
-        """(β, 1/(RF+RG)) of the feedback network; the follower has β = 1 and no network."""
+    def _feedback(self, p, s):
+        """(β, gfb) of the feedback network as the output sees it: Vm = β·Vout and the
+        network draws gfb·Vout from the output.  With y = 1/RG + Ym at the − node
+        (Ym = 1/r_in + s·c_in, the − input's own shunt): β = 1/(1 + RF·y), gfb = y·β
+        (nodal analysis of the − node); the follower (RF = 0, no RG) has β = 1, gfb = Ym."""
         raise NotImplementedError
 
     def abcd(self, p, s, op):
-        """Non-inverting topology: V1 = (β + (1 + Ro·gfb)/A)·V2 + (Ro/A)·I2, I1 = Yin·V1."""
-        beta, g_fb = self._feedback(p)
+        """Non-inverting topology: V1 = (β + (1 + Ro·gfb)/A)·V2 + (Ro/A)·I2, I1 = Yin·V1,
+        with β and gfb of the feedback network loaded by the − input (``_feedback``)."""
+        beta, g_fb = self._feedback(p, s)
         ia = inv_open_loop(p, s)
         core = ABCD(beta + (1.0 + p["r_out"] * g_fb) * ia, p["r_out"] * ia, 0.0, 0.0)
-        y_in = inv(p["r_in"]) + s * p["c_in"]
+        y_in = y_input(p, s)
         return chain(shunt_y(y_in), core) if np.any(y_in != 0) else core   # an ideal input adds nothing
 
     def dc_input_load(self, p, out_load, op):
@@ -76,22 +88,21 @@ class _OpAmp(StageKind):
         """en at the + input, in+ into it, in− into the − node, and the thermal noise
         of RF and RG.  Nodal analysis of the macro model with the generators in
         place gives V+ = Vc + Σ c·n, the noise behind the input shunt Yin (so
-        in_i = Yin·in_v), with 1/A = ia and Rp = RF ‖ RG:
-        c(en) = −1;  c(v_RF) = −β − Ro·ia·gfb;  c(v_RG) = 1 − β − Ro·ia·gfb;
-        c(in−) = Rp − Ro·ia·β.  For ia → 0 the output sees each coefficient times
-        the noise gain 1/β: en·(1 + RF/RG), v_RF, v_RG·RF/RG and in−·RF (Franco,
-        *Design with Operational Amplifiers*, noise chapter, from memory)."""
-        beta, g_fb = self._feedback(p)
+        in_i = Yin·in_v), with 1/A = ia and β, gfb of ``_feedback`` (the − input's
+        shunt Ym included): c(en) = −1;  c(v_RF) = −β − Ro·ia·gfb;
+        c(v_RG) = (RF − Ro·ia)·β/RG;  c(in−) = (RF − Ro·ia)·β (derived by nodal
+        analysis, checked symbolically).  For ia → 0 and Ym = 0 the output sees each
+        coefficient times the noise gain 1/β: en·(1 + RF/RG), v_RF, v_RG·RF/RG and
+        in−·RF (Franco, *Design with Operational Amplifiers*, noise chapter, from memory)."""
+        beta, g_fb = self._feedback(p, s)
         ro_ia = p["r_out"] * inv_open_loop(p, s)
-        y_in = inv(p["r_in"]) + s * p["c_in"]
+        y_in = y_input(p, s)
         i_psd = density(p["in"], s, p["in_corner"])
         out = [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=-1.0, in_i=-y_in),
                NoiseSource("in+", i_psd, in_i=1.0)]
-        c_minus = -ro_ia * beta
+        c_minus = (p.get("r_f", 0.0) - ro_ia) * beta
         if "r_f" in p:
-            r_p = p["r_f"] * p["r_g"] / (p["r_f"] + p["r_g"])
-            c_minus = c_minus + r_p
-            for name, c in (("r_f", -beta - ro_ia * g_fb), ("r_g", 1.0 - beta - ro_ia * g_fb)):
+            for name, c in (("r_f", -beta - ro_ia * g_fb), ("r_g", (p["r_f"] - ro_ia) * beta / p["r_g"])):
                 out.append(NoiseSource(f"{name} thermal", thermal_v(p[name], temp_k), in_v=c, in_i=c * y_in))
         out.append(NoiseSource("in−", i_psd, in_v=c_minus, in_i=c_minus * y_in))
         return out
@@ -116,16 +127,18 @@ class OpampFollower(_OpAmp):
     kind, title, follower_type = "opamp_follower", "op-amp voltage follower", True
     FIELDS = dict(COMMON)
 
-    def _feedback(self, p):
-        return 1.0, 0.0
+    def _feedback(self, p, s):
+        return 1.0, y_input(p, s) + 0.0 * s
 
 
 class OpampNoninverting(_OpAmp):
     kind, title = "opamp_noninverting", "op-amp non-inverting amplifier, gain 1 + RF/RG"
     FIELDS = {**COMMON, **FEEDBACK}
 
-    def _feedback(self, p):
-        return p["r_g"] / (p["r_f"] + p["r_g"]), 1.0 / (p["r_f"] + p["r_g"])
+    def _feedback(self, p, s):
+        y = 1.0 / p["r_g"] + y_input(p, s)
+        beta = 1.0 / (1.0 + p["r_f"] * y)
+        return beta, y * beta
 
 
 class OpampInverting(_OpAmp):
@@ -134,33 +147,41 @@ class OpampInverting(_OpAmp):
               "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, positive=True)}
 
     def abcd(self, p, s, op):
-        """Nodal analysis with the inverting input at Vm, A(s) and Ro:
+        """Nodal analysis with the inverting input at Vm, A(s), Ro and the − input's
+        shunt Ym = 1/r_in + s·c_in (the + input sits on ref, so its shunt does nothing):
         k = 1/(A − Ro/RF); Vm = −k(1 + Ro/RF)·V2 − k·Ro·I2;
-        V1 = (1 + RG/RF)·Vm − (RG/RF)·V2;  I1 = (Vm − V2)/RF."""
+        V1 = (1 + RG/RF + RG·Ym)·Vm − (RG/RF)·V2;  I1 = (Vm − V2)/RF + Ym·Vm.
+        Ym raises the noise gain to 1 + RF·(1/RG + Ym): with c_in that is the
+        classic zero in the noise gain that eats the phase margin (Franco, *Design
+        with Operational Amplifiers*, stability chapter, from memory)."""
         ia = inv_open_loop(p, s)
         rf, rg, ro = p["r_f"], p["r_g"], p["r_out"]
+        ym = y_input(p, s)
         k = ia / (1.0 - ro / rf * ia)
         vm_v2 = -k * (1.0 + ro / rf)
         vm_i2 = -k * ro
-        return ABCD((1.0 + rg / rf) * vm_v2 - rg / rf, (1.0 + rg / rf) * vm_i2,
-                    (vm_v2 - 1.0) / rf, vm_i2 / rf)
+        m = 1.0 + rg / rf + rg * ym
+        return ABCD(m * vm_v2 - rg / rf, m * vm_i2, (vm_v2 - 1.0) / rf + ym * vm_v2, vm_i2 / rf + ym * vm_i2)
 
     def noise(self, p, s, op, temp_k):
         """en, in−, RF and RG thermal noise; the + input sits at ref (a stiff
         source), so in+ does nothing.  Nodal analysis of the macro model with
         the generators in place (k and Vm as in abcd, kA = 1/(1 − Ro·ia/RF)):
-        Vm gains kA·en + k·(Ro/RF)·v_RF; then e_n = (1 + RG/RF)·Vm_n + (RG/RF)·v_RF
-        − RG·in− − v_RG and i_n = Vm_n/RF + v_RF/RF − in−.  For A → ∞ this is the
-        noise gain 1 + RF/(RG + Rsource) on en (Franco, noise chapter, from memory)."""
+        Vm gains kA·en + k·(Ro/RF)·v_RF; then with M = 1 + RG/RF + RG·Ym,
+        e_n = M·Vm_n + (RG/RF)·v_RF − RG·in− − v_RG and i_n = (1/RF + Ym)·Vm_n + v_RF/RF − in−
+        (checked symbolically).  For A → ∞ this is the noise gain
+        1 + RF·(1/(RG + Rsource) + Ym) on en (Franco, noise chapter, from memory)."""
         rf, rg, ro = p["r_f"], p["r_g"], p["r_out"]
         ia = inv_open_loop(p, s)
+        ym = y_input(p, s)
+        m = 1.0 + rg / rf + rg * ym
         ka = 1.0 / (1.0 - ro / rf * ia)
         k_vf = ka * ia * ro / rf
         i_psd = density(p["in"], s, p["in_corner"])
-        return [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=(1.0 + rg / rf) * ka, in_i=ka / rf),
+        return [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=m * ka, in_i=ka * (1.0 / rf + ym)),
                 NoiseSource("in−", i_psd, in_v=-rg, in_i=-1.0),
-                NoiseSource("r_f thermal", thermal_v(rf, temp_k), in_v=(1.0 + rg / rf) * k_vf + rg / rf,
-                            in_i=(k_vf + 1.0) / rf),
+                NoiseSource("r_f thermal", thermal_v(rf, temp_k), in_v=m * k_vf + rg / rf,
+                            in_i=(k_vf + 1.0) / rf + ym * k_vf),
                 NoiseSource("r_g thermal", thermal_v(rg, temp_k), in_v=-1.0)]
 
     def dc_input_load(self, p, out_load, op):
