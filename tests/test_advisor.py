@@ -160,7 +160,7 @@ def test_verdict_needed_when_a_follower_wins_back_a_heavy_loss(tmp_path):
     chain = make(tmp_path)          # 100 kΩ source into a 10 kΩ converter input: about 21 dB lost
     a = advise(chain)
     (row,) = a.interfaces
-    assert row.loss_now_db < -THRESHOLDS["needed_loss_db"]
+    assert row.loss_now_db > THRESHOLDS["needed_loss_db"]      # dB lost
     assert row.verdict == "needed" and row.best is not None
     best = next(e for e in row.candidates if e.candidate == row.best)
     assert best.net_gain_db >= THRESHOLDS["needed_net_db"] and best.usable
@@ -196,8 +196,8 @@ def test_verdict_not_worth_it_without_loading(tmp_path):
     chain = make(tmp_path, r="10")        # 10 Ω source: nothing to win back
     (row,) = advise(chain).interfaces
     assert row.verdict == "not worth it" and row.best is None
-    # 10 Ω into 10 kΩ: 20·log10(10k/10.01k) = −0.0087 dB (divider rule)
-    assert row.loss_now_db == pytest.approx(20 * math.log10(10e3 / 10.01e3), abs=1e-4)
+    # 10 Ω into 10 kΩ: −20·log10(10k/10.01k) = 0.0087 dB lost (divider rule)
+    assert row.loss_now_db == pytest.approx(-20 * math.log10(10e3 / 10.01e3), abs=1e-4)
     assert row.reason.startswith("loses only 0.01 dB now")
 
 

@@ -123,9 +123,9 @@ def test_fan_out_node_is_thevenin_into_parallel_branches():
     # each branch sees the source loaded by its siblings
     a, b = ev.ac.branch_row["div"]
     np.testing.assert_allclose((b / a)[0], par(zth, z_lp, z_cab), rtol=1e-12)
-    # and its loading loss is 20·log10|Zin/(Zin + Zth')| with that Thevenin impedance
+    # and its loading loss is −20·log10|Zin/(Zin + Zth')| dB lost with that Thevenin impedance
     zs = par(zth, z_lp, z_cab)
-    np.testing.assert_allclose(ev.interface_loss_db("div")[0], 20 * np.log10(np.abs(z_div / (z_div + zs))),
+    np.testing.assert_allclose(ev.interface_loss_db("div")[0], -20 * np.log10(np.abs(z_div / (z_div + zs))),
                                atol=1e-12)
 
 

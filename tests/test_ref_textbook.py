@@ -158,11 +158,11 @@ def test_divider_loading():
     assert stage(b, "div").zin_ohm == pytest.approx(rt + par(rb, rl), rel=1e-12)
     zth = par(rs + rt, rb)                                    # Thevenin of source + divider: 5 kΩ
     assert stage(b, "div").zout_ohm == pytest.approx(zth, rel=1e-12)
-    # loading loss 20·log10(ZL/(ZL + Zth)) at each interface
-    assert iface(b, "rl").loss_db == pytest.approx(20 * math.log10(rl / (rl + zth)), abs=1e-12)
+    # loading loss −20·log10(ZL/(ZL + Zth)) dB lost at each interface (positive = lost)
+    assert iface(b, "rl").loss_db == pytest.approx(-20 * math.log10(rl / (rl + zth)), abs=1e-12)
     zin = rt + par(rb, rl)
-    assert iface(b, "div").loss_db == pytest.approx(20 * math.log10(zin / (zin + rs)), abs=1e-12)
-    assert iface(b, "rl").loss_db == pytest.approx(-3.5218, abs=1e-4)   # 20·log10(2/3)
+    assert iface(b, "div").loss_db == pytest.approx(-20 * math.log10(zin / (zin + rs)), abs=1e-12)
+    assert iface(b, "rl").loss_db == pytest.approx(3.5218, abs=1e-4)   # −20·log10(2/3)
 
 
 RC_SPEC = """

@@ -11,6 +11,7 @@ pytest.importorskip("matplotlib")
 
 from chainplan.api import budget_for                                    # noqa: E402
 from chainplan.render.console import db, eng                           # noqa: E402
+from chainplan.spec.numbers import loss                                  # noqa: E402
 from chainplan.render.report import report_html                        # noqa: E402
 from chainplan.render.tables import safety_notice                      # noqa: E402
 from chainplan.spec.loader import load_chain                                   # noqa: E402
@@ -99,7 +100,7 @@ def test_report_tables_hold_the_budget(ecg_report):
         assert rows[n.name][1:3] == [eng(n.dc_v, "V"), eng(n.peak_v, "V")]
         assert rows[n.name][-1] == ("CLIPS" if n.clips else "tightest" if n is b.tightest_node else "")
     for r in b.interfaces:
-        assert db(r.loss_db, 3) in cells
+        assert loss(r.loss_db) in cells
     assert db(b.gain_db) in cells
     for name in ("baseline wander kept", "QRS detail kept"):
         assert name in cells

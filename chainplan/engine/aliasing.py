@@ -23,6 +23,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .cascade import run_ac
+from ..spec.numbers import figure
 from ..spec.units import fmt
 
 
@@ -79,8 +80,10 @@ def attach_to_budget(b) -> None:
         return
     names = ("f_sample/2", "f_sample − band top")
     for i, f in enumerate(chk.f_hz):
+        rej = float(chk.rejection_db[0, i])
         b.extra_summary.append((f"anti-alias rejection at {names[i]} ({fmt(f, 'Hz')})",
-                                f"{float(chk.rejection_db[0, i]):.1f} dB".replace("-", "−")))
+                                figure(rej, "dB", signed=False, decimals=1)
+                                + (" (louder there than at f_ref: no rejection)" if rej < -0.05 else "")))
     b.extra_summary.extend(("alias warning", w) for w in chk.warnings)
     b.extra_json["alias"] = {
         "adc": chk.adc, "f_sample_hz": chk.f_sample_hz, "rejection_db": float(chk.value_db[0]),

@@ -83,15 +83,16 @@ class Evaluation:
         return np.minimum(np.ravel(hi) - (dc + pk), (dc - pk) - np.ravel(lo))
 
     def interface_loss_db(self, stage: str, col=slice(None)):
-        """Loading loss where ``stage`` reads its node: 20·log10|1/(1 + Zth·Yin)| (S, F+1),
-        the voltage divider of the Thevenin source and the load; where a stage reads a
-        current sensor it is the current divider 20·log10|Yin/(Ys + Yin)| — the share of
-        the sensor's current that enters the stage (Norton's theorem).  ``col`` picks
+        """Loading loss where ``stage`` reads its node, in dB lost (positive = lost, the
+        convention of docs/json.md): −20·log10|1/(1 + Zth·Yin)| (S, F+1), the voltage
+        divider of the Thevenin source and the load; where a stage reads a current
+        sensor it is the current divider −20·log10|Yin/(Ys + Yin)| — the share of the
+        sensor's current that enters the stage (Norton's theorem).  ``col`` picks
         frequency columns (``col=0``: the reference frequency, (S,))."""
         a, b = (np.asarray(x)[:, col] for x in self.ac.branch_row[stage])
         y = np.asarray(self.ac.y_in[stage])[:, col]
         num = b * y if self.signal_unit == "A" and self.chain.stage(stage).parent == self.chain.source.name else a
-        return 20 * np.log10(np.abs(num / (a + b * y)))
+        return -20 * np.log10(np.abs(num / (a + b * y)))
 
     def band_edges(self, node: str | None = None):
         """−3 dB edges around the reference frequency, per sample (nan where the
@@ -158,7 +159,7 @@ class InterfaceRow:
     to: str
     z_source_ohm: float
     z_load_ohm: float
-    loss_db: float
+    loss_db: float          # dB lost (positive = lost)
 
 
 @dataclass
@@ -196,7 +197,7 @@ class Budget:
 
     @property
     def worst_interface(self) -> InterfaceRow | None:
-        return min(self.interfaces, key=lambda r: r.loss_db, default=None)
+        return max(self.interfaces, key=lambda r: r.loss_db, default=None)
 
     @property
     def tightest_node(self) -> NodeRow | None:

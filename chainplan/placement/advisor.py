@@ -6,8 +6,8 @@ Every figure is a difference of two full analyses (``chainplan.engine.budget.eva
 of the chain as it is and of a copy with the buffer inserted by
 ``chainplan.spec.insert``), at the reference frequency unless said otherwise:
 
-* ``loss_now_db``: the interface's loading loss, 20·log10|1/(1 + Zth·Yin)|;
-* ``recovered_db``: (loss X→buffer + loss buffer→Y) − loss X→Y: the loading
+* ``loss_now_db``: the interface's loading loss in dB lost, −20·log10|1/(1 + Zth·Yin)|;
+* ``recovered_db``: loss X→Y − (loss X→buffer + loss buffer→Y): the loading
   loss the buffer gives back (positive = recovered); for a candidate with its
   own input bias network the loss X→network and network→buffer are both in
   the first term;
@@ -220,7 +220,7 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
             return out
         fig = _figures(ev, with_noise)
         out.loss_after_db = sum(_loss_db(ev, n) for n in (bias, buf, reader) if n is not None)
-        out.recovered_db = out.loss_after_db - _loss_db(base.ev, reader)
+        out.recovered_db = _loss_db(base.ev, reader) - out.loss_after_db
         open_gain = abs((1.0 / ev.ac.row[buf][0][0, 0]) / ev.ac.node_h[x][0, 0])
     out.buffer_gain_db = 20 * math.log10(open_gain) if open_gain > 0 else None
     out.dc_shift_v = float(np.ravel(ev.dc.node_v[buf])[0] - np.ravel(ev.dc.node_v[x])[0])
@@ -309,7 +309,7 @@ def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str,
           node_dc_v: float | None = None) -> tuple[str, str, str | None]:
     """The verdict for one interface, its reason in words, and the recommended candidate."""
     t = THRESHOLDS
-    lost = max(0.0, -loss_now_db)
+    lost = max(0.0, loss_now_db)
     usable = sorted((e for e in effects if e.usable), key=lambda e: _cost_key(e, basis))
     if not effects:
         return "not worth it", "no candidate buffers to try", None

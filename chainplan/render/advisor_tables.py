@@ -9,6 +9,7 @@ import math
 
 from ..placement.advisor import Advice, CandidateEffect
 from ..placement.optimiser import Measured, Plan, Shortfall, target_text
+from ..spec.numbers import loss
 from ..spec.units import fmt
 from .console import db, eng, table_box
 from .json_out import clean
@@ -33,7 +34,7 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
     for col in ("from", "to", "Z source", "Z load", "loss now", "verdict", "pick"):
         t.add_column(col, justify="right" if col in ("Z source", "Z load", "loss now") else "left")
     for i in a.interfaces:
-        t.add_row(i.source, i.reader, eng(i.z_source_ohm, "Ω"), eng(i.z_load_ohm, "Ω"), db(i.loss_now_db, 2),
+        t.add_row(i.source, i.reader, eng(i.z_source_ohm, "Ω"), eng(i.z_load_ohm, "Ω"), loss(i.loss_now_db, 2),
                   i.verdict, i.best or "—", style=VERDICT_STYLE[i.verdict])
     console.print(t)
     for i in a.interfaces:
@@ -47,7 +48,7 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
     for i in a.interfaces:
         if only is not None and i.reader != only:
             continue
-        t = Table(title=f"{i.source} → {i.reader} (loading loss {db(i.loss_now_db, 2)}): each candidate inserted",
+        t = Table(title=f"{i.source} → {i.reader} (loading loss {loss(i.loss_now_db, 2)}): each candidate inserted",
                   box=_compact_box(), title_justify="left", show_edge=False, pad_edge=False,
                   padding=(0, 1, 0, 0))
         cols = ["candidate", "back", "own", "DC shift", "room Δ", "node", "f high",

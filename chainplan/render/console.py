@@ -4,9 +4,7 @@ from __future__ import annotations
 import os
 import sys
 
-import math
-
-from ..spec.units import fmt
+from ..spec.numbers import figure
 
 
 def make_console(file=None):
@@ -26,17 +24,13 @@ def table_box(console):
 
 
 def db(x, digits: int = 2) -> str:
-    """Decibels with a fixed number of decimals and a true minus sign."""
-    if x is None or (isinstance(x, float) and math.isnan(x)):
-        return "—"
-    if math.isinf(x):
-        return ("−" if x < 0 else "+") + "∞ dB"
-    s = f"{x:+.{digits}f}"
-    return s.replace("-", "−") + " dB"
+    """Signed decibels with a fixed number of decimals (no negative zero)."""
+    return figure(x, "dB", decimals=digits)
 
 
 def eng(x, unit: str, digits: int = 3) -> str:
-    return "—" if x is None else fmt(x, unit, digits)
+    """One value in engineering notation (the one formatter: chainplan.spec.numbers)."""
+    return figure(x, unit, digits=digits)
 
 
 def stage_gain(s) -> tuple[str, str]:
@@ -45,7 +39,7 @@ def stage_gain(s) -> tuple[str, str]:
         return "—", db(s.gain_db)
     if s.gain_unit == "Ω":
         return eng(s.gain, "Ω"), db(s.gain_db) + "Ω"
-    return f"{s.gain:.5g}", db(s.gain_db)
+    return figure(s.gain, "V/V"), db(s.gain_db)
 
 
 def end_gain(b, f_ref: str) -> tuple[str, str]:

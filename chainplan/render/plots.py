@@ -25,6 +25,7 @@ import textwrap
 import numpy as np
 
 from ..engine.budget import Budget
+from ..spec.numbers import loss as loss_text
 from ..spec.units import fmt
 from ..spec.safety import safety_notice
 
@@ -32,7 +33,7 @@ ROOM, ROOM_EDGE, LIMIT = "#dcefdc", "#8cc48c", "#2e7d32"
 BAND, TIGHT, CLIP = "#2f6db5", "#e69500", "#c62828"
 QUIET = "#7a7a7a"
 #: loading losses at or below these (dB) are coloured amber and red
-LOSS_AMBER_DB, LOSS_RED_DB = -0.1, -1.0
+LOSS_AMBER_DB, LOSS_RED_DB = 0.1, 1.0      # dB lost
 
 
 def _figure(w, h):
@@ -206,14 +207,14 @@ def _interface_strip(ax, b, x_of, ncols):
         x0, x1 = x_of[r.source], x_of[r.to]
         y = -lane
         loss = r.loss_db
-        colour = CLIP if loss <= LOSS_RED_DB else TIGHT if loss <= LOSS_AMBER_DB else QUIET
+        colour = CLIP if loss >= LOSS_RED_DB else TIGHT if loss >= LOSS_AMBER_DB else QUIET
         ax.annotate("", xy=(x1 - 0.22, y), xytext=(x0 + 0.22, y),
                     arrowprops=dict(arrowstyle="-|>", color=colour, lw=1.3, shrinkA=0, shrinkB=0))
-        text = _db(loss, 2) if abs(loss) >= 0.005 else "0.00 dB"
-        if r is worst and loss <= LOSS_AMBER_DB:
+        text = loss_text(loss, 2)
+        if r is worst and loss >= LOSS_AMBER_DB:
             text += "  worst"
         ax.text((x0 + x1) / 2, y + 0.12, text, fontsize=8, color=colour, ha="center", va="bottom",
-                weight="bold" if r is worst and loss <= LOSS_AMBER_DB else "normal", gid=f"loss:{r.source}>{r.to}")
+                weight="bold" if r is worst and loss >= LOSS_AMBER_DB else "normal", gid=f"loss:{r.source}>{r.to}")
     depth = max(lanes.values(), default=1)
     ax.set_ylim(-depth + 0.4, 0.75)
     ax.set_xlim(-0.6, ncols - 0.4)

@@ -21,6 +21,7 @@ import math
 
 from ..version import __version__
 from ..engine.budget import Budget
+from ..spec.numbers import loss
 from .console import db, end_gain, eng, stage_gain
 from ..spec.safety import safety_notice
 from .tables import _lim, _set_by
@@ -110,9 +111,9 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
     worst = b.worst_interface
     out.append("<h2>Interfaces (loading)</h2>")
     out.append(_table(["from", "to", "Z source", "Z load", "loading loss", ""],
-                      [(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), db(r.loss_db, 3),
-                        "worst" if r is worst and r.loss_db < -0.005 else "") for r in b.interfaces], left=2,
-                      classes=["worst" if r is worst and r.loss_db < -0.005 else "" for r in b.interfaces]))
+                      [(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), loss(r.loss_db),
+                        "worst" if r is worst and r.loss_db > 0.005 else "") for r in b.interfaces], left=2,
+                      classes=["worst" if r is worst and r.loss_db > 0.005 else "" for r in b.interfaces]))
 
     tight = b.tightest_node
     out.append(f"<h2>Nodes (DC, signal peak at {_e(f_ref)}, limits, headroom)</h2>")
@@ -149,7 +150,7 @@ def _summary_rows(b: Budget) -> list[tuple]:
                            f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")]
     worst, tight = b.worst_interface, b.tightest_node
     if worst is not None:
-        rows.append(("worst interface", f"{worst.source} → {worst.to}: {db(worst.loss_db, 3)}"))
+        rows.append(("worst interface", f"{worst.source} → {worst.to}: {loss(worst.loss_db)} lost"))
     if tight is not None:
         rows.append(("tightest node", f"{tight.name}: {eng(tight.headroom_v, 'V')} headroom"))
     if b.signal_dbfs is not None:

@@ -8,6 +8,7 @@ import math
 
 from ..engine.budget import Budget
 from ..spec.safety import safety_notice
+from ..spec.numbers import loss
 from .console import db, end_gain, eng, stage_gain, table_box
 
 def chain_heading(chain, console) -> None:
@@ -40,9 +41,9 @@ def budget_tables(b: Budget, console) -> None:
     for col in ("from", "to", "Z source", "Z load", "loading loss", ""):
         t.add_column(col, justify="left" if col in ("from", "to", "") else "right")
     for r in b.interfaces:
-        mark = "worst" if r is worst and r.loss_db < -0.005 else ""
+        mark = "worst" if r is worst and r.loss_db > 0.005 else ""
         style = "bold yellow" if mark else None
-        t.add_row(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), db(r.loss_db, 3), mark,
+        t.add_row(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), loss(r.loss_db), mark,
                   style=style)
     t.caption = ("each row: the loss recovered if that stage's input were an open circuit; rows along one "
                  "passive network overlap and do not add")
@@ -70,8 +71,8 @@ def budget_tables(b: Budget, console) -> None:
     if b.peak_gain_db is not None and b.peak_gain_db - b.gain_db > 1.0:
         t.add_row("note", f"f_ref is on a slope: the gain peaks {b.peak_gain_db - b.gain_db:.1f} dB higher "
                           f"at {eng(b.f_peak_hz, 'Hz')}")
-    if worst is not None and worst.loss_db < -0.005:
-        t.add_row("worst interface", f"{worst.source} → {worst.to}: {db(worst.loss_db, 3)}")
+    if worst is not None and worst.loss_db > 0.005:
+        t.add_row("worst interface", f"{worst.source} → {worst.to}: {loss(worst.loss_db)} lost")
     elif worst is not None:
         t.add_row("worst interface", "none loses more than 0.005 dB")
     if tight is not None:

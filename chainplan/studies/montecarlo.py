@@ -121,7 +121,7 @@ def metrics(ev) -> dict:
 
 #: metric key (before the '.') -> (words, unit symbol, better direction: +1 higher, −1 lower, 0 neither)
 METRICS = {"gain_db": ("gain at f_ref", "dB", 0), "f_low_hz": ("lower −3 dB edge", "Hz", 0),
-           "f_high_hz": ("upper −3 dB edge", "Hz", 0), "loading_loss_db": ("loading loss", "dB", +1),
+           "f_high_hz": ("upper −3 dB edge", "Hz", 0), "loading_loss_db": ("loading loss", "dB", -1),
            "headroom_v": ("headroom", "V", +1), "power_w": ("supply power", "W", -1),
            "buffer_power_w": ("buffer power", "W", -1), "noise_out_vrms": ("output noise", "V", -1),
            "noise_in_vrms": ("input-referred noise", "V", -1), "snr_db": ("SNR", "dB", +1),
@@ -129,7 +129,7 @@ METRICS = {"gain_db": ("gain at f_ref", "dB", 0), "f_low_hz": ("lower −3 dB ed
 
 
 def metric_info(chain: Chain, key: str) -> tuple[str, str, int]:
-    """(label, unit, better direction) of a metric key, e.g. ('loading loss element → lead', 'dB', +1)."""
+    """(label, unit, better direction) of a metric key, e.g. ('loading loss element → lead', 'dB', -1)."""
     base, _, target = key.partition(".")
     text, unit, better = METRICS[base]
     if base == "loading_loss_db":

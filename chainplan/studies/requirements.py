@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SpecError, nearest
+from ..spec.numbers import figure
 from ..spec.units import UnitError, fmt, parse_value
 from ..spec.yamlsrc import LDict, LList
 
@@ -105,13 +106,7 @@ class ReqResult:
 
 def show(x, unit: str) -> str:
     """A requirement value in its unit: dB with two decimals, bits with two, others in engineering notation."""
-    if x is None or (isinstance(x, float) and math.isnan(x)):
-        return "—"
-    if unit == "dB":
-        return ("−∞" if x < 0 else "+∞") + " dB" if math.isinf(x) else f"{round(x, 2) + 0.0:.2f} dB".replace("-", "−")
-    if unit == "bits":
-        return f"{round(x, 2) + 0.0:.2f} bits".replace("-", "−")
-    return fmt(x, unit)
+    return figure(x, unit, signed=False)
 
 
 # -- parsing -------------------------------------------------------------------
@@ -310,7 +305,7 @@ def _headroom(v: _Views, r):
 def _loading(v: _Views, r):
     ev, j = v.at(r.at_hz)
     names = list(r.targets or [s.name for s in ev.chain.stages])
-    rows = np.stack([per_sample(-ev.interface_loss_db(n, j), v.n) for n in names])
+    rows = np.stack([per_sample(ev.interface_loss_db(n, j), v.n) for n in names])
     return _worst(rows, [f"{ev.chain.stage(n).parent} → {n}" for n in names], np.argmax)
 
 
