@@ -56,7 +56,8 @@ def _settled(new, old) -> bool:
 def _backward(chain, params, ops):
     """Input DC load of every stage and total DC load at every node."""
     stage_in: dict[str, DcLoad] = {}
-    node_load: dict[str, DcLoad] = {n: DcLoad(0.0, 0.0) for n in chain.nodes}
+    # a leakage current into a node (board, capacitor) that an error analysis switches on: I0 of the node
+    node_load: dict[str, DcLoad] = {n: DcLoad(0.0, params[n].get("_leak_a", 0.0)) for n in chain.nodes}
     for st in reversed(chain.stages):
         out = node_load.get(st.name, DcLoad(0.0, 0.0))
         ld = st.model.dc_input_load(params[st.name], out, ops.get(st.name))

@@ -41,6 +41,12 @@ Unit-specific decisions:
 * Kelvin (``'K'``): ``"300 K"``; ``"27 °C"``, ``"27 degC"`` and ``"27 ℃"`` are
   converted to kelvin (300.15).  In a tolerance width a Celsius amount is a
   temperature *difference* (``"27 °C ±5 °C"`` -> width 5 K).
+* ``'dK'`` is a temperature difference (a doubling interval, a range width):
+  ``"10 K"`` and ``"10 °C"`` are both 10 K; no prefixes.
+* ``'V/K'`` is a drift, ``"5 µV/K"`` or ``"5 µV/°C"`` (the same per kelvin
+  and per degree Celsius).
+* ``'ppm/K'`` returns a fraction per kelvin like ``'ppm'`` (``"25 ppm/K"`` ->
+  2.5e-5 per K; ``"25 ppm/°C"`` is the same).
 * ``'sqrtV'`` and ``'1/V'``: an SI prefix may be used on a bare number
   (``"20m"``) but not together with the unit symbol, because ``"mV⁻¹"`` would
   conventionally mean (mV)⁻¹ = 1000 V⁻¹.  For the other compound units the
@@ -112,6 +118,7 @@ PREFIXES: dict[str, int] = {
 _CENTI = ("c", -2)      # metres only
 
 _OHM = ("\u03a9", "\u2126")   # Greek capital omega, ohm sign
+_CELSIUS_SYMBOLS = ("°C", "degC", "\u2103")
 
 UNITS: dict[str, Unit] = {u.id: u for u in (
     Unit("ohm", "\u03a9", "resistance", "4.7 kΩ", "ohms",
@@ -137,6 +144,12 @@ UNITS: dict[str, Unit] = {u.id: u for u in (
     Unit("ohm/m", "Ω/m", "resistance per length", "50 mΩ/m", "ohms per metre",
          tuple(o + "/m" for o in _OHM) + ("ohm/m", "ohms/m")),
     Unit("K", "K", "temperature", "300 K", "kelvin", ("K",)),
+    Unit("dK", "K", "temperature difference ('10 °C' is 10 K)", "10 K", "kelvin",
+         ("K",) + _CELSIUS_SYMBOLS, "none", allow_inf=True),
+    Unit("V/K", "V/K", "voltage temperature coefficient", "5 µV/K", "volts per kelvin",
+         ("V/K", "V/°C", "V/degC", "V/\u2103")),
+    Unit("ppm/K", "ppm/K", "relative temperature coefficient", "25 ppm/K", "ppm per kelvin",
+         ("ppm/K", "ppm/°C", "ppm/degC", "ppm/\u2103"), "none"),
     Unit("A/V2", "A/V²", "transconductance parameter", "200 µA/V²",
          "amperes per volt squared", ("A/V²", "A/V^2", "A/V2")),
     Unit("sqrtV", "√V", "body-effect coefficient", "0.4 √V", "root volts",
@@ -155,9 +168,9 @@ _MORE_EXAMPLES = {
     "1/V": ("20m",),
 }
 
-_CELSIUS = ("°C", "degC", "\u2103")
+_CELSIUS = _CELSIUS_SYMBOLS
 _ZERO_CELSIUS_CENTI = 27315    # 0 °C = 273.15 K exactly, in hundredths of a kelvin
-_SCALE = {"%": -2, "ppm": -6}   # power of ten applied when the symbol is given
+_SCALE = {"%": -2, "ppm": -6, "ppm/K": -6}   # power of ten applied when the symbol is given
 
 # every accepted symbol -> plural name, to recognise "a unit of another quantity"
 _FOREIGN: dict[str, str] = {a: u.name for u in UNITS.values() for a in u.aliases}
@@ -487,7 +500,7 @@ def _parse_width(text: str, t: str, unit: Unit, dist: str) -> Tolerance:
 
 _FMT_PREFIX = {-15: "f", -12: "p", -9: "n", -6: "\u00b5", -3: "m", 0: "",
                3: "k", 6: "M", 9: "G", 12: "T"}
-_FMT_NO_PREFIX = {"%": 2, "ppm": 6, "dB": 0, "°": 0, "deg": 0}   # symbol -> scale 10**n
+_FMT_NO_PREFIX = {"%": 2, "ppm": 6, "ppm/K": 6, "dB": 0, "°": 0, "deg": 0}   # symbol -> scale 10**n
 _FMT_NO_SPACE = ("°",)
 
 

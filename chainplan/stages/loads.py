@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 
 from .base import DcLoad, Field, Op, StageKind, inv
+from .dc_sources import limit
 from .noise_sources import NoiseSource, thermal_i
 
 
@@ -45,6 +46,15 @@ class Adc(_Load):
                            "(data sheet: transition noise, input-referred noise)", default="0 V", minimum=0.0),
         "f_sample": Field("Hz", "sample rate (output word rate); given, converter noise spreads over 0…f_sample/2 "
                           "and the anti-alias rejection is checked", positive=True, tolerable=False),
+        "offset": limit("V", "offset error referred to the input, a limit at 25 °C"),
+        "offset_drift": limit("V/K", "drift of the offset error"),
+        "gain_error": limit("%", "gain error (full-scale error with an ideal reference), a limit at 25 °C"),
+        "inl": limit("1", "integral non-linearity in LSB, a limit (no calibration removes it)"),
+        "ref_tolerance": limit("%", "initial accuracy of the reference that sets the full scale"),
+        "ref_drift": limit("ppm/K", "temperature coefficient of the reference"),
+        "i_supply": Field("A", "quiescent supply current of the converter and its reference", default="0 A",
+                          minimum=0.0, tolerable=False),
+        "supply": Field("V", "rail that feeds the converter's supply current", rail_ok=True),
     }
 
     def op(self, p):

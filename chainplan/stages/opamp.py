@@ -15,7 +15,23 @@ from __future__ import annotations
 import numpy as np
 
 from .base import ABCD, DcLoad, Field, Op, StageKind, chain, dc_source, inv, shunt_y
+from .dc_sources import doubled, doubling_field, drifted, err, limit
 from .noise_sources import NoiseSource, density, input_noise_fields, thermal_i, thermal_v
+
+#: DC error sources of an op-amp (data-sheet limits; see stages/dc_sources.py and docs/accuracy.md)
+DC_ERRORS = {
+    "vos": limit("V", "input offset voltage, data-sheet limit at 25 °C (the error budget carries ±vos)"),
+    "vos_drift": limit("V/K", "input offset voltage drift, data-sheet limit"),
+    "ib": limit("A", "input bias current at each input, data-sheet limit at 25 °C (both inputs alike)"),
+    "ios": limit("A", "input offset current (the difference of the two bias currents), limit at 25 °C"),
+    **doubling_field("bias"),
+    "cmrr": Field("dB", "common-mode rejection at DC (absent: ideal); the error is (Vcm − mid-supply)/CMRR",
+                  positive=True, tolerable=False),
+    "psrr": Field("dB", "supply rejection at DC (absent: ideal); rail ripple reaches the input divided by it",
+                  positive=True, tolerable=False),
+    "psrr_corner": Field("Hz", "frequency above which the supply rejection falls 20 dB/decade",
+                         default="inf", positive=True, allow_inf=True, tolerable=False),
+}
 
 COMMON = {
     "gbw": Field("Hz", "gain–bandwidth product", required=True, positive=True),
@@ -35,6 +51,7 @@ COMMON = {
                     default="0 V"),
     "i_supply": Field("A", "quiescent supply current", default="0 A", minimum=0.0),
     **input_noise_fields(),
+    **DC_ERRORS,
 }
 FEEDBACK = {
     "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, minimum=0.0),
@@ -64,6 +81,17 @@ class _OpAmp(StageKind):
     def _power(self, p):
         return p["i_supply"] * (p["v_pos"] - p["v_neg"])
 
+    def dc_errors(self, p, v_plus):
+        """(offset at the + input, bias current into the + pin, into the − pin) of the
+        error sources switched on, at the stage temperature.  Input offset: vos with its
+        drift, plus the common-mode error (V+ − mid-supply)/CMRR — data sheets state vos at
+        mid-supply (common practice; the differential-chains issue widens this seam).  Bias
+        currents: I± = ib ± ios/2 (Franco, *Design with Operational Amplifiers*, static
+        limitations, from memory), each doubling per ib_doubling."""
+        vos = drifted(p, "vos", "vos_drift") + err(p, "cmrr") * (v_plus - 0.5 * (p["v_pos"] + p["v_neg"]))
+        ib, half_ios = doubled(p, "ib", p["ib_doubling"]), 0.5 * doubled(p, "ios", p["ib_doubling"])
+        return vos, ib + half_ios, ib - half_ios
+
     def _feedback(self, p, s):
         """(β, gfb) of the feedback network as the output sees it: Vm = β·Vout and the
         network draws gfb·Vout from the output.  With y = 1/RG + Ym at the − node
@@ -81,8 +109,10 @@ class _OpAmp(StageKind):
         return chain(shunt_y(y_in), core) if np.any(y_in != 0) else core   # an ideal input adds nothing
 
     def dc_input_load(self, p, out_load, op):
+        """r_in to the common-mode reference, and the + pin's bias current (drawn from the node)."""
         g = inv(p["r_in"])
-        return DcLoad(g, p["_cm_ref"] * g) if "_cm_ref" in p else DcLoad(g, 0.0)
+        i_plus = self.dc_errors(p, 0.0)[1] if "_err" in p else 0.0
+        return DcLoad(g, (p["_cm_ref"] * g if "_cm_ref" in p else 0.0) - i_plus)
 
     def noise(self, p, s, op, temp_k):
         """en at the + input, in+ into it, in− into the − node, and the thermal noise
@@ -108,9 +138,13 @@ class _OpAmp(StageKind):
         return out
 
     def dc_forward(self, p, st_in, v_in, out_load):
+        """Vout = ref + (V+ + vos + Rp·I− − ref)/A_dc with the error sources of dc_errors:
+        the − pin's bias current works into Rp = RF ‖ RG (nodal analysis at the − input;
+        Franco, static limitations, from memory: Eo = (1 + RF/RG)·(Vos + Rp·I− − Rs·I+)
+        with the + pin's I+ through the source resistance Rs, which the DC solution of
+        the chain carries through dc_input_load)."""
         m = self.abcd(p, 0.0, None)
-        ref = p.get("ref", 0.0)
-        v_open = ref + (v_in - ref) / m.A
+        v_open = self._v_open(p, v_in, p.get("ref", 0.0), m)
         out, cm = self._limits(p)
         op = Op(values=dict(power_w=self._power(p)), in_range=cm, out_range=out)
         railed = (v_open < out[0]) | (v_open > out[1])
@@ -121,6 +155,13 @@ class _OpAmp(StageKind):
                     f"{float(np.min(out[0])):.3g} V … {float(np.max(out[1])):.3g} V: the op-amp saturates at DC "
                     "(check the input's DC level, the reference and the gain)")
         return dc_source(v_open, m.B / m.A), op
+
+    def _v_open(self, p, v_in, ref, m):
+        if "_err" in p:
+            vos, _, i_minus = self.dc_errors(p, v_in)
+            r_p = p["r_f"] * p["r_g"] / (p["r_f"] + p["r_g"]) if "r_f" in p else 0.0
+            v_in = v_in + vos + r_p * i_minus
+        return ref + (v_in - ref) / m.A
 
 
 class OpampFollower(_OpAmp):
@@ -184,9 +225,25 @@ class OpampInverting(_OpAmp):
                             in_i=(k_vf + 1.0) / rf + ym * k_vf),
                 NoiseSource("r_g thermal", thermal_v(rg, temp_k), in_v=-1.0)]
 
+    def _ref(self, p):
+        """The virtual ground's level: ref, moved by the input offset (V+ = ref, so the
+        common-mode error is (ref − mid-supply)/CMRR)."""
+        return p["ref"] + (self.dc_errors(p, p["ref"])[0] if "_err" in p else 0.0)
+
     def dc_input_load(self, p, out_load, op):
-        """The input resistor returns to the virtual ground held at ref."""
-        return DcLoad(1.0 / p["r_g"], p["ref"] / p["r_g"])
+        """The input resistor returns to the virtual ground held at ref (+ vos)."""
+        return DcLoad(1.0 / p["r_g"], self._ref(p) / p["r_g"])
+
+    def _v_open(self, p, v_in, ref, m):
+        """The + input sits at ref; vos moves it, and the − pin's bias current flows
+        through RF: ΔVout = RF·I−/(1 + (1 + RF/RG)/A0) (nodal analysis at the − input;
+        Franco, static limitations, from memory: Eo = RF·I− for A → ∞)."""
+        if "_err" not in p:
+            return ref + (v_in - ref) / m.A
+        ref = self._ref(p)
+        i_minus = self.dc_errors(p, p["ref"])[2]
+        a0_inv = 10.0 ** (-p["a0"] / 20.0)
+        return ref + (v_in - ref) / m.A + p["r_f"] * i_minus / (1.0 + (1.0 + p["r_f"] / p["r_g"]) * a0_inv)
 
     def dc_forward(self, p, st_in, v_in, out_load):
         st, op = super().dc_forward(p, st_in, v_in, out_load)
@@ -242,13 +299,23 @@ class OpampTransimpedance(OpampInverting):
     def dc_input_load(self, p, out_load, op):
         """The − input held near ref by the loop, solved exactly with the output load:
         with V' = V − ref, I2 = G_L·V2' + J (J = G_L·ref − I0_L), the DC two-port gives
-        I1 = Y·V1' + J·(D − Y·B), Y = (C + D·G_L)/(A + B·G_L); plus r_in to ground."""
+        I1 = Y·V1' + J·(D − Y·B), Y = (C + D·G_L)/(A + B·G_L); plus r_in to ground and
+        the − pin's bias current."""
         m = OpampTransimpedance.abcd(self, {**p, "r_in": np.inf, "c_in": 0.0}, 0.0, None)
         gl = out_load.G
-        j = gl * p["ref"] - out_load.I0
+        ref = self._ref(p)                   # ref moved by the input offset, when switched on
+        j = gl * ref - out_load.I0
         y = (m.C + m.D * gl) / (m.A + m.B * gl)
         g_in = inv(p["r_in"])
-        return DcLoad(y + g_in, y * p["ref"] - j * (m.D - y * m.B))
+        i_minus = self.dc_errors(p, p["ref"])[2] if "_err" in p else 0.0   # the − pin's bias current
+        return DcLoad(y + g_in, y * ref - j * (m.D - y * m.B) - i_minus)
+
+    def _v_open(self, p, v_in, ref, m):
+        """The − pin's bias current is drawn from the input node (dc_input_load), so the
+        output follows the node: ΔVout = RF·I− for A → ∞ (Graeme, *Photodiode Amplifiers*,
+        DC error, from memory); vos moves the virtual ground."""
+        ref = self._ref(p)
+        return ref + (v_in - ref) / m.A
 
 
 KINDS = [OpampFollower, OpampNoninverting, OpampInverting, OpampTransimpedance]

@@ -15,6 +15,15 @@ from __future__ import annotations
 import numpy as np
 
 from .base import DcState, Field, Op, StageKind, inv
+from .dc_sources import drifted, err, limit
+
+#: power drawn by a sensor (a bridge's excitation, an electrode's bias): see engine/power.py
+EXCITATION = {
+    "i_excitation": Field("A", "quiescent current the sensor draws from its excitation rail", default="0 A",
+                          minimum=0.0, tolerable=False),
+    "excitation": Field("V", "rail that feeds the sensor's excitation current", rail_ok=True),
+}
+SENSITIVITY = {"sensitivity_error": limit("%", "sensitivity (span) tolerance of the sensor, a limit at 25 °C")}
 from .noise_sources import NoiseSource, shot, thermal_i, thermal_v
 
 
@@ -26,6 +35,10 @@ class Sensor(StageKind):
         "dc": Field("V", "DC level of the open-circuit EMF", default="0 V", rail_ok=True),
         "r": Field("ohm", "source resistance", default="0 Ω", minimum=0.0, allow_inf=True),
         "c": Field("F", "capacitance across the source (sensor or lead capacitance)", default="0 F", minimum=0.0),
+        "offset": limit("V", "offset of the EMF at the zero point, a limit at 25 °C (the error budget carries ±offset)"),
+        "offset_drift": limit("V/K", "drift of the sensor's offset"),
+        **SENSITIVITY,
+        **EXCITATION,
     }
 
     def z_source(self, p, s):
@@ -38,7 +51,15 @@ class Sensor(StageKind):
         return np.ones_like(s) + 0.0 * zs, zs + 0.0 * s
 
     def dc_state(self, p) -> DcState:
-        return DcState(p["dc"], 1.0, p["r"]) if not _is_inf(p["r"]) else DcState(0.0, 0.0, 1.0)
+        """EMF dc (+ the measurand's displacement ``_dx`` an error analysis applies, scaled by
+        the sensitivity error, + the offset when switched on) behind r."""
+        return DcState(self.emf(p), 1.0, p["r"]) if not _is_inf(p["r"]) else DcState(0.0, 0.0, 1.0)
+
+    @staticmethod
+    def emf(p):
+        if "_err" not in p and "_dx" not in p:
+            return p["dc"]
+        return p["dc"] + p.get("_dx", 0.0) * (1.0 + err(p, "sensitivity_error")) + drifted(p, "offset", "offset_drift")
 
     def dc_forward(self, p, st_in, v_in, out_load):
         return self.dc_state(p), Op()
@@ -64,6 +85,8 @@ class CurrentSensor(StageKind):
         "r": Field("ohm", "shunt resistance across the current source", default="inf", positive=True,
                    allow_inf=True),
         "c": Field("F", "capacitance across the current source (junction plus lead)", default="0 F", minimum=0.0),
+        **SENSITIVITY,
+        **EXCITATION,
     }
 
     def y_source(self, p, s):
@@ -80,8 +103,10 @@ class CurrentSensor(StageKind):
         return ys, np.ones_like(ys)
 
     def dc_state(self, p) -> DcState:
-        """Norton relation in conductance form ``I = V/R + I_out``: e = I, a = 1/R, b = 1."""
-        return DcState(p["dc"], inv(p["r"]), 1.0)
+        """Norton relation in conductance form ``I = V/R + I_out``: e = I, a = 1/R, b = 1
+        (the current moved by ``_dx``, scaled by the sensitivity error, in an error analysis)."""
+        i = p["dc"] + p.get("_dx", 0.0) * (1.0 + err(p, "sensitivity_error"))
+        return DcState(i, inv(p["r"]), 1.0)
 
     def dc_forward(self, p, st_in, v_in, out_load):
         return self.dc_state(p), Op()

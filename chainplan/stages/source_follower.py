@@ -14,7 +14,8 @@ import numpy as np
 
 from ..devices import mosfet
 from .device_fields import mosfet_fields
-from .base import Field, Op, StageKind, dc_source, follower, inv
+from .base import DcLoad, Field, Op, StageKind, dc_source, follower, inv
+from .dc_sources import doubled, doubling_field, limit
 from .noise_sources import (NoiseSource, follower_low_side_noise, mosfet_channel_psd, mosfet_noise_fields,
                             sink_noise_field)
 
@@ -32,6 +33,8 @@ class SourceFollower(StageKind):
         "cgd": Field("F", "gate–drain capacitance", default="0 F", minimum=0.0),
         **mosfet_noise_fields(),
         **sink_noise_field("i_bias", "bias current sink"),
+        "i_gate": limit("A", "gate leakage current, a limit at 25 °C (protection diodes, package)"),
+        **doubling_field("gate"),
     }
     ONE_OF = (("i_bias", "r_s"),)
 
@@ -40,6 +43,10 @@ class SourceFollower(StageKind):
         if p.get("i_bias") is not None:
             return (lambda vs: p["i_bias"] + (vs - p["v_low"]) * inv(p["r_bias"])), p["r_bias"]
         return (lambda vs: (vs - p["v_low"]) / p["r_s"]), p["r_s"]
+
+    def dc_input_load(self, p, out_load, op):
+        """The gate draws only its leakage (switched on by an error analysis), doubling per gate_doubling."""
+        return DcLoad(0.0, -doubled(p, "i_gate", p["gate_doubling"])) if "_err" in p else DcLoad(0.0, 0.0)
 
     def dc_forward(self, p, st_in, v_in, out_load):
         bias, r_to_low = self._bias(p)
