@@ -8,6 +8,7 @@ from __future__ import annotations
 import sys
 
 from ..stages import REGISTRY
+from .loader import range_text
 from .units import UNITS
 
 BEGIN, END = "<!-- generated: stage fields (python -m chainplan.spec.fieldref docs/spec.md) -->", "<!-- end generated -->"
@@ -33,6 +34,11 @@ def _unit(f) -> str:
     return f"{u.quantity} ({u.symbol})" + extra if u.symbol else u.quantity + extra
 
 
+def _range(f) -> str:
+    """The accepted range (``Field.bounds``), as messages state it."""
+    return "—" if f.unit == "choice" else range_text(f)
+
+
 def markdown() -> str:
     out = [BEGIN, ""]
     for kind, model in REGISTRY.items():
@@ -41,10 +47,10 @@ def markdown() -> str:
         for group in model.ONE_OF:
             out.append("Give exactly one of " + ", ".join(f"`{g}`" for g in group) + ".")
             out.append("")
-        out.append("| field | quantity | default | meaning |")
-        out.append("|---|---|---|---|")
+        out.append("| field | quantity | default | range | meaning |")
+        out.append("|---|---|---|---|---|")
         for name, f in model.FIELDS.items():
-            out.append(f"| `{name}` | {_unit(f)} | {_default(f)} | {f.doc} |")
+            out.append(f"| `{name}` | {_unit(f)} | {_default(f)} | {_range(f)} | {f.doc} |")
         out.append("")
     out.append(END)
     return "\n".join(out)

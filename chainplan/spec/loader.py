@@ -14,6 +14,7 @@ import re
 from ..errors import SpecError, nearest
 from .model import Analysis, Chain, Stage
 from ..stages import REGISTRY
+from ..stages.base import Field
 from .units import UnitError, parse_toleranced, parse_value
 from .yamlsrc import LDict, LList, load_file, load_text
 
@@ -23,6 +24,12 @@ TOP_KEYS = ("name", "description", "hazards", "temperature", "rails", "source", 
 ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None,
                  "noise_band": "Hz"}
 NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
+#: bounds of the values outside stages (the generic unit ranges of stages.base.UNIT_RANGES)
+RAIL = Field("V", "rail voltage")
+TEMPERATURE = Field("K", "chain temperature", positive=True, tiny=1.0, maximum=1000.0)
+FREQUENCY = Field("Hz", "analysis frequency", positive=True)
+#: widest relative tolerance (draws beyond a field's range are invalid samples, studies.tolerances)
+MAX_REL_TOLERANCE = 10.0
 
 #: Sections owned by feature modules: key -> "module:function(chain, node, path)".
 SECTION_PARSERS: dict[str, str] = {
@@ -71,6 +78,7 @@ def build_chain(doc, path: str) -> Chain:
     temp_k = _number(ctx, doc, "temperature", "K", "300 K")
     if temp_k <= 0:
         raise ctx.err("temperature must be above 0 K (absolute zero)", doc.line_of("temperature"), "temperature")
+    check_range(ctx, TEMPERATURE, temp_k, None, doc.line_of("temperature"), "temperature")
     rails = _rails(ctx, doc)
     tolerances: dict[tuple[str, str], object] = {}
     rail_tol = rails.pop("__tol__")
@@ -133,6 +141,7 @@ def _rails(ctx, doc):
             rails[key], t = parse_toleranced(raw, "V")
         except UnitError as exc:
             raise ctx.err(str(exc), node.line_of(key), f"rails.{key}") from None
+        check_range(ctx, RAIL, rails[key], t, node.line_of(key), f"rails.{key}")
         if t is not None:
             tol[key] = t
     rails["__tol__"] = tol
@@ -278,17 +287,48 @@ def _field_value(ctx, f, raw, rails, line, where, st, key):
         value, tol = parse_toleranced(raw, f.unit)
     except UnitError as exc:
         raise ctx.err(str(exc), line, where) from None
-    if math.isinf(value) and not f.allow_inf:
-        raise ctx.err("must be finite here", line, where)
-    if f.positive and not value > 0:
-        raise ctx.err(f"must be greater than zero ({f.doc})", line, where)
-    if f.minimum is not None and value < f.minimum:
-        raise ctx.err(f"must be at least {f.minimum:g} ({f.doc})", line, where)
+    check_range(ctx, f, value, tol, line, where)
     if key == "bits" and (value != int(value) or value > 32):
         raise ctx.err("bits is a whole number from 1 to 32", line, where)
     if key == "gain" and value == 0:
         raise ctx.err("a gain of zero passes no signal; give a non-zero gain", line, where)
     return value, tol
+
+
+def check_range(ctx, f, value, tol, line, where) -> None:
+    """The value (and the extremes its tolerance reaches) inside the field's physically
+    meaningful range (``Field.bounds``, documented in the field table)."""
+    if math.isinf(value) and not f.allow_inf:
+        raise ctx.err("must be finite here", line, where)
+    if f.positive and not value > 0:
+        raise ctx.err(f"must be greater than zero ({f.doc})", line, where)
+    if f.minimum is not None and value < f.minimum:
+        raise ctx.err(f"must be at least {_show(f, f.minimum)} ({f.doc})", line, where)
+    if f.out_of_range(value):
+        raise ctx.err(f"{_show(f, value)} is outside the range this field accepts: "
+                      f"{range_text(f)}", line, where)
+    if tol is not None:
+        low, high, _ = f.bounds()
+        if math.isinf(value):
+            raise ctx.err("an infinite value cannot carry a tolerance", line, where)
+        if tol.rel is not None and not abs(tol.rel) <= MAX_REL_TOLERANCE:
+            raise ctx.err(f"a tolerance of ±{tol.rel * 100:.3g} % is not a part tolerance; "
+                          f"give at most ±{MAX_REL_TOLERANCE * 100:.0f} %", line, where)
+        if tol.abs is not None and not abs(tol.abs) <= high - low:
+            raise ctx.err(f"a tolerance of ±{_show(f, tol.abs)} is wider than the whole range this field "
+                          f"accepts ({range_text(f)})", line, where)
+
+
+def _show(f, v) -> str:
+    """A bound or value for a message: engineering notation, no padding zeros ('1 µΩ', '1e+15 Ω')."""
+    from .units import UNITS, fmt
+    text = fmt(v, UNITS[f.unit].symbol) if f.unit in UNITS else f"{v:g}"
+    return re.sub(r"(\d)\.0+(?=\D|$)", r"\1", text)
+
+
+def range_text(f) -> str:
+    """The accepted range of a field as the field table and messages write it."""
+    return f.describe_range(lambda v: _show(f, v)) + (", or inf" if f.allow_inf else "")
 
 
 def _looks_numeric(text: str) -> bool:
@@ -309,6 +349,7 @@ def _analysis(ctx, doc, chain) -> Analysis:
             v = _number(ctx, node, key, "Hz", None)
             if not (v > 0 and math.isfinite(v)):
                 raise ctx.err("must be a positive, finite frequency", node.line_of(key), f"analysis.{key}")
+            check_range(ctx, FREQUENCY, v, None, node.line_of(key), f"analysis.{key}")
             setattr(a, attr, v)
     if "points" in node:
         p = node["points"]
@@ -347,6 +388,8 @@ def _noise_band(ctx, node, a) -> tuple:
     lo, hi = band
     if not (lo > 0 and math.isfinite(hi)):
         raise ctx.err("the noise band's ends must be positive, finite frequencies", line, where)
+    for v in band:
+        check_range(ctx, FREQUENCY, v, None, line, where)
     if not lo < hi:
         raise ctx.err("the noise band's low end must be below its high end", line, where)
     if lo < a.f_start_hz or hi > a.f_stop_hz:

@@ -59,7 +59,8 @@ def field_schema(f) -> dict:
         out["enum"] = list(f.choices)
         return out
     u = UNITS[f.unit]
-    kinds: list[dict] = [{"type": "number"},
+    low, high, _ = f.bounds()
+    kinds: list[dict] = [{"type": "number", "minimum": low, "maximum": high},
                          {"type": "string", "pattern": unit_pattern(f.unit, f.allow_inf, f.tolerable)}]
     if f.choices:
         kinds.append({"enum": list(f.choices)})
@@ -67,7 +68,7 @@ def field_schema(f) -> dict:
         kinds.append({"type": "string", "pattern": spec.NAME_RE.pattern, "description": "a declared rail"})
     out["anyOf"] = kinds
     out["description"] += f" [{u.quantity}" + (f", {u.symbol}]" if u.symbol else "]") + \
-        (" or a rail name" if f.rail_ok else "")
+        (" or a rail name" if f.rail_ok else "") + f"; range {spec.range_text(f)}"
     return out
 
 

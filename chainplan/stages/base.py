@@ -26,6 +26,44 @@ from ..constants import K_BOLTZMANN, Q_ELECTRON  # noqa: F401  (re-exported for 
 
 
 
+#: Physically meaningful magnitudes per unit id (SI): ``(tiny, big, signed)``.  A value
+#: of a field in that unit is either exactly 0 or has a magnitude from ``tiny`` to
+#: ``big``; ``signed`` says whether negative values mean something.  The ranges are
+#: generous (far beyond any part on a readout board) yet keep every product and
+#: square the models form inside float64: 1e-308 Hz or 1e308 m would otherwise
+#: overflow or divide by zero deep in the analysis.  A unit not listed gets
+#: ``DEFAULT_RANGE``.  A field narrows its range with ``minimum``/``maximum``/``tiny``.
+UNIT_RANGES: dict[str, tuple[float, float, bool]] = {
+    "ohm": (1e-6, 1e15, False),        # 1 µΩ … 1000 TΩ (insulation, electrometer inputs)
+    "F": (1e-18, 1.0, False),          # 1 aF … 1 F
+    "H": (1e-12, 1e3, False),          # 1 pH … 1 kH
+    "V": (1e-15, 1e5, True),           # 1 fV … 100 kV
+    "A": (1e-24, 1e3, True),           # saturation currents reach 1e-20 A
+    "W": (1e-15, 1e6, False),
+    "S": (1e-15, 1e6, False),
+    "Hz": (1e-6, 1e15, False),         # 1 µHz … 1 PHz (an "ideal" op-amp's gbw)
+    "s": (1e-15, 1e6, False),
+    "V/rtHz": (1e-15, 1e-3, False),    # 1 fV/√Hz … 1 mV/√Hz
+    "A/rtHz": (1e-21, 1e-3, False),
+    "dB": (1e-6, 400.0, True),
+    "%": (1e-12, 10.0, True),          # fractions: up to 1000 %
+    "ppm": (1e-12, 10.0, True),
+    "m": (1e-6, 1e6, False),           # 1 µm … 1000 km
+    "F/m": (1e-15, 1e-6, False),
+    "ohm/m": (1e-9, 1e9, False),
+    "K": (1e-3, 1e4, False),
+    "A/V2": (1e-12, 1e3, False),
+    "sqrtV": (1e-9, 100.0, False),
+    "1/V": (1e-9, 100.0, False),
+    "deg": (1e-9, 3600.0, True),
+    "1": (1e-12, 1e12, True),
+    "dK": (1e-6, 1e4, True),           # temperature differences
+    "V/K": (1e-15, 1.0, True),         # voltage drifts
+    "ppm/K": (1e-15, 1.0, True),       # relative drifts (fractions per kelvin: up to 100 %/K)
+}
+DEFAULT_RANGE = (1e-30, 1e30, True)
+
+
 @dataclass(frozen=True)
 class Field:
     """One parameter of a stage kind, as written in a chain spec."""
@@ -40,6 +78,45 @@ class Field:
     positive: bool = False         # strictly > 0
     allow_inf: bool = False        # 'inf' accepted
     tolerable: bool = True         # may carry a ±tolerance
+    maximum: float | None = None   # inclusive upper bound (SI); default: the unit's (UNIT_RANGES)
+    tiny: float | None = None      # smallest non-zero magnitude; default: the unit's
+
+    def bounds(self) -> tuple[float, float, float]:
+        """``(low, high, tiny)``: the accepted values are ``low ≤ v ≤ high`` and
+        ``v == 0 or |v| ≥ tiny`` (plus ``inf`` where ``allow_inf``).  Taken from the
+        field's own ``minimum``/``maximum``/``positive`` and the unit's range."""
+        u_tiny, big, signed = UNIT_RANGES.get(self.unit, DEFAULT_RANGE)
+        tiny = u_tiny if self.tiny is None else self.tiny
+        if self.minimum is not None:
+            low = self.minimum
+        elif self.positive:
+            low = tiny
+        else:
+            low = -big if signed else 0.0
+        if self.positive:
+            low = max(low, tiny)
+        high = big if self.maximum is None else self.maximum
+        return low, high, tiny
+
+    def out_of_range(self, v):
+        """Per value (arrays too): True where ``v`` lies outside :meth:`bounds` or is
+        not finite (``inf`` is fine where ``allow_inf``)."""
+        low, high, tiny = self.bounds()
+        v = np.asarray(v, dtype=float)
+        with np.errstate(invalid="ignore"):
+            inf_ok = np.isinf(v) & (v > 0) & self.allow_inf
+            bad = ~np.isfinite(v) | (v < low) | (v > high) | ((v != 0) & (np.abs(v) < tiny))
+        return bad & ~inf_ok
+
+    def describe_range(self, fmt) -> str:
+        """The accepted range in words, e.g. '0 or 1 µΩ … 1e+15 Ω' or '0 or ±(1 fV … 100 kV)';
+        ``fmt(value)`` formats a value with its unit."""
+        low, high, tiny = self.bounds()
+        if low >= 0:
+            return ("0 or " if low <= 0 else "") + f"{fmt(max(low, tiny))} … {fmt(high)}"
+        if low == -high:
+            return f"0 or ±({fmt(tiny)} … {fmt(high)})"
+        return f"{fmt(low)} … {fmt(high)} (0 or at least {fmt(tiny)} in magnitude)"
 
 
 class ABCD(NamedTuple):

@@ -206,8 +206,8 @@ def _apply_shared(d: Draws, rails: dict, temp) -> None:
         f = d.chain.stage(st).model.FIELDS.get(fld)
         if f is None:
             continue
-        bad = (v <= 0) if f.positive else (v < f.minimum) if f.minimum is not None else None
-        if bad is not None and bad.any():
+        bad = f.out_of_range(v)
+        if bad.any():
             d.valid &= ~bad
             d.assign[(st, fld)] = np.where(bad, d.chain.stage(st).params[fld], v)
 
