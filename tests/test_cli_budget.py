@@ -54,14 +54,18 @@ def test_at_moves_the_reference_frequency(cli):
     base, low = _json(cli), _json(cli, "--at", "100 Hz")
     assert base["f_ref_hz"] == 1e3 and low["f_ref_hz"] == 100.0
     assert low["gain_db"] < base["gain_db"] - 3
-    # signal peaks follow the reference frequency too
-    assert low["nodes"][-1]["peak_v"] < base["nodes"][-1]["peak_v"]
+    # signal peaks are judged over the declared band (50 Hz … 5 kHz), not at f_ref:
+    # they stay where they are, at the band's loudest frequency (its top, on the rising slope)
+    assert low["nodes"][-1]["peak_v"] == base["nodes"][-1]["peak_v"]
+    assert base["nodes"][-1]["peak_f_hz"] == pytest.approx(5e3, rel=0.01)
 
 
 def test_span_limits_where_edges_are_found(cli):
     base = _json(cli)
     assert base["f_low_hz"] is not None and base["f_high_hz"] is not None
-    narrow = _json(cli, "--span", "1 kHz:10 kHz")
+    # edges are 3 dB below the passband, the largest gain in the 50 Hz … 5 kHz band (at
+    # its top, the response rises through it): about 3.2 kHz and 175 kHz, both outside 4 … 10 kHz
+    narrow = _json(cli, "--span", "4 kHz:10 kHz", "--at", "5 kHz")
     assert narrow["f_low_hz"] is None and narrow["f_high_hz"] is None      # both edges lie outside
     wide = _json(cli, "--span", "10 Hz:10 MHz")
     assert wide["f_low_hz"] == pytest.approx(base["f_low_hz"], rel=0.02)

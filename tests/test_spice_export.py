@@ -69,14 +69,21 @@ _MEAS = re.compile(r"^(f_low|f_high)\s+=\s+([-+0-9.eE]+)", re.M)
 
 
 def _edges(circuit: str, node: str, a) -> dict:
-    """−3 dB edges of V(node) by ngspice's own measure (200 points per decade): the last
-    rising crossing below f_ref and the first falling one above it, as chainplan defines them."""
-    f_ref = repr(a.f_ref_hz)
+    """−3 dB edges of V(node) by ngspice's own measure (200 points per decade), as
+    chainplan defines them: 3 dB below the passband gain (the largest over the signal
+    band, or over the span without one), the last rising crossing below the frequency
+    of that gain and the first falling one above it."""
+    band = a.band_hz
+    rng = f" from={band[0]!r} to={band[1]!r}" if band else ""
     out = run(circuit, [f"ac dec 200 {a.f_start_hz!r} {a.f_stop_hz!r}",
-                        f"meas ac g_ref find vdb({node}) at={f_ref}",
-                        "let edge = g_ref - 3.0103",
-                        f"meas ac f_low when vdb({node})=edge rise=last to={f_ref}",
-                        f"meas ac f_high when vdb({node})=edge fall=1 from={f_ref}"])
+                        f"meas ac g_pass max vdb({node}){rng}",
+                        ])
+    f_pk = re.search(r"^g_pass\s+=\s+\S+\s+at=\s+([-+0-9.eE]+)", out, re.M).group(1)
+    out = run(circuit, [f"ac dec 200 {a.f_start_hz!r} {a.f_stop_hz!r}",
+                        f"meas ac g_pass max vdb({node}){rng}",
+                        "let edge = g_pass - 3.0103",
+                        f"meas ac f_low when vdb({node})=edge rise=last to={f_pk}",
+                        f"meas ac f_high when vdb({node})=edge fall=1 from={f_pk}"])
     return {k: float(v) for k, v in _MEAS.findall(out)}
 
 

@@ -11,6 +11,7 @@ import numpy as np
 
 from .cascade import AcResult, run_ac
 from .dcpass import DcResult, solve_dc
+from .swing import class_a_limits
 from ..errors import SpecError
 from ..spec.model import Chain
 
@@ -70,10 +71,25 @@ class Evaluation:
         """V_node/X over the grid, (S, F+1); X is the source EMF or current (signal_unit)."""
         return self.ac.node_h[node or self.output]
 
+    @property
+    def band_cols(self) -> np.ndarray:
+        """Grid columns of the signal band (``analysis.band_hz``: the declared signal
+        band, else the noise band); the reference frequency alone without one."""
+        return band_columns(self.chain, self.f_hz)
+
     def peak(self, node: str):
-        """Signal peak at a node at the reference frequency, (S,)."""
-        amp = self.params[self.chain.source.name]["amplitude"]
-        return np.abs(self.ac.node_h.at(node, 0)) * np.ravel(amp)
+        """Signal peak at a node, the largest over the signal band, (S,).  Assumes
+        the sensor's amplitude is flat over the band (a sine of the declared
+        amplitude at any frequency in it): peak = amplitude · max |H(f)|."""
+        return self.peak_at(node)[0]
+
+    def peak_at(self, node: str):
+        """(peak (S,), frequency of the peak (S,) Hz) over the signal band."""
+        amp = np.ravel(self.params[self.chain.source.name]["amplitude"])
+        cols = self.band_cols
+        mag = np.abs(self.ac.node_h.at(node, cols))
+        k = np.argmax(mag, axis=1)
+        return mag[np.arange(mag.shape[0]), k] * amp, self.f_hz[cols][k]
 
     def headroom(self, node: str):
         """Distance from the signal's extremes to the nearer limit (V), (S,)."""
@@ -94,19 +110,55 @@ class Evaluation:
         num = b * y if self.signal_unit == "A" and self.chain.stage(stage).parent == self.chain.source.name else a
         return -20 * np.log10(np.abs(num / (a + b * y)))
 
+    def passband(self, node: str | None = None):
+        """(passband gain |H| (S,), its frequency (S,) Hz): the gain at a declared
+        ``analysis.mid_band`` (log-log interpolation between grid points), else the
+        largest gain over the signal band, else the largest over the span."""
+        mag = np.abs(self.gain(node))[:, 1:]
+        f = self.span
+        mid = self.chain.analysis.mid_band_hz
+        if mid is not None:
+            g = 10 ** _interp_rows(np.log10(mid), np.log10(f), np.log10(np.maximum(mag, 1e-300)))
+            return g, np.full(mag.shape[0], mid)
+        band = self.chain.analysis.band_hz
+        cols = np.arange(f.size) if band is None else np.nonzero((f >= band[0]) & (f <= band[1]))[0]
+        cols = cols if cols.size else np.arange(f.size)
+        k = cols[np.argmax(mag[:, cols], axis=1)]
+        return mag[np.arange(mag.shape[0]), k], f[k]
+
     def band_edges(self, node: str | None = None):
-        """−3 dB edges around the reference frequency, per sample (nan where the
+        """−3 dB edges around the passband (``passband``: the gain at a declared mid-band,
+        else the largest over the signal band or the span), per sample (nan where the
         response stays within 3 dB over the span).  Linear interpolation of the
         magnitude in dB against log f between the bracketing grid points."""
         mag = np.abs(self.gain(node))
-        ref = mag[:, :1] * SQRT_HALF
+        g_pb, f_pb = Evaluation.passband(self, node)
+        ref = g_pb[:, None] * SQRT_HALF
         span = mag[:, 1:]
         logf = np.log10(self.span)
         below = span < ref
-        above_ref = self.span > self.chain.analysis.f_ref_hz
-        hi_mask = below & above_ref[None, :]
-        lo_mask = below & ~above_ref[None, :]
+        above_ref = self.span[None, :] > f_pb[:, None]
+        hi_mask = below & above_ref
+        lo_mask = below & ~above_ref
         return (_edge(span, ref, logf, lo_mask, last=True), _edge(span, ref, logf, hi_mask, last=False))
+
+
+def _interp_rows(x, xp, fp):
+    """np.interp of one point x on every row of fp (S, F) over the common xp (F,)."""
+    j = np.clip(np.searchsorted(xp, x) - 1, 0, xp.size - 2)
+    t = (x - xp[j]) / (xp[j + 1] - xp[j])
+    return fp[:, j] + t * (fp[:, j + 1] - fp[:, j])
+
+
+def band_columns(chain: Chain, f_hz) -> np.ndarray:
+    """Columns of ``f_hz`` inside the chain's signal band (``analysis.band_hz``); [0]
+    (the reference frequency) when no band is declared or none falls inside."""
+    band = chain.analysis.band_hz
+    if band is None:
+        return np.array([0])
+    f = np.asarray(f_hz)
+    cols = np.nonzero((f >= band[0] * (1 - 1e-12)) & (f <= band[1] * (1 + 1e-12)))[0]
+    return cols if cols.size else np.array([0])
 
 
 def _edge(span, ref, logf, mask, last):
@@ -136,6 +188,7 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
     with np.errstate(divide="ignore", invalid="ignore"):
         dc = solve_dc(chain, params)
         ac = run_ac(chain, params, dc.ops, f_hz)
+        class_a_limits(chain, params, dc, ac, band_columns(chain, f_hz))
     return Evaluation(chain, params, f_hz, dc, ac, chain.output_node())
 
 
@@ -173,6 +226,8 @@ class NodeRow:
     headroom_db: float
     limited_by: tuple
     clips: bool
+    f_peak_hz: float | None = None     # frequency of the peak within the signal band
+    limit_cause: tuple = (None, None)  # why a limit is where it is, beyond the stage's plain range ('class A')
 
 
 @dataclass
@@ -252,12 +307,14 @@ def analyse(chain: Chain) -> Budget:
         interfaces.append(InterfaceRow(st.parent, st.name, zs, zl, _f(ev.interface_loss_db(st.name)[:, 0])))
     nodes = []
     for n in chain.nodes:
-        dcv, pk = _f(dc.node_v[n]), _f(ev.peak(n))
+        pk_s, f_pk = ev.peak_at(n)
+        dcv, pk = _f(dc.node_v[n]), _f(pk_s)
         lo, hi = (_f(x) for x in dc.limits[n])
         room = _f(ev.headroom(n))
         avail = min(hi - dcv, dcv - lo)
         room_db = 20 * np.log10(avail / pk) if pk > 0 and avail > 0 else (np.inf if pk == 0 else -np.inf)
-        nodes.append(NodeRow(n, dcv, pk, lo, hi, room, float(room_db), dc.limit_by[n], room < 0))
+        nodes.append(NodeRow(n, dcv, pk, lo, hi, room, float(room_db), dc.limit_by[n], room < 0, _f(f_pk),
+                             dc.limit_cause.get(n, (None, None))))
     f_lo, f_hi = ev.band_edges()
     out = ev.output
     gain_db = _f(20 * np.log10(np.abs(ev.gain()[:, 0])))

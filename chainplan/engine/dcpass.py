@@ -12,7 +12,7 @@ base current) contracts by Rsource/(rπ + (β + 1)·RE) per round, so it crawls
 or diverges for the high-impedance sensors this tool is for."""
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -26,6 +26,9 @@ class DcResult:
     ops: dict               # stage -> Op
     limits: dict            # node -> (low, high) allowed volts
     limit_by: dict          # node -> (stage setting the low limit, stage setting the high limit)
+    #: node -> (cause of the low limit, of the high limit) where it is not the stage's plain range,
+    #: e.g. 'class A' (engine/swing.py)
+    limit_cause: dict = field(default_factory=dict)
 
 
 #: Newton rounds at most, and the settling tolerance on every node level (V).

@@ -34,7 +34,9 @@ from ..spec.parts import Candidate
 from .switch import MODEL, PASS, TERMINAL, Element, Switch
 
 #: Kinds that cut the chain (unilateral input and output; DC from the input node voltage only).
-CUT_KINDS = ("opamp_follower", "opamp_noninverting", "amplifier", "source_follower")
+#: A source follower is unilateral too, but its output range is not: its class-A swing
+#: limit depends on the load it drives (engine/swing.py), so it stays inside a region.
+CUT_KINDS = ("opamp_follower", "opamp_noninverting", "amplifier")
 #: Samples × frequencies of one engine call at most (bounds the arrays' memory, ~2 MB each).
 MAX_CELLS = 1 << 17
 ROOT = ("", -1, -1)
@@ -43,11 +45,9 @@ ROOT = ("", -1, -1)
 def is_cut(st: Stage) -> bool:
     """Does this stage split the chain?  Unilateral in both senses: input admittance and DC input
     current independent of what it drives, output a function of its input node's voltage only (ABCD
-    with A·D − B·C = 0: op-amp followers and non-inverting stages, the amplifier macro model, a
-    MOSFET source follower without Cgs)."""
-    if st.kind not in CUT_KINDS:
-        return False
-    return st.kind != "source_follower" or not np.any(np.asarray(st.params.get("cgs", 0.0)) != 0)
+    with A·D − B·C = 0: op-amp followers and non-inverting stages, the amplifier macro model) and an
+    output range that does not depend on the load (a follower's class-A limit does)."""
+    return st.kind in CUT_KINDS
 
 
 @dataclass

@@ -328,6 +328,17 @@ class Switch:
     def noise(self, p, s, op, temp_k):
         return []
 
+    def class_a(self, p, op):
+        """Per sample: (device current, conductance to v_low) of a follower element for its
+        class-A swing limit (engine/swing.py); no limit (infinite current) for the others."""
+        i_dev, g_low = np.full((self.n, 1), np.inf), np.zeros((self.n, 1))
+        for grp, idx, which in self.active:
+            if hasattr(grp.model, "class_a"):
+                i, g = grp.model.class_a(grp.params(which), op.parts[id(grp)])
+                _put(i_dev, idx, i)
+                _put(g_low, idx, g)
+        return i_dev, g_low
+
     def spend(self, op, basis: str):
         """Per sample: supply power of the follower-type elements, cost and parts of the candidates."""
         power, cost, parts = np.zeros(self.n), np.zeros(self.n), np.zeros(self.n)

@@ -454,6 +454,32 @@ EXPORTERS = {
 }
 
 
+def _edge_measures(chain: Chain, out_node: str) -> list:
+    """Measures of the passband gain and of the −3 dB edges as the budget defines them
+    (``Evaluation.passband``: the gain at a declared mid-band, else the largest over
+    the signal band or the span), and only of the edges the budget finds in the span:
+    a measure of an edge that does not exist is an ngspice error."""
+    from ..engine.budget import evaluate
+    ev = evaluate(chain)
+    f_lo, f_hi = (float(np.ravel(x)[0]) for x in ev.band_edges())
+    f_pb = float(np.ravel(ev.passband()[1])[0])
+    a, v = chain.analysis, f"vdb({out_node})"
+    if a.mid_band_hz is not None:
+        lines = [f"meas ac pass_db find {v} at={_num(a.mid_band_hz)}"]
+    elif a.band_hz is not None:
+        lines = [f"meas ac pass_db max {v} from={_num(a.band_hz[0])} to={_num(a.band_hz[1])}"]
+    else:
+        lines = [f"meas ac pass_db max {v}"]
+    lines.append("let edge_db = pass_db - 3.0103")
+    for name, f, how in (("f_low_hz", f_lo, f"rise=last to={_num(f_pb)}"),
+                         ("f_high_hz", f_hi, f"fall=1 from={_num(f_pb)}")):
+        if math.isfinite(f):
+            lines.append(f"meas ac {name} when {v}=edge_db {how}")
+        else:
+            lines.append(f"echo {name}: none, the response stays within 3 dB to that end of the span")
+    return lines
+
+
 def _cannot(chain: Chain, st: Stage, why: str) -> SpecError:
     return SpecError(f"cannot export stage '{st.name}' (kind {st.kind}) to SPICE: {why}",
                      chain.path, st.line, st.name)
@@ -515,12 +541,10 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
         "echo DC level of every node in volts:",
         f"print {nodes_v}",
         "setplot ac1",
-        f"echo Gain to {out_node} at {_num(a.f_ref_hz)} Hz in dB then the -3 dB band edges in Hz:",
+        f"echo Gain to {out_node} at {_num(a.f_ref_hz)} Hz in dB, the passband gain, then the -3 dB band "
+        "edges in Hz:",
         f"meas ac gain_ref_db find vdb({out_node}) at={_num(a.f_ref_hz)}",
-        "let edge_db = gain_ref_db - 3.0103",
-        "* (a failed measure of an edge: the response stays within 3 dB to that end of the span)",
-        f"meas ac f_low_hz when vdb({out_node})=edge_db rise=last to={_num(a.f_ref_hz)}",
-        f"meas ac f_high_hz when vdb({out_node})=edge_db fall=1 from={_num(a.f_ref_hz)}",
+        *_edge_measures(chain, out_node),
         "setplot noise2",
         f"echo Integrated noise over the span at the output in V rms and referred to the sensor in {unit} rms:",
         "print onoise_total inoise_total",

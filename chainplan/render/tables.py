@@ -51,7 +51,9 @@ def budget_tables(b: Budget, console) -> None:
     console.print(t)
 
     tight = b.tightest_node
-    t = Table(title=f"Nodes (DC, signal peak at {f_ref}, limits, headroom)", box=bx, title_justify="left")
+    band = c.analysis.band_hz
+    where = f"over {eng(band[0], 'Hz')} … {eng(band[1], 'Hz')}" if band else f"at {f_ref}"
+    t = Table(title=f"Nodes (DC, signal peak {where}, limits, headroom)", box=bx, title_justify="left")
     for col in ("node", "DC", "peak", "low limit", "high limit", "headroom", "(dB)", "set by", ""):
         t.add_column(col, justify="left" if col in ("node", "set by", "") else "right", no_wrap=col != "set by")
     for n in b.nodes:
@@ -60,6 +62,14 @@ def budget_tables(b: Budget, console) -> None:
         t.add_row(n.name, eng(n.dc_v, "V"), eng(n.peak_v, "V"), _lim(n.low_v), _lim(n.high_v),
                   eng(n.headroom_v, "V") if math.isfinite(n.headroom_v) else "—",
                   db(n.headroom_db, 1) if math.isfinite(n.headroom_db) else "—", _set_by(n), mark, style=style)
+    if band:
+        t.caption = ("peak: the largest over the signal band, the sensor's amplitude assumed flat over it"
+                     + "; class A: a follower's bias current sets its negative swing into the load"
+                     * any(n.limit_cause[0] == "class A" for n in b.nodes))
+        t.caption_justify = "left"
+    elif any(n.limit_cause[0] == "class A" for n in b.nodes):
+        t.caption = "class A: a follower's bias current sets its negative swing into the load"
+        t.caption_justify = "left"
     console.print(t)
 
     t = Table(title="Summary", box=bx, title_justify="left", show_header=False)
@@ -94,6 +104,8 @@ def _set_by(n) -> str:
         return ""
     up = n.high_v - (n.dc_v + n.peak_v)
     down = (n.dc_v - n.peak_v) - n.low_v
+    if up > down and lo_by and n.limit_cause[0]:
+        return f"{lo_by} ({n.limit_cause[0]})"
     return (hi_by if up <= down else lo_by) or ""
 
 

@@ -22,7 +22,7 @@ HAZARDS = ("mains", "high_voltage", "patient")
 TOP_KEYS = ("name", "description", "hazards", "temperature", "rails", "source", "stages", "analysis",
             "requirements", "include", "candidates", "corners")
 ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None,
-                 "noise_band": "Hz"}
+                 "noise_band": "Hz", "signal_band": "Hz", "mid_band": "Hz"}
 NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 #: bounds of the values outside stages (the generic unit ranges of stages.base.UNIT_RANGES)
 RAIL = Field("V", "rail voltage")
@@ -370,15 +370,24 @@ def _analysis(ctx, doc, chain) -> Analysis:
         a.output = out
     if "noise_band" in node:
         a.noise_band_hz = _noise_band(ctx, node, a)
+    if "signal_band" in node:
+        a.signal_band_hz = _noise_band(ctx, node, a, "signal_band")
+    if "mid_band" in node:
+        v = _number(ctx, node, "mid_band", "Hz", None)
+        if not a.f_start_hz <= v <= a.f_stop_hz:
+            raise ctx.err(f"mid_band ({v:g} Hz) must lie inside the span f_start … f_stop "
+                          f"({a.f_start_hz:g} … {a.f_stop_hz:g} Hz)", node.line_of("mid_band"), "analysis.mid_band")
+        a.mid_band_hz = v
     return a
 
 
-def _noise_band(ctx, node, a) -> tuple:
-    """``noise_band: [LOW, HIGH]``: two frequencies, in order, inside the span."""
-    line, where = node.line_of("noise_band"), "analysis.noise_band"
-    raw = node["noise_band"]
+def _noise_band(ctx, node, a, key="noise_band") -> tuple:
+    """``noise_band`` or ``signal_band: [LOW, HIGH]``: two frequencies, in order, inside the span."""
+    line, where = node.line_of(key), f"analysis.{key}"
+    raw = node[key]
+    what = key.replace("_", " ")
     if not isinstance(raw, list) or len(raw) != 2:
-        raise ctx.err("noise_band is a list of two frequencies, e.g. [50 Hz, 5 kHz]", line, where)
+        raise ctx.err(f"{key} is a list of two frequencies, e.g. [50 Hz, 5 kHz]", line, where)
     band = []
     for r in raw:
         try:
@@ -387,12 +396,12 @@ def _noise_band(ctx, node, a) -> tuple:
             raise ctx.err(str(exc), line, where) from None
     lo, hi = band
     if not (lo > 0 and math.isfinite(hi)):
-        raise ctx.err("the noise band's ends must be positive, finite frequencies", line, where)
+        raise ctx.err(f"the {what}'s ends must be positive, finite frequencies", line, where)
     for v in band:
         check_range(ctx, FREQUENCY, v, None, line, where)
     if not lo < hi:
-        raise ctx.err("the noise band's low end must be below its high end", line, where)
+        raise ctx.err(f"the {what}'s low end must be below its high end", line, where)
     if lo < a.f_start_hz or hi > a.f_stop_hz:
-        raise ctx.err(f"the noise band {lo:g}…{hi:g} Hz must lie inside the analysis span "
+        raise ctx.err(f"the {what} {lo:g}…{hi:g} Hz must lie inside the analysis span "
                       f"{a.f_start_hz:g}…{a.f_stop_hz:g} Hz (f_start … f_stop)", line, where)
     return lo, hi

@@ -40,6 +40,14 @@ class Analysis:
     points: int = 401
     output: str | None = None          # a load stage or node; default: the first ADC
     noise_band_hz: tuple | None = None  # (low, high) the noise is integrated over; None: the span
+    signal_band_hz: tuple | None = None  # (low, high) the signal occupies; None: the noise band, else f_ref alone
+    mid_band_hz: float | None = None     # where the passband gain is read; None: the largest gain in the band
+
+    @property
+    def band_hz(self) -> tuple | None:
+        """The signal band peaks and headroom are judged over: the declared signal
+        band, else the noise band, else None (the reference frequency alone)."""
+        return self.signal_band_hz if self.signal_band_hz is not None else self.noise_band_hz
 
 
 @dataclass

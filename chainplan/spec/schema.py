@@ -136,7 +136,12 @@ def chain_schema() -> dict:
             "points": {"type": "integer", "minimum": 10, "maximum": 100000, "description": "frequency points"},
             "output": {"type": "string", "description": "the load or node end-to-end figures refer to"},
             "noise_band": {"type": "array", "items": hz, "minItems": 2, "maxItems": 2,
-                           "description": "band the noise is integrated over, [LOW, HIGH] inside the span"}}},
+                           "description": "band the noise is integrated over, [LOW, HIGH] inside the span"},
+            "signal_band": {"type": "array", "items": hz, "minItems": 2, "maxItems": 2,
+                            "description": "band the signal occupies (peaks and headroom are judged over it; "
+                                           "default: the noise band)"},
+            "mid_band": {**hz, "description": "where the passband gain is read for the band edges "
+                                              "(default: the largest gain in the signal band)"}}},
     }
     unknown = [k for k in spec.TOP_KEYS if k not in props]
     props.update({k: _section_schema(k) for k in unknown})

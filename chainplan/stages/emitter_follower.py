@@ -70,6 +70,10 @@ class EmitterFollower(StageKind):
         i_load = out_load.G * ve - out_load.I0
         return dc_source(ve + r_out * i_load, r_out), op
 
+    def class_a(self, p, op):
+        """(emitter current, conductance from the output to v_low) for the class-A limit (engine/swing.py)."""
+        return op.values["ic_a"] + op.values["ib_a"], inv(self._r_to_low(p))
+
     def noise(self, p, s, op, temp_k):
         """Shot noise (Gray & Meyer, noise chapter, from memory): 2qIC flows from the
         collector (AC ground) into the emitter, the output node; 2qIB leaves the base

@@ -76,6 +76,10 @@ class SourceFollower(StageKind):
         i_load = out_load.G * vs - out_load.I0
         return dc_source(vs + r_out * i_load, r_out), op
 
+    def class_a(self, p, op):
+        """(device current, conductance from the output to v_low) for the class-A limit (engine/swing.py)."""
+        return op.values["id_a"], inv(self._bias(p)[1])
+
     def noise(self, p, s, op, temp_k):
         """The channel noise current flows from the drain (AC ground) into the
         source, the output node: exact, Cgs/Cgd included.  The source resistor's
