@@ -14,12 +14,19 @@ from helpers_ngspice import needs_ngspice, run_ac
 pytestmark = needs_ngspice
 
 
-def opamp_macro(plus, minus, out, a0_db, gbw_hz, r_out=0.0, tag="a"):
-    """Single-pole op-amp: Gm = 1 S·(V+ − V−) into A0 Ω ‖ C, C = 1/(2π·GBW), buffered, Ro."""
+def opamp_macro(plus, minus, out, a0_db, gbw_hz, r_out=0.0, tag="a", f_p2=None):
+    """Op-amp: Gm = 1 S·(V+ − V−) into A0 Ω ‖ C, C = 1/(2π·GBW), then (f_p2) a unity
+    1 S into 1 Ω ‖ 1/(2π·f_p2) F section, buffered, Ro."""
     a0 = 10 ** (a0_db / 20)
     core = f"{tag}i" if r_out else out
     lines = [f"G{tag}m 0 {tag}x {plus} {minus} 1", f"G{tag}x {tag}x 0 {tag}x 0 {1 / a0!r}",
-             f"C{tag}x {tag}x 0 {1 / (2 * np.pi * gbw_hz)!r}", f"E{tag}o {core} 0 {tag}x 0 1"]
+             f"C{tag}x {tag}x 0 {1 / (2 * np.pi * gbw_hz)!r}"]
+    x = f"{tag}x"
+    if f_p2:
+        lines += [f"G{tag}m2 0 {tag}y {tag}x 0 1", f"G{tag}y {tag}y 0 {tag}y 0 1",
+                  f"C{tag}y {tag}y 0 {1 / (2 * np.pi * f_p2)!r}"]
+        x = f"{tag}y"
+    lines.append(f"E{tag}o {core} 0 {x} 0 1")
     if r_out:
         lines.append(f"G{tag}ro {core} {out} {core} {out} {1 / r_out!r}")
     return "\n".join(lines)
@@ -56,3 +63,24 @@ def test_inverting_input_capacitance_peaks_like_ngspice():
     k = int(np.argmax(db))
     assert abs(db[k] - 10.3) < 0.1
     assert abs(ev.span[k] / 275e3 - 1) < 0.03
+
+
+def test_second_pole_follower_and_export_match_ngspice():
+    """A follower with a second pole at 3 MHz (GBW 5 MHz, Ro 50 Ω) into 1 nF: chainplan's
+    AC transfer against a hand-written two-pole macro, and chainplan's own SPICE export
+    run in ngspice gives the same numbers."""
+    from chainplan.render.spice import export
+    chain = chain_from("""
+    name: p2
+    rails: {vdd: 5 V, vss: -5 V}
+    source: {name: src, kind: sensor, amplitude: 10 mV}
+    stages:
+      - {name: buf, kind: opamp_follower, gbw: 5 MHz, a0: 100 dB, f_p2: 3 MHz, r_out: 50, v_neg: vss}
+      - {name: rl, kind: load, c_in: 1 nF}
+    """)
+    freqs = np.array([1e3, 300e3, 1e6, 2e6, 5e6])
+    net = "\n".join(["Vsrc in 0 dc 0 ac 1", "CL out 0 1n", opamp_macro("in", "out", "out", 100, 5e6, 50, f_p2=3e6)])
+    ev = evaluate(chain, f_hz=freqs)
+    np.testing.assert_allclose(ev.gain("buf")[0], run_ac(net, "out", freqs), rtol=1e-6)
+    exported = export(chain).circuit_text()
+    np.testing.assert_allclose(ev.gain("buf")[0], run_ac(exported, "buf", freqs), rtol=1e-6)

@@ -192,17 +192,23 @@ class _Builder:
     def note(self, text: str) -> None:
         self.lines.append(f"* note: {text}")
 
-    def pole_buffer(self, wanted, out, ref, ctrl_p, ctrl_n, gain, f_pole_hz):
-        """V(out) − V(ref) = gain·(V(ctrl_p) − V(ctrl_n)) / (1 + s/(2π·f_pole)), ideal output:
-        a VCCS gain·G into a node with conductance G ‖ C = G/(2π·f_pole), read by a unity VCVS."""
-        if math.isinf(f_pole_hz):
+    def pole_buffer(self, wanted, out, ref, ctrl_p, ctrl_n, gain, f_pole_hz, f_pole2_hz=math.inf):
+        """V(out) − V(ref) = gain·(V(ctrl_p) − V(ctrl_n)) / ((1 + s/(2π·f_pole))·(1 + s/(2π·f_pole2))),
+        ideal output: a VCCS gain·G into a node with conductance G ‖ C = G/(2π·f_pole), read by a
+        unity VCVS; the second pole is one more G ‖ C node driven by a unity-gain VCCS."""
+        if math.isinf(f_pole_hz) and math.isinf(f_pole2_hz):
             self.elem("E", wanted, out, ref, ctrl_p, ctrl_n, _num(gain))
             return
-        pole = self.new_node(f"{wanted}_pole")
-        self.elem("G", f"{wanted}_gm", ref, pole, ctrl_p, ctrl_n, _num(gain * G_POLE))
-        self.elem("G", f"{wanted}_gp", pole, ref, pole, ref, _num(G_POLE))
-        self.elem("C", f"{wanted}_cp", pole, ref, _num(G_POLE / (2 * math.pi * f_pole_hz)))
-        self.elem("E", f"{wanted}_buf", out, ref, pole, ref, "1")
+        poles = [f for f in (f_pole_hz, f_pole2_hz) if not math.isinf(f)]
+        node, p, n, g = None, ctrl_p, ctrl_n, gain
+        for i, f in enumerate(poles):
+            sfx = "" if i == 0 else str(i + 1)
+            node = self.new_node(f"{wanted}_pole{sfx}")
+            self.elem("G", f"{wanted}_gm{sfx}", ref, node, p, n, _num(g * G_POLE))
+            self.elem("G", f"{wanted}_gp{sfx}", node, ref, node, ref, _num(G_POLE))
+            self.elem("C", f"{wanted}_cp{sfx}", node, ref, _num(G_POLE / (2 * math.pi * f)))
+            p, n, g = node, ref, 1.0        # the gain sits in the first section
+        self.elem("E", f"{wanted}_buf", out, ref, node, ref, "1")
 
 
 # -- one exporter per stage kind --------------------------------------------
@@ -269,8 +275,9 @@ def _output_nodes(b: _Builder, st: Stage, p):
 
 
 def _drive(b: _Builder, st: Stage, p, out, core, ref, plus, minus, gain, f_pole_hz):
-    """A single-pole voltage amplifier of (+) − (−) into ``core``, then r_out to ``out``."""
-    b.pole_buffer(st.name, core, ref, plus, minus, gain, f_pole_hz)
+    """A one- or two-pole voltage amplifier of (+) − (−) into ``core`` (the op-amps'
+    f_p2 the second pole), then r_out to ``out``."""
+    b.pole_buffer(st.name, core, ref, plus, minus, gain, f_pole_hz, _val(p.get("f_p2", math.inf)))
     if _val(p["r_out"]) != 0:
         b.r(f"{st.name}_out", core, out, p["r_out"], noiseless=True)
     return out

@@ -131,6 +131,8 @@ UNITS: dict[str, Unit] = {u.id: u for u in (
     Unit("S", "S", "conductance", "10 mS", "siemens", ("S", "mho", "mhos")),
     Unit("Hz", "Hz", "frequency", "1 MHz", "hertz", ("Hz",), allow_inf=True),
     Unit("s", "s", "time", "10 ns", "seconds", ("s",)),
+    Unit("V/s", "V/µs", "slew rate", "0.5 V/µs", "volts per second",
+         ("V/s", "V/µs", "V/us", "V/μs", "V/ns", "V/ms"), allow_inf=True),
     Unit("V/rtHz", "V/√Hz", "voltage noise density", "4 nV/√Hz",
          "volts per root hertz", ("V/√Hz", "V/rtHz", "V/sqrt(Hz)")),
     Unit("A/rtHz", "A/√Hz", "current noise density", "1 pA/√Hz",
@@ -171,6 +173,8 @@ _MORE_EXAMPLES = {
 _CELSIUS = _CELSIUS_SYMBOLS
 _ZERO_CELSIUS_CENTI = 27315    # 0 °C = 273.15 K exactly, in hundredths of a kelvin
 _SCALE = {"%": -2, "ppm": -6, "ppm/K": -6}   # power of ten applied when the symbol is given
+#: power of ten of a symbol with a prefixed denominator ('V/µs' is 1e6 V/s)
+_ALIAS_SCALE = {"V/µs": 6, "V/us": 6, "V/μs": 6, "V/ns": 9, "V/ms": 3}
 
 # every accepted symbol -> plural name, to recognise "a unit of another quantity"
 _FOREIGN: dict[str, str] = {a: u.name for u in UNITS.values() for a in u.aliases}
@@ -264,7 +268,7 @@ def _interpret(rest: str, unit: Unit, delta: bool):
     if rest == "":
         return 0, 0, False
     if rest in unit.aliases:
-        return _SCALE.get(unit.id, 0), 0, False
+        return _SCALE.get(unit.id, 0) + _ALIAS_SCALE.get(rest, 0), 0, False
     if unit.id == "K" and rest in _CELSIUS:
         return 0, (0 if delta else _ZERO_CELSIUS_CENTI), False
     if unit.prefixes == "none":
@@ -284,7 +288,7 @@ def _interpret(rest: str, unit: Unit, delta: bool):
             if not _is_word(tail):
                 continue
         if tail in unit.aliases:
-            return e, 0, True
+            return e + _ALIAS_SCALE.get(tail, 0), 0, True
     return None
 
 
@@ -500,7 +504,7 @@ def _parse_width(text: str, t: str, unit: Unit, dist: str) -> Tolerance:
 
 _FMT_PREFIX = {-15: "f", -12: "p", -9: "n", -6: "\u00b5", -3: "m", 0: "",
                3: "k", 6: "M", 9: "G", 12: "T"}
-_FMT_NO_PREFIX = {"%": 2, "ppm": 6, "ppm/K": 6, "dB": 0, "°": 0, "deg": 0}   # symbol -> scale 10**n
+_FMT_NO_PREFIX = {"%": 2, "ppm": 6, "ppm/K": 6, "dB": 0, "°": 0, "deg": 0, "V/µs": -6}   # symbol -> scale 10**n
 _FMT_NO_SPACE = ("°",)
 
 

@@ -1,5 +1,6 @@
-"""Op-amp stages: follower, non-inverting and inverting, with a single-pole
-open-loop gain A(s) = A0/(1 + s·A0/(2π·GBW)), open-loop output resistance Ro and
+"""Op-amp stages: follower, non-inverting and inverting, with an open-loop gain
+A(s) = A0/((1 + s·A0/(2π·GBW))·(1 + s/(2π·f_p2))) (single pole by default, f_p2 = ∞),
+open-loop output resistance Ro and
 input common-mode and output swing limits measured from each rail.
 
 Two-ports are derived exactly for this macro model by nodal analysis; they
@@ -36,7 +37,11 @@ DC_ERRORS = {
 COMMON = {
     "gbw": Field("Hz", "gain–bandwidth product", required=True, positive=True),
     "a0": Field("dB", "open-loop DC gain", default="120 dB", positive=True),
+    "f_p2": Field("Hz", "second (non-dominant) pole of the open-loop gain (inf: single pole); from a data "
+                  "sheet's unity-gain phase margin PM at crossover fc: f_p2 ≈ fc·tan(PM)", default="inf",
+                  positive=True, allow_inf=True),
     "r_out": Field("ohm", "open-loop output resistance", default="0 Ω", minimum=0.0),
+    "slew_rate": Field("V/s", "output slew rate (e.g. 0.5 V/µs)", default="inf", positive=True, allow_inf=True),
     "r_in": Field("ohm", "common-mode input resistance, at each input", default="inf", positive=True,
                   allow_inf=True),
     "c_in": Field("F", "common-mode input capacitance, at each input (the − input's is in the feedback "
@@ -68,8 +73,10 @@ def y_input(p, s):
 
 
 def inv_open_loop(p, s):
-    """1/A(s) = 1/A0 + s/(2π·GBW) for a single-pole op-amp (A0 → ∞ stays exact)."""
-    return 10.0 ** (-p["a0"] / 20.0) + s / (2 * np.pi * p["gbw"])
+    """1/A(s) = (1/A0 + s/(2π·GBW))·(1 + s/(2π·f_p2)): the dominant pole at GBW/A0 and
+    a second pole f_p2 (f_p2 = ∞ and A0 → ∞ stay exact); the two-pole op-amp of
+    Franco, *Design with Operational Amplifiers*, stability chapter, from memory."""
+    return (10.0 ** (-p["a0"] / 20.0) + s / (2 * np.pi * p["gbw"])) * (1.0 + s / (2 * np.pi * p["f_p2"]))
 
 
 class _OpAmp(StageKind):
