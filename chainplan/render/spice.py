@@ -307,6 +307,7 @@ def _opamp(b: _Builder, st: Stage, p, node_in):
         plus = node_in if st.kind == "opamp_noninverting" else ref
         if minus != out:
             b.r(f"{st.name}_f", out, minus, p["r_f"])
+            b.c(f"{st.name}_f", out, minus, p["c_f"])
         b.r(f"{st.name}_g", minus, node_in if st.kind == "opamp_inverting" else ref, p["r_g"])
     if st.kind != "opamp_inverting":      # chainplan's inverting model has its (+) input on ref
         b.r(f"{st.name}_cm", node_in, "0", p["r_in"], noiseless=True)

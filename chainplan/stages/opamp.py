@@ -61,6 +61,8 @@ COMMON = {
 FEEDBACK = {
     "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, minimum=0.0),
     "r_g": Field("ohm", "gain-setting resistor (inverting input to ref)", required=True, positive=True),
+    "c_f": Field("F", "feedback capacitor across r_f (phase-lead compensation of the − input's capacitance)",
+                 default="0 F", minimum=0.0),
     "ref": Field("V", "reference voltage (r_g return, or the + input of the inverting stage)",
                  default="0 V", rail_ok=True),
 }
@@ -72,11 +74,17 @@ def y_input(p, s):
     return inv(p["r_in"]) + s * p["c_in"]
 
 
+def z_feedback(p, s):
+    """Zf = RF ‖ 1/(s·CF) of the feedback branch, and Zf/RF (finite for RF = 0)."""
+    ratio = 1.0 / (1.0 + s * p["r_f"] * p.get("c_f", 0.0))
+    return p["r_f"] * ratio, ratio
+
+
 def inv_open_loop(p, s):
     """1/A(s) = (1/A0 + s/(2π·GBW))·(1 + s/(2π·f_p2)): the dominant pole at GBW/A0 and
     a second pole f_p2 (f_p2 = ∞ and A0 → ∞ stay exact); the two-pole op-amp of
     Franco, *Design with Operational Amplifiers*, stability chapter, from memory."""
-    return (10.0 ** (-p["a0"] / 20.0) + s / (2 * np.pi * p["gbw"])) * (1.0 + s / (2 * np.pi * p["f_p2"]))
+    return (10.0 ** (-p["a0"] / 20.0) + s / (2 * np.pi * p["gbw"])) * (1.0 + s / (2 * np.pi * p.get("f_p2", np.inf)))
 
 
 class _OpAmp(StageKind):
@@ -127,8 +135,8 @@ class _OpAmp(StageKind):
         place gives V+ = Vc + Σ c·n, the noise behind the input shunt Yin (so
         in_i = Yin·in_v), with 1/A = ia and β, gfb of ``_feedback`` (the − input's
         shunt Ym included): c(en) = −1;  c(v_RF) = −β − Ro·ia·gfb;
-        c(v_RG) = (RF − Ro·ia)·β/RG;  c(in−) = (RF − Ro·ia)·β (derived by nodal
-        analysis, checked symbolically).  For ia → 0 and Ym = 0 the output sees each
+        c(v_RG) = (Zf − Ro·ia)·β/RG;  c(in−) = (Zf − Ro·ia)·β, Zf = RF ‖ 1/(sCF), and RF's
+        EMF reaches the branch as v_RF·Zf/RF (derived by nodal analysis, checked symbolically).  For ia → 0 and Ym = 0 the output sees each
         coefficient times the noise gain 1/β: en·(1 + RF/RG), v_RF, v_RG·RF/RG and
         in−·RF (Franco, *Design with Operational Amplifiers*, noise chapter, from memory)."""
         beta, g_fb = self._feedback(p, s)
@@ -137,9 +145,10 @@ class _OpAmp(StageKind):
         i_psd = density(p["in"], s, p["in_corner"])
         out = [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=-1.0, in_i=-y_in),
                NoiseSource("in+", i_psd, in_i=1.0)]
-        c_minus = (p.get("r_f", 0.0) - ro_ia) * beta
-        if "r_f" in p:
-            for name, c in (("r_f", -beta - ro_ia * g_fb), ("r_g", (p["r_f"] - ro_ia) * beta / p["r_g"])):
+        zf, ratio = z_feedback(p, s) if "r_f" in p else (0.0, 1.0)
+        c_minus = (zf - ro_ia) * beta
+        if "r_f" in p:      # RF's EMF behind CF: the Thevenin EMF v_RF·Zf/RF in series with Zf
+            for name, c in (("r_f", (-beta - ro_ia * g_fb) * ratio), ("r_g", (zf - ro_ia) * beta / p["r_g"])):
                 out.append(NoiseSource(f"{name} thermal", thermal_v(p[name], temp_k), in_v=c, in_i=c * y_in))
         out.append(NoiseSource("in−", i_psd, in_v=c_minus, in_i=c_minus * y_in))
         return out
@@ -185,7 +194,7 @@ class OpampNoninverting(_OpAmp):
 
     def _feedback(self, p, s):
         y = 1.0 / p["r_g"] + y_input(p, s)
-        beta = 1.0 / (1.0 + p["r_f"] * y)
+        beta = 1.0 / (1.0 + z_feedback(p, s)[0] * y)
         return beta, y * beta
 
 
@@ -197,39 +206,42 @@ class OpampInverting(_OpAmp):
     def abcd(self, p, s, op):
         """Nodal analysis with the inverting input at Vm, A(s), Ro and the − input's
         shunt Ym = 1/r_in + s·c_in (the + input sits on ref, so its shunt does nothing):
-        k = 1/(A − Ro/RF); Vm = −k(1 + Ro/RF)·V2 − k·Ro·I2;
-        V1 = (1 + RG/RF + RG·Ym)·Vm − (RG/RF)·V2;  I1 = (Vm − V2)/RF + Ym·Vm.
+        with Yf = 1/RF + s·CF: k = 1/(A − Ro·Yf); Vm = −k(1 + Ro·Yf)·V2 − k·Ro·I2;
+        V1 = (1 + RG·Yf + RG·Ym)·Vm − RG·Yf·V2;  I1 = (Vm − V2)·Yf + Ym·Vm.
         Ym raises the noise gain to 1 + RF·(1/RG + Ym): with c_in that is the
         classic zero in the noise gain that eats the phase margin (Franco, *Design
         with Operational Amplifiers*, stability chapter, from memory)."""
         ia = inv_open_loop(p, s)
-        rf, rg, ro = p["r_f"], p["r_g"], p["r_out"]
+        rg, ro = p["r_g"], p["r_out"]
+        yf = 1.0 / p["r_f"] + s * p.get("c_f", 0.0)
         ym = y_input(p, s)
-        k = ia / (1.0 - ro / rf * ia)
-        vm_v2 = -k * (1.0 + ro / rf)
+        k = ia / (1.0 - ro * yf * ia)
+        vm_v2 = -k * (1.0 + ro * yf)
         vm_i2 = -k * ro
-        m = 1.0 + rg / rf + rg * ym
-        return ABCD(m * vm_v2 - rg / rf, m * vm_i2, (vm_v2 - 1.0) / rf + ym * vm_v2, vm_i2 / rf + ym * vm_i2)
+        m = 1.0 + rg * yf + rg * ym
+        return ABCD(m * vm_v2 - rg * yf, m * vm_i2, (vm_v2 - 1.0) * yf + ym * vm_v2, vm_i2 * yf + ym * vm_i2)
 
     def noise(self, p, s, op, temp_k):
         """en, in−, RF and RG thermal noise; the + input sits at ref (a stiff
         source), so in+ does nothing.  Nodal analysis of the macro model with
         the generators in place (k and Vm as in abcd, kA = 1/(1 − Ro·ia/RF)):
-        Vm gains kA·en + k·(Ro/RF)·v_RF; then with M = 1 + RG/RF + RG·Ym,
-        e_n = M·Vm_n + (RG/RF)·v_RF − RG·in− − v_RG and i_n = (1/RF + Ym)·Vm_n + v_RF/RF − in−
+        Vm gains kA·en + k·Ro·Yf·e_f, e_f = v_RF·Zf/RF; then with M = 1 + RG·Yf + RG·Ym,
+        e_n = M·Vm_n + RG·Yf·e_f − RG·in− − v_RG and i_n = (Yf + Ym)·Vm_n + Yf·e_f − in−
         (checked symbolically).  For A → ∞ this is the noise gain
         1 + RF·(1/(RG + Rsource) + Ym) on en (Franco, noise chapter, from memory)."""
         rf, rg, ro = p["r_f"], p["r_g"], p["r_out"]
         ia = inv_open_loop(p, s)
         ym = y_input(p, s)
-        m = 1.0 + rg / rf + rg * ym
-        ka = 1.0 / (1.0 - ro / rf * ia)
-        k_vf = ka * ia * ro / rf
+        yf = 1.0 / rf + s * p.get("c_f", 0.0)
+        m = 1.0 + rg * yf + rg * ym
+        ka = 1.0 / (1.0 - ro * yf * ia)
+        k_vf = ka * ia * ro * yf
+        ratio = 1.0 / (rf * yf)          # RF's EMF behind CF: v_RF·Zf/RF in series with Zf
         i_psd = density(p["in"], s, p["in_corner"])
-        return [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=m * ka, in_i=ka * (1.0 / rf + ym)),
+        return [NoiseSource("en", density(p["en"], s, p["en_corner"]), in_v=m * ka, in_i=ka * (yf + ym)),
                 NoiseSource("in−", i_psd, in_v=-rg, in_i=-1.0),
-                NoiseSource("r_f thermal", thermal_v(rf, temp_k), in_v=m * k_vf + rg / rf,
-                            in_i=(k_vf + 1.0) / rf + ym * k_vf),
+                NoiseSource("r_f thermal", thermal_v(rf, temp_k), in_v=(m * k_vf + rg * yf) * ratio,
+                            in_i=((k_vf + 1.0) * yf + ym * k_vf) * ratio),
                 NoiseSource("r_g thermal", thermal_v(rg, temp_k), in_v=-1.0)]
 
     def _ref(self, p):
