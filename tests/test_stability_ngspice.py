@@ -6,6 +6,7 @@ a noiseless A0 Ω ‖ C node (pole at GBW/A0), a unity buffer and Ro.
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from chainplan.engine.budget import evaluate
 from conftest import chain_from
@@ -106,3 +107,98 @@ def test_feedback_capacitor_compensates_input_capacitance():
     dens, _, _ = density_at(ev, freqs)
     ref, _ = run_noise(net, "out", "Vsrc", freqs)
     np.testing.assert_allclose(dens[0], ref, rtol=2e-3)
+
+
+# ---------------------------------------------------------------------------
+# Loop gain against ngspice, loop broken with the large-inductor/large-capacitor
+# method (the classic DC-closed, AC-open break): a 1 GH inductor between the
+# macro's ideal internal output ``ei`` and the node ``eo`` that drives Ro, and the
+# test source injected into ``eo`` through 1 F.  The break sits where an ideal
+# voltage source drives, so T = −V(ei)/V(eo) is the exact return ratio.  ngspice
+# measures the crossover (|T| falling through 0 dB, last), the continuous phase
+# there (PM = 180° + ∠T) and the peak of |T/(1 + T)| in dB.
+
+def lc_break(plus, minus, a0_db, gbw_hz, r_out, out="out"):
+    a0 = 10 ** (a0_db / 20)
+    lines = [f"Gm 0 x {plus} {minus} 1", f"Gx x 0 x 0 {1 / a0!r}", f"Cx x 0 {1 / (2 * np.pi * gbw_hz)!r}",
+             "Eo ei 0 x 0 1", "Lbrk ei eo 1e9", "Vt t 0 dc 0 ac 1", "Cbrk t eo 1"]
+    lines.append(f"Rro eo {out} {r_out!r}" if r_out else f"Rro eo {out} 1e-6")
+    return "\n".join(lines)
+
+
+def ngspice_loop(netlist, f_lo=1e3, f_hi=1e8):
+    """(crossover Hz, PM °, peak of |T/(1+T)| in dB above its value at f_lo) measured by ngspice."""
+    from helpers_ngspice import _values, run
+    out = run(netlist, [f"ac dec 400 {f_lo:g} {f_hi:g}", "let T = -v(ei)/v(eo)", "let tdb = db(T)",
+                        "let tph = cph(T)", "meas ac fc when tdb=0 fall=last", "meas ac phc find tph at=fc",
+                        "let cl = db(T/(1+T))", "meas ac pk max cl", "meas ac cl0 find cl at=" + f"{f_lo:g}",
+                        "let pm = 180 + phc*180/pi", "let pkrel = pk - cl0", "print fc pm pkrel"])
+    v = _values(out)
+    return v["fc"][-1], v["pm"][-1], v["pkrel"][-1]
+
+
+def check_loop(chain_text_or_chain, stage, netlist):
+    from chainplan.engine.loop import analyse_loops
+    chain = chain_from(chain_text_or_chain) if isinstance(chain_text_or_chain, str) else chain_text_or_chain
+    res = {r.stage: r for r in analyse_loops(evaluate(chain))}[stage]
+    fc, pm, pk = ngspice_loop(netlist)
+    assert abs(res.pm_deg[0] - pm) < 1.0                       # issue 14: phase margin within 1°
+    assert abs(res.peaking_db[0] - pk) < 0.2                   # and peaking within 0.2 dB
+    assert res.f_cross_hz[0] == pytest.approx(fc, rel=0.01)
+    return res, (fc, pm, pk)
+
+
+FOLLOWER_10NF = """
+name: follower-10nf
+rails: {vdd: 5 V, vss: -5 V}
+source: {name: src, kind: sensor, amplitude: 10 mV}
+stages:
+  - {name: buf, kind: opamp_follower, gbw: 10 MHz, a0: 110 dB, r_out: 40, v_neg: vss}
+  - {name: cl, kind: load, c_in: 10 nF}
+"""
+
+
+def test_follower_into_10nF_through_40_ohm_loop():
+    """Op-amp follower, GBW 10 MHz, Ro 40 Ω into 10 nF: Ro·CL puts a pole at 398 kHz
+    inside the loop; by hand PM = 90° − atan(fc/398 kHz) ≈ 11° at fc ≈ 2 MHz, and
+    about 14 dB of peaking."""
+    net = "\n".join(["Vin in 0 dc 0 ac 0", lc_break("in", "out", 110, 10e6, 40.0), "CL out 0 10n"])
+    res, (fc, pm, pk) = check_loop(FOLLOWER_10NF, "buf", net)
+    assert 10 < pm < 12.5 and 13.5 < pk < 14.5
+    # the follower's real closed loop (no break) peaks by the same amount: T/(1+T) is its response
+    closed = "\n".join(["Vin in 0 dc 0 ac 1", opamp_macro("in", "out", "out", 110, 10e6, 40.0), "CL out 0 10n"])
+    f = np.geomspace(1.5e6, 2.5e6, 201)
+    assert 20 * np.log10(np.abs(run_ac(closed, "out", f)).max()) == pytest.approx(res.peaking_db[0], abs=0.2)
+
+
+def test_photodiode_demo_loop():
+    """The photodiode demo's TIA: 50 pF diode + 5 pF input against 100 kΩ ‖ 2 pF, GBW 10 MHz,
+    Ro 50 Ω into the 1 kΩ/10 nF anti-alias filter and the ADC's 20 pF: about 39° by hand."""
+    from conftest import REPO
+    from chainplan.spec.loader import load_chain
+    chain = load_chain(str(REPO / "chains" / "photodiode_tia.yaml"))
+    net = "\n".join(["Ish 0 d dc 0 ac 0", "Rsh d 0 1G", "Cd d 0 50p", "Cin d 0 5p", "RF out d 100k", "CF out d 2p",
+                     lc_break("0", "d", 110, 10e6, 50.0), "Raa out aa 1k", "Caa aa 0 10n", "Cadc aa 0 20p"])
+    res, (fc, pm, pk) = check_loop(chain, "tia", net)
+    assert 37 < pm < 41
+
+
+def test_inverting_input_capacitance_loop():
+    net = "\n".join(["Vin in 0 dc 0 ac 0", "RG in m 100k", "RF out m 1meg", "Cin m 0 20p", "RL out 0 10k",
+                     lc_break("0", "m", 120, 10e6, 0.0)])
+    res, (fc, pm, pk) = check_loop(INV_CIN, "amp", net)
+    assert pk == pytest.approx(10.3, abs=0.1)
+
+
+def test_second_order_relation_between_phase_margin_and_peaking():
+    """A two-pole op-amp follower with Ro = 0 and A0 → ∞ has the loop ωc/(s·(1 + s/ωp2)),
+    exactly second order: its peaking is the textbook function of its PM (Ogata; Franco;
+    from memory): 45° ≈ 2.4 dB, 60° ≈ 0.3 dB."""
+    from chainplan.engine.loop import analyse_loops, second_order_peaking_db
+    assert second_order_peaking_db(45.0) == pytest.approx(2.4, abs=0.1)
+    assert second_order_peaking_db(60.0) == pytest.approx(0.3, abs=0.1)
+    assert second_order_peaking_db(76.0) == 0.0
+    for fp2 in ("2 MHz", "5 MHz", "10 MHz", "20 MHz"):
+        chain = chain_from(FOLLOWER_10NF.replace("r_out: 40,", f"f_p2: {fp2},").replace("a0: 110 dB", "a0: 200 dB"))
+        (res,) = analyse_loops(evaluate(chain))
+        assert res.peaking_db[0] == pytest.approx(second_order_peaking_db(res.pm_deg[0]), abs=0.05), fp2

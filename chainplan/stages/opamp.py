@@ -114,6 +114,26 @@ class _OpAmp(StageKind):
         (nodal analysis of the − node); the follower (RF = 0, no RG) has β = 1, gfb = Ym."""
         raise NotImplementedError
 
+    def loop_network(self, p, s, row):
+        """(Zf, y): the feedback branch from the output to the − node and the admittance
+        from the − node to AC ground besides it, as connected (``row`` = (a, b), the
+        Thevenin row driving the stage input, X = a·V + b·I)."""
+        zf = z_feedback(p, s)[0] if "r_f" in p else 0.0
+        return zf, (1.0 / p["r_g"] if "r_g" in p else 0.0) + y_input(p, s)
+
+    def loop_gain(self, p, s, row, y_load):
+        """Loop gain T = A·β/(1 + Ro·(YL + gfb)) as connected: the return ratio of the
+        op-amp's internal source (behind Ro) with the signal source zeroed; β = 1/(1 + Zf·y)
+        is the feedback factor to the − input, gfb = y·β what the feedback network draws
+        from the output, YL the real load (next stages, cable, ADC).  Nodal analysis of
+        the macro model; the classic T = A·β with Ro·CL's extra pole (Franco, stability
+        chapter; Graeme, *Photodiode Amplifiers*, ch. 2; from memory).  Phase margin
+        180° + ∠T at |T| = 1 (chainplan.engine.loop)."""
+        zf, y = self.loop_network(p, s, row)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            beta = 1.0 / (1.0 + zf * y)
+            return beta / (inv_open_loop(p, s) * (1.0 + p["r_out"] * (y_load + y * beta)))
+
     def abcd(self, p, s, op):
         """Non-inverting topology: V1 = (β + (1 + Ro·gfb)/A)·V2 + (Ro/A)·I2, I1 = Yin·V1,
         with β and gfb of the feedback network loaded by the − input (``_feedback``)."""
@@ -249,6 +269,12 @@ class OpampInverting(_OpAmp):
         common-mode error is (ref − mid-supply)/CMRR)."""
         return p["ref"] + (self.dc_errors(p, p["ref"])[0] if "_err" in p else 0.0)
 
+    def loop_network(self, p, s, row):
+        """RG in series with the driving source's Thevenin impedance b/a, and the − input's Ym."""
+        a, b = row
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return z_feedback(p, s)[0], a / (b + a * p["r_g"]) + y_input(p, s)
+
     def dc_input_load(self, p, out_load, op):
         """The input resistor returns to the virtual ground held at ref (+ vos)."""
         return DcLoad(1.0 / p["r_g"], self._ref(p) / p["r_g"])
@@ -294,6 +320,13 @@ class OpampTransimpedance(OpampInverting):
         core = ABCD(vm_v2, vm_i2, (vm_v2 - 1.0) * yf, vm_i2 * yf)
         y_in = inv(p["r_in"]) + s * p["c_in"]
         return chain(shunt_y(y_in), core) if np.any(y_in != 0) else core
+
+    def loop_network(self, p, s, row):
+        """The − input is the stage input: the source's Thevenin admittance a/b (a photodiode's
+        1/R + s·C) and the − input's Ym, against Zf = RF ‖ 1/(s·CF)."""
+        a, b = row
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return 1.0 / self._yf(p, s), a / b + y_input(p, s)
 
     @staticmethod
     def _yf(p, s):
