@@ -21,6 +21,29 @@ def thermal_voltage(temp_k):
     return K_BOLTZMANN * temp_k / Q_ELECTRON
 
 
+#: nominal temperature the parameters are stated at when nothing says otherwise (the chain default, 300 K;
+#: SPICE's own TNOM default is 27 °C = 300.15 K)
+T_NOM_K = 300.0
+
+
+def at_temperature(p: dict) -> dict:
+    """Gummel–Poon temperature equations (as in SPICE-class simulators; ngspice
+    manual, BJT temperature dependence, and bjttemp.c, from memory), with NF = 1:
+    IS(T) = IS·(T/Tnom)^XTI·exp((EG/VT(T))·(T/Tnom − 1)),  β(T) = β·(T/Tnom)^XTB.
+    With EG = 1.11 eV and XTI = 3 (silicon) VBE at a fixed current falls about
+    2 mV/K.  Returns ``p`` with ``i_s`` and ``beta`` at ``p['temp_k']``."""
+    t = p.get("temp_k", T_NOM_K)
+    t_nom = p.get("t_nom_k", T_NOM_K)
+    if np.all(np.asarray(t) == t_nom):
+        return p
+    ratio = t / t_nom
+    q = dict(p)
+    q["i_s"] = p["i_s"] * np.exp(p.get("eg", 1.11) / thermal_voltage(t) * (ratio - 1.0)
+                                 + p.get("xti", 3.0) * np.log(ratio))
+    q["beta"] = p["beta"] * ratio ** p.get("xtb", 0.0)
+    return q
+
+
 def collector_current(i_s, vbe, vcb, va, vt):
     """IC = IS·exp(VBE/VT)·(1 + VCB/VA) in the forward-active region."""
     return i_s * np.exp(np.minimum(vbe / vt, 200.0)) * (1.0 + vcb / va)

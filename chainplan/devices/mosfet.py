@@ -11,6 +11,59 @@ from __future__ import annotations
 import numpy as np
 
 from .solve import bisect
+from ..constants import K_BOLTZMANN, Q_ELECTRON
+
+#: nominal temperature the parameters are stated at when nothing says otherwise (the chain default, 300 K;
+#: SPICE's own TNOM default is 27 °C = 300.15 K)
+T_NOM_K = 300.0
+#: mobility temperature exponent of the level-1 model: KP ∝ (T/Tnom)^−1.5 (ngspice mos1temp, ratio4)
+KP_EXPONENT = -1.5
+#: the reference temperature of ngspice's band-gap forms (REFTEMP, 300.15 K)
+_REFTEMP = 300.15
+
+
+def _egap_ev(t):
+    """Silicon band gap Eg(T) = 1.16 − 7.02e-4·T²/(T + 1108) eV (the Varshni form SPICE uses)."""
+    return 1.16 - 7.02e-4 * t * t / (t + 1108.0)
+
+
+def _pbfact(t):
+    """ngspice's junction-potential temperature term −2·VT·(1.5·ln(T/REFTEMP) + q·arg)."""
+    vt = K_BOLTZMANN * t / Q_ELECTRON
+    arg = -_egap_ev(t) * Q_ELECTRON / (2.0 * K_BOLTZMANN * t) + 1.1150877 * Q_ELECTRON / (2.0 * K_BOLTZMANN * _REFTEMP)
+    return -2.0 * vt * (1.5 * np.log(t / _REFTEMP) + arg)
+
+
+def spice_threshold_at(vto, gamma, phi, t, t_nom):
+    """(VTO(T), PHI(T)) as SPICE's level-1 model derives them from PHI and the band
+    gap (ngspice source, mos1temp.c, from memory of its equations):
+    PHI(T) = (T/Tr)·(PHI − pb(Tnom))/(Tnom/Tr) + pb(T),
+    Vbi(T) = VTO − γ√PHI + (Eg(Tnom) − Eg(T))/2 + (PHI(T) − PHI)/2,  VTO(T) = Vbi(T) + γ√PHI(T)."""
+    phio = (phi - _pbfact(t_nom)) / (t_nom / _REFTEMP)
+    t_phi = (t / _REFTEMP) * phio + _pbfact(t)
+    vbi = vto - gamma * np.sqrt(phi) + 0.5 * (_egap_ev(t_nom) - _egap_ev(t)) + 0.5 * (t_phi - phi)
+    return vbi + gamma * np.sqrt(t_phi), t_phi
+
+
+def at_temperature(p: dict) -> dict:
+    """Level-1 parameters at the stage's temperature ``p['temp_k']`` from their values at
+    ``p['t_nom_k']``: KP(T) = KP·(T/Tnom)^−1.5 (mobility ∝ T^−1.5, Sze, *Physics of
+    Semiconductor Devices*, lattice scattering, from memory; the SPICE level-1 form);
+    VTO(T) = VTO + vth_tc·(T − Tnom) for a data-sheet coefficient, or, with
+    ``vth_tc: spice``, SPICE's own derivation from PHI and the band gap
+    (:func:`spice_threshold_at`), which also moves PHI."""
+    t = p.get("temp_k", T_NOM_K)
+    t_nom = p.get("t_nom_k", T_NOM_K)
+    tc = p.get("vth_tc", 0.0)
+    if np.all(np.asarray(t) == t_nom):
+        return p
+    q = dict(p)
+    q["kp"] = p["kp"] * (t / t_nom) ** KP_EXPONENT
+    if isinstance(tc, str):          # 'spice'
+        q["vth0"], q["phi"] = spice_threshold_at(p["vth0"], p["gamma"], p["phi"], t, t_nom)
+    else:
+        q["vth0"] = p["vth0"] + tc * (t - t_nom)
+    return q
 
 
 def threshold(vth0, gamma, phi, vsb):

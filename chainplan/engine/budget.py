@@ -19,8 +19,8 @@ SQRT_HALF = 1.0 / np.sqrt(2.0)
 
 
 def nominal_params(chain: Chain) -> dict:
-    """Per-stage parameter dicts with the chain temperature added."""
-    return {st.name: {**st.params, "temp_k": chain.temp_k} for st in chain.all_stages}
+    """Per-stage parameter dicts with the chain temperature and the parts' nominal temperature added."""
+    return {st.name: {**st.params, "temp_k": chain.temp_k, "t_nom_k": chain.t_nom_k} for st in chain.all_stages}
 
 
 def frequency_grid(chain: Chain) -> np.ndarray:

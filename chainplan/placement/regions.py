@@ -119,9 +119,10 @@ class Regions:
         self.uni = [is_cut(c.stage) for c in cands]
         self.out_stage = _output_stage(chain)
         t = chain.temp_k
-        self.orig = {st.name: Element(st, t) for st in chain.stages}
-        self.cand_el = [Element(c.stage, t, c) for c in cands]
-        self.bias_el = [Element(c.input_bias, t) if c.input_bias is not None else None for c in cands]
+        tn = chain.t_nom_k
+        self.orig = {st.name: Element(st, t, t_nom_k=tn) for st in chain.stages}
+        self.cand_el = [Element(c.stage, t, c, t_nom_k=tn) for c in cands]
+        self.bias_el = [Element(c.input_bias, t, t_nom_k=tn) if c.input_bias is not None else None for c in cands]
         self.shared = {"memo": {}, "layouts": {}, "groups": {}}   # DC solutions per element and input row
         self.waves: dict = {}
         self.calls = 0
@@ -297,7 +298,7 @@ class Regions:
                 stages.append(_SwitchStage(name=alias[w.node[j]] if w.node[j] > 0 else f"@load{j}", kind="switch",
                                            params={}, parent=parent, switch=sw))
         sub = Chain(name=self.chain.name, description="", source=src, stages=stages, rails=self.chain.rails,
-                    temp_k=self.chain.temp_k, analysis=Analysis(f_ref_hz=self.chain.analysis.f_ref_hz),
+                    temp_k=self.chain.temp_k, t_nom_k=self.chain.t_nom_k, analysis=Analysis(f_ref_hz=self.chain.analysis.f_ref_hz),
                     path=self.chain.path)
         w.subs[kept] = (sub, alias)
         return sub, alias

@@ -38,9 +38,9 @@ class Element:
     """An original stage, a candidate follower or a candidate's input bias network, with its
     parameters, as it can appear in regions."""
 
-    def __init__(self, stage: Stage, temp_k: float, candidate: Candidate | None = None):
+    def __init__(self, stage: Stage, temp_k: float, candidate: Candidate | None = None, t_nom_k: float = 300.0):
         self.stage, self.model, self.kind = stage, stage.model, stage.kind
-        self.p = {**stage.params, "temp_k": temp_k}
+        self.p = {**stage.params, "temp_k": temp_k, "t_nom_k": t_nom_k}
         self.candidate = candidate                      # a buffer: its cost
         self.uid = float(next(_uids))
         self.term_op: Op | None = None

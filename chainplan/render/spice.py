@@ -356,8 +356,15 @@ def _channel_noise_notes(b: _Builder, st: Stage, p) -> None:
 
 def _mos_model(b: _Builder, st: Stage, p) -> str:
     name = f"nm_{re.sub(r'[^a-z0-9_]', '_', st.name.lower())}"
-    b.models.append(f".model {name} nmos level=1 kp={_num(p['kp'])} vto={_num(p['vth0'])} "
-                    f"lambda={_num(p['lambda'])} gamma={_num(p['gamma'])} phi={_num(p['phi'])}")
+    if isinstance(p.get("vth_tc"), str):          # 'spice': the simulator derives VTO(T) itself
+        kp, vto, tnom = p["kp"], p["vth0"], p["t_nom_k"]
+    else:                                         # a data-sheet dVth/dT: the card holds the values at T
+        from ..devices.mosfet import at_temperature
+        q = at_temperature(p)
+        kp, vto, tnom = q["kp"], q["vth0"], p["temp_k"]
+    b.models.append(f".model {name} nmos level=1 kp={_num(kp)} vto={_num(vto)} "
+                    f"lambda={_num(p['lambda'])} gamma={_num(p['gamma'])} phi={_num(p['phi'])} "
+                    f"tnom={tnom - 273.15:.6g}")
     return name
 
 
@@ -420,7 +427,8 @@ def _sink(b: _Builder, wanted, a, c, amps, r_out, noise_a):
 def _bjt_model(b: _Builder, st: Stage, p) -> str:
     name = f"qn_{re.sub(r'[^a-z0-9_]', '_', st.name.lower())}"
     va = "" if math.isinf(_val(p["va"])) else f" vaf={_num(p['va'])}"
-    b.models.append(f".model {name} npn is={_num(p['i_s'])} bf={_num(p['beta'])}{va}")
+    b.models.append(f".model {name} npn is={_num(p['i_s'])} bf={_num(p['beta'])}{va} xti={_num(p['xti'])} "
+                    f"eg={_num(p['eg'])} xtb={_num(p['xtb'])} tnom={p['t_nom_k'] - 273.15:.6g}")
     return name
 
 
@@ -535,7 +543,8 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
     rails = [ln for node, (v, rail) in b.rail_lines.items() for ln in
              ((f"* rail '{rail}'",) if rail else ()) + (f"V{node} {node} 0 DC {_num(v)}",)]
     circuit = ["* --- supplies and bias voltages", *rails, f"* --- {src.name}: sensor",
-               *b.lines, *b.models, f".options temp={t_c:.6g} tnom={t_c:.6g}"]
+               *b.lines, *b.models,
+               f".options temp={t_c:.6g} tnom={chain.t_nom_k - 273.15:.6g}"]
     a = chain.analysis
     sweep = f"dec {points_per_decade} {_num(a.f_start_hz)} {_num(a.f_stop_hz)}"
     analyses = ["* analyses (any SPICE-class simulator)", ".op", f".ac {sweep}",

@@ -19,7 +19,7 @@ from .units import UnitError, parse_toleranced, parse_value
 from .yamlsrc import LDict, LList, load_file, load_text
 
 HAZARDS = ("mains", "high_voltage", "patient")
-TOP_KEYS = ("name", "description", "hazards", "temperature", "rails", "source", "stages", "analysis",
+TOP_KEYS = ("name", "description", "hazards", "temperature", "t_nom", "rails", "source", "stages", "analysis",
             "requirements", "include", "candidates", "corners")
 ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None,
                  "noise_band": "Hz", "signal_band": "Hz", "mid_band": "Hz"}
@@ -70,15 +70,20 @@ def build_chain(doc, path: str) -> Chain:
     name = _text(ctx, doc, "name")
     description = _text(ctx, doc, "description") if "description" in doc else ""
     hazards = _hazards(ctx, doc)
-    raw_t = doc.get("temperature")
-    if isinstance(raw_t, (int, float)) and not isinstance(raw_t, bool) or (
-            isinstance(raw_t, str) and re.fullmatch(r"\s*[+\-−]?[\d.]+([eE][+\-]?\d+)?\s*", raw_t)):
-        raise ctx.err(f"'{raw_t}' has no unit: a bare temperature is ambiguous; write e.g. '298 K' or '25 °C'",
-                      doc.line_of("temperature"), "temperature")
+    for key in ("temperature", "t_nom"):
+        raw_t = doc.get(key)
+        if isinstance(raw_t, (int, float)) and not isinstance(raw_t, bool) or (
+                isinstance(raw_t, str) and re.fullmatch(r"\s*[+\-−]?[\d.]+([eE][+\-]?\d+)?\s*", raw_t)):
+            raise ctx.err(f"'{raw_t}' has no unit: a bare temperature is ambiguous; write e.g. '298 K' or '25 °C'",
+                          doc.line_of(key), key)
     temp_k = _number(ctx, doc, "temperature", "K", "300 K")
     if temp_k <= 0:
         raise ctx.err("temperature must be above 0 K (absolute zero)", doc.line_of("temperature"), "temperature")
     check_range(ctx, TEMPERATURE, temp_k, None, doc.line_of("temperature"), "temperature")
+    t_nom_k = _number(ctx, doc, "t_nom", "K", "300 K")
+    if t_nom_k <= 0:
+        raise ctx.err("t_nom must be above 0 K (absolute zero)", doc.line_of("t_nom"), "t_nom")
+    check_range(ctx, TEMPERATURE, t_nom_k, None, doc.line_of("t_nom"), "t_nom")
     rails = _rails(ctx, doc)
     tolerances: dict[tuple[str, str], object] = {}
     rail_tol = rails.pop("__tol__")
@@ -88,7 +93,8 @@ def build_chain(doc, path: str) -> Chain:
     source = _stage(ctx, src_node, rails, tolerances, default_name="sensor", is_source=True)
     stages = _stages(ctx, doc, rails, tolerances, source)
     chain = Chain(name=name, description=description, source=source, stages=stages,
-                  rails={k: v for k, v in rails.items()}, temp_k=temp_k, hazards=hazards, path=path)
+                  rails={k: v for k, v in rails.items()}, temp_k=temp_k, t_nom_k=t_nom_k, hazards=hazards,
+                  path=path)
     chain.analysis = _analysis(ctx, doc, chain)
     chain.extra["tolerances"] = tolerances
     chain.extra["rail_tolerances"] = rail_tol

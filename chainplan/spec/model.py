@@ -58,6 +58,7 @@ class Chain:
     stages: list[Stage]                # topological order (parents before children)
     rails: dict[str, float]
     temp_k: float = 300.0
+    t_nom_k: float = 300.0             # temperature the parts' values are stated at (SPICE TNOM)
     analysis: Analysis = field(default_factory=Analysis)
     hazards: list[str] = field(default_factory=list)
     path: str | None = None

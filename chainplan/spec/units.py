@@ -152,6 +152,7 @@ UNITS: dict[str, Unit] = {u.id: u for u in (
          ("V/K", "V/°C", "V/degC", "V/\u2103")),
     Unit("ppm/K", "ppm/K", "relative temperature coefficient", "25 ppm/K", "ppm per kelvin",
          ("ppm/K", "ppm/°C", "ppm/degC", "ppm/\u2103"), "none"),
+    Unit("eV", "eV", "energy in electronvolts", "1.11 eV", "electronvolts", ("eV",)),
     Unit("A/V2", "A/V²", "transconductance parameter", "200 µA/V²",
          "amperes per volt squared", ("A/V²", "A/V^2", "A/V2")),
     Unit("sqrtV", "√V", "body-effect coefficient", "0.4 √V", "root volts",

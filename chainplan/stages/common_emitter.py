@@ -30,6 +30,7 @@ class CommonEmitter(StageKind):
         return DcLoad(0.0, 0.0) if op is None else op.input_load
 
     def dc_forward(self, p, st_in, v_in, out_load):
+        p = bjt.at_temperature(p)
         vt = bjt.thermal_voltage(p["temp_k"])
         re = np.asarray(p["r_e"], dtype=float)
         re_safe = np.where(re > 0, re, 1.0)

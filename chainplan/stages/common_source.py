@@ -39,6 +39,7 @@ class CommonSource(StageKind):
         return (lambda vd: p["i_load"] + (p["drain"] - vd) * inv(p["r_load"])), p["r_load"]
 
     def dc_forward(self, p, st_in, v_in, out_load):
+        p = mosfet.at_temperature(p)
         supply, r_load = self._supply(p)
         v_b = mosfet.bulk_voltage(p)
         rs = np.asarray(p["r_s"], dtype=float)

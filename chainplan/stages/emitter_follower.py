@@ -39,6 +39,7 @@ class EmitterFollower(StageKind):
         return DcLoad(0.0, 0.0) if op is None else op.input_load
 
     def dc_forward(self, p, st_in, v_in, out_load):
+        p = bjt.at_temperature(p)
         vt = bjt.thermal_voltage(p["temp_k"])
         r_low = self._r_to_low(p)
         i_src = p["i_bias"] if p.get("i_bias") is not None else 0.0

@@ -49,6 +49,7 @@ class SourceFollower(StageKind):
         return DcLoad(0.0, -doubled(p, "i_gate", p["gate_doubling"])) if "_err" in p else DcLoad(0.0, 0.0)
 
     def dc_forward(self, p, st_in, v_in, out_load):
+        p = mosfet.at_temperature(p)
         bias, r_to_low = self._bias(p)
         v_b = mosfet.bulk_voltage(p)
         vs, i_d, vov, vth, vsb = mosfet.solve_source(
