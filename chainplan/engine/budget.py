@@ -12,6 +12,7 @@ import numpy as np
 from .cascade import AcResult, run_ac
 from .dcpass import DcResult, solve_dc
 from .swing import class_a_limits
+from .workspace import Workspace
 from ..errors import SpecError
 from ..spec.model import Chain
 
@@ -40,6 +41,10 @@ class Evaluation:
     dc: DcResult
     ac: AcResult
     output: str
+    #: recycled work arrays of a Monte Carlo chunk (None: plain numpy allocation)
+    ws: Workspace | None = None
+    #: figures derived once per evaluation (e.g. the Monte Carlo's noise powers); not copied by replace()
+    cache: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     @property
     def span(self) -> np.ndarray:
@@ -180,16 +185,19 @@ def _edge(span, ref, logf, mask, last):
     return np.where(has & (idx != nb), f, np.nan)
 
 
-def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None = None) -> Evaluation:
+def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None = None,
+             ws: Workspace | None = None) -> Evaluation:
+    """DC and AC analysis; with a :class:`Workspace` (a Monte Carlo chunk) the AC arrays
+    live in its recycled memory, valid until it is recycled."""
     params = params if params is not None else nominal_params(chain)
     f_hz = frequency_grid(chain) if f_hz is None else f_hz
     # A floating node or an impossible bias gives non-finite numbers in some samples;
     # they are reported per sample (check_operating_points, valid), not as numpy warnings.
     with np.errstate(divide="ignore", invalid="ignore"):
         dc = solve_dc(chain, params)
-        ac = run_ac(chain, params, dc.ops, f_hz)
+        ac = run_ac(chain, params, dc.ops, f_hz, ws)
         class_a_limits(chain, params, dc, ac, band_columns(chain, f_hz))
-    return Evaluation(chain, params, f_hz, dc, ac, chain.output_node())
+    return Evaluation(chain, params, f_hz, dc, ac, chain.output_node(), ws)
 
 
 # -- the nominal budget --------------------------------------------------------

@@ -24,6 +24,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import workspace as wsa
+from .workspace import Workspace
 from ..spec.model import Chain
 
 
@@ -56,30 +58,58 @@ class AcResult:
     y_in: dict                # stage -> input admittance as connected, (S, F)
     abcd: dict                # stage -> ABCD of the stage
 
+    def full_row(self, node):
+        """The row (A_n, B_n) of a node with its carried scale applied."""
+        return self.row[node]
 
-def run_ac(chain: Chain, params: dict, ops: dict, f_hz: np.ndarray) -> AcResult:
+
+def run_ac(chain: Chain, params: dict, ops: dict, f_hz: np.ndarray, ws: Workspace | None = None) -> AcResult:
+    """Both passes over the grid ``f_hz``.  With a :class:`Workspace` the admittances
+    and rows are written into its recycled arrays (a Monte Carlo chunk); the values
+    are the same as without one."""
     s = (2j * np.pi * np.asarray(f_hz, dtype=float))[None, :]
     abcd, y_in = {}, {}
-    node_y = {n: 0.0 * s for n in chain.nodes}
+    zero = 0.0 * s
+    node_y = {n: zero for n in chain.nodes}
+    own_y = set()                                          # node sums written into arrays of ours
     for st in reversed(chain.stages):                      # backward: loads
         p, op = params[st.name], ops[st.name]
         if st.role == "load":
-            y = st.model.load_admittance(p, s, op) + 0.0 * s
+            y = st.model.load_admittance(p, s, op) + zero
         else:
             m = abcd[st.name] = st.model.abcd(p, s, op)
             yl = node_y[st.name]
-            y = (m.C + m.D * yl) / (m.A + m.B * yl)
+            y = _input_admittance(m, yl if yl is not zero else 0.0, ws)
+            if np.ndim(y) < 2 or np.shape(y)[1] != s.shape[1]:
+                y = y + zero                               # every admittance over the whole grid
         y_in[st.name] = y
-        node_y[st.parent] = node_y[st.parent] + y
+        total = node_y[st.parent]
+        if total is zero:
+            node_y[st.parent] = y                          # one reader: its admittance is the node's
+        elif st.parent in own_y:
+            node_y[st.parent] = wsa.add_into(total, y)
+        else:
+            node_y[st.parent] = wsa.add(total, y, ws)
+            own_y.add(st.parent)
     src = chain.source
     row = {src.name: src.model.source_row(params[src.name], s)}   # (1, Zs) or Norton (Ys, 1)
     branch_row = {}
     readers = Counter(st.parent for st in chain.stages)
     for st in chain.stages:                                 # forward: Thevenin rows
         a, b = row[st.parent]
-        a_br = a + b * (node_y[st.parent] - y_in[st.name]) if readers[st.parent] > 1 else a   # siblings
-        branch_row[st.name] = (a_br, b)
+        if readers[st.parent] > 1:                          # siblings folded in
+            others = np.subtract(node_y[st.parent], y_in[st.name], out=wsa.lend(ws, node_y[st.parent], y_in[st.name]))
+            a = wsa.mul_add(a, b, others, ws)
+        branch_row[st.name] = (a, b)
         if st.role == "two_port":
             m = abcd[st.name]
-            row[st.name] = (a_br * m.A + b * m.C, a_br * m.B + b * m.D)
+            row[st.name] = (wsa.dot2(a, m.A, b, m.C, ws), wsa.dot2(a, m.B, b, m.D, ws))
     return AcResult(np.asarray(f_hz, dtype=float), NodeGains(row, node_y), node_y, row, branch_row, y_in, abcd)
+
+
+def _input_admittance(m, yl, ws):
+    """Yin = (C + D·YL)/(A + B·YL) of a two-port terminated by YL (the quotient written
+    into the numerator when that is a fresh array)."""
+    num = wsa.mul_add(m.C, m.D, yl, ws)
+    den = wsa.mul_add(m.A, m.B, yl, ws)
+    return wsa.div(num, den, ws, owned=not any(num is x for x in (m.C, m.D, yl)))

@@ -35,6 +35,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .budget import Budget, Evaluation
+from . import workspace as wsa
 from .cascade import run_ac
 
 #: Full-scale sine SNR of an ideal N-bit converter is 6.02·N + 1.76 dB, hence
@@ -70,44 +71,57 @@ class NoiseResult:
         return sorted(self.shares, key=lambda n: -np.nan_to_num(self.shares[n][0]))
 
 
-def analyse_noise(ev: Evaluation, bandwidth_hz=None) -> NoiseResult:
+def analyse_noise(ev: Evaluation, bandwidth_hz=None, powers_only: bool = False) -> NoiseResult:
     """Noise at the output node of an evaluation.  ``bandwidth_hz``: None integrates
     over the spec's ``analysis.noise_band`` or, without one, the whole span; a
     number ``B`` integrates from the span's start to ``B``; a pair ``(low, high)``
-    integrates between them (brick-wall edges)."""
+    integrates between them (brick-wall edges).  ``powers_only`` (tolerance runs):
+    each generator's integrated power straight from |transfer|² (:func:`output_powers`),
+    no densities kept (``out_density`` None, ``contributors`` empty) and no notes."""
     whole_span = bandwidth_hz is None and ev.chain.analysis.noise_band_hz is None
     bandwidth_hz = ev.chain.analysis.noise_band_hz if bandwidth_hz is None else bandwidth_hz
     band = integration_band(ev.span, bandwidth_hz)
     w = band_weights(ev.span, *band)
-    gens = output_psds(ev, float(np.sum(w)))
-    shape = (ev.samples, len(ev.f_hz))          # the gain may not vary with every varied input (temperature)
-    total = np.zeros(shape)
-    contributors, powers = [], {}
-    for _, name, psd, power in gens:
-        power = np.broadcast_to(psd[:, 1:] @ w if power is None else power, (shape[0],))
-        contributors.append((name, psd[:, 1:]))
-        powers[name] = power
-        total = total + psd
-    p_tot = sum(powers.values(), np.zeros(shape[0]))
+    n = ev.samples                              # the gain may not vary with every varied input (temperature)
+    contributors, powers, stage_of, total = [], {}, {}, None
+    if powers_only:
+        for stage, name, power in output_powers(ev, w, float(np.sum(w))):
+            powers[name], stage_of[name] = np.broadcast_to(power, (n,)), stage
+    else:
+        total = np.zeros((n, len(ev.f_hz)))
+        for stage, name, psd, power in output_psds(ev, float(np.sum(w))):
+            powers[name] = np.broadcast_to(psd[:, 1:] @ w if power is None else power, (n,))
+            contributors.append((name, psd[:, 1:]))
+            stage_of[name] = stage
+            total = total + psd
+    p_tot = sum(powers.values(), np.zeros(n))
     with np.errstate(divide="ignore", invalid="ignore"):
-        shares = {n: p / p_tot for n, p in powers.items()}
+        shares = {k: p / p_tot for k, p in powers.items()}
         out_vrms = np.sqrt(p_tot)
         gain_ref = np.abs(ev.gain()[:, 0])
         in_vrms = out_vrms / gain_ref
         conv, fs = converter(ev)
         amp = np.ravel(np.asarray(ev.params[ev.chain.source.name]["amplitude"], dtype=float))
-        snr_fs = _db(fs / (2 * SQRT2), out_vrms) if conv else np.full(shape[0], np.nan)
+        snr_fs = _db(fs / (2 * SQRT2), out_vrms) if conv else np.full(n, np.nan)
         snr = _db(amp * gain_ref / SQRT2, out_vrms)
         dr = _db(_largest_sine(ev) / SQRT2, out_vrms)
+    notes = [] if powers_only else (noise_notes(ev) + (span_notes(ev) if whole_span else []) + _clip_note(
+        ev.chain.analysis.noise_band_hz if bandwidth_hz is ev.chain.analysis.noise_band_hz else None, band))
     return NoiseResult(
-        f_hz=ev.span, out_density=np.sqrt(total[:, 1:]), contributors=contributors, shares=shares,
-        out_vrms=out_vrms, in_vrms=in_vrms, snr_fs_db=snr_fs, snr_db=snr, dynamic_range_db=dr,
+        f_hz=ev.span, out_density=None if total is None else np.sqrt(total[:, 1:]), contributors=contributors,
+        shares=shares, out_vrms=out_vrms, in_vrms=in_vrms, snr_fs_db=snr_fs, snr_db=snr, dynamic_range_db=dr,
         enob_bits=(snr_fs - ENOB_OFFSET_DB) / DB_PER_BIT, output=ev.output, converter=conv, band_hz=band,
-        gain_ref=gain_ref, vrms={n: np.sqrt(p) for n, p in powers.items()},
-        stage_of={name: stage for stage, name, _, _ in gens},
-        neglected=neglected_stages(ev), notes=noise_notes(ev) + (span_notes(ev) if whole_span else [])
-        + _clip_note(ev.chain.analysis.noise_band_hz if bandwidth_hz is ev.chain.analysis.noise_band_hz else None,
-                     band))
+        gain_ref=gain_ref, vrms={k: np.sqrt(p) for k, p in powers.items()}, stage_of=stage_of,
+        neglected=neglected_stages(ev), notes=notes)
+
+
+def noise_powers(ev: Evaluation) -> NoiseResult:
+    """The powers-only noise analysis of an evaluation over the spec's band, computed
+    once per evaluation (the Monte Carlo's metrics and its SNR/ENOB requirements share it)."""
+    res = ev.cache.get("noise_powers")
+    if res is None:
+        res = ev.cache["noise_powers"] = analyse_noise(ev, powers_only=True)
+    return res
 
 
 def _clip_note(declared, band) -> list:
@@ -171,6 +185,83 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
             t = h * dvs
             res.append((st.name, name, np.broadcast_to(g.psd * (t.real ** 2 + t.imag ** 2), shape), None))
     return res
+
+
+def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
+    """Every generator's power at the output integrated with the weights ``w`` over the
+    span: [(stage, name, power (S,) V²)], the same generators and transfers as
+    :func:`output_psds` (converter powers alike) but summed at once:
+    ``Σ_f w·psd·|H|²·|ΔVs|²``, with ``w·|H|²`` formed once and each ``|ΔVs|²`` summed
+    against it as a real dot product over (Re, Im) pairs — no complex transfer or
+    density array is kept per generator."""
+    chain, ac, ws = ev.chain, ev.ac, ev.ws
+    out = ev.output
+    s = (2j * np.pi * ev.f_hz)[None, :]
+    h = ev.gain()[:, 1:]
+    hw2 = np.repeat((h.real ** 2 + h.imag ** 2) * w, 2, axis=1)      # w·|H|² beside Re and Im
+    n = h.shape[0]
+    on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
+    conv, _ = converter(ev)
+    f_sample = sample_rate(ev.chain, conv)
+    in_band = 1.0 if f_sample is None else min(1.0, bandwidth / (f_sample / 2.0))
+    span = lambda x: x[:, 1:] if np.ndim(x) == 2 and np.shape(x)[1] > 1 else x  # noqa: E731
+    res = []
+    for st in chain.all_stages:
+        if st.name not in on_path and st.parent not in on_path:
+            continue
+        p = ev.params[st.name]
+        for g in st.model.noise(p, s, ev.dc.ops[st.name], p["temp_k"]):
+            name = f"{st.name}: {g.label}"
+            if g.power_v2 is not None:
+                if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
+                    res.append((st.name, name, np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float))
+                                                               * in_band, (n,))))
+                continue
+            if not np.any(np.asarray(g.psd) != 0):
+                continue
+            if st.name in on_path:
+                a, b = ac.branch_row.get(st.name, (0.0, 0.0))
+                dvs = _terms(((ac.row[st.name][0], g.out_v), (ac.row[st.name][1], g.out_i)), span, ws)
+                dvs = _sub(dvs, _terms(((a, g.in_v), (b, g.in_i)), span, ws), ws)
+            else:
+                dvs = _sub(_terms(((ac.y_in[st.name], g.in_v),), span, ws), _terms(((1.0, g.in_i),), span, ws), ws)
+                dvs = wsa.mul(span(ac.row[st.parent][1]), dvs, ws)
+            res.append((st.name, name, _weighted_power(dvs, span(np.asarray(g.psd, dtype=float)), hw2, n, ws)))
+    return res
+
+
+def _terms(pairs, pick, ws):
+    """Σ row·coef over the coefficients that are not all zero, on the columns ``pick`` keeps."""
+    out = 0.0
+    for r, c in pairs:
+        if np.any(np.asarray(c) != 0):
+            t = wsa.mul(pick(r), pick(c), ws)
+            out = t if wsa.plain(out, 0.0) else wsa.add(out, t, ws)
+    return out
+
+
+def _sub(x, y, ws):
+    """x − y, skipping a plain 0."""
+    if wsa.plain(y, 0.0):
+        return x
+    return np.subtract(x, y, out=wsa.lend(ws, x, y))
+
+
+def _weighted_power(dvs, psd, hw2, n, ws):
+    """Σ_f psd·hw·|dvs|² per sample, with hw2 = w·|H|² repeated beside Re and Im."""
+    dvs = np.broadcast_to(np.asarray(dvs, dtype=complex), (n, hw2.shape[1] // 2))
+    if dvs.strides[1] != dvs.itemsize:                               # (Re, Im) pairs must be adjacent
+        dvs = np.ascontiguousarray(dvs)
+    q = dvs.view(float)
+    lend = (lambda shape: None) if ws is None else (lambda shape: ws.empty(shape, float))  # noqa: E731
+    q2 = np.square(q, out=lend(q.shape))
+    if np.ndim(psd) == 2 and np.shape(psd)[1] > 1:                   # a density with a 1/f corner
+        return _rowdot(q2, np.multiply(hw2, np.repeat(psd, 2, axis=1), out=lend(hw2.shape)))
+    return np.ravel(psd) * _rowdot(q2, hw2) if np.ndim(psd) else psd * _rowdot(q2, hw2)
+
+
+#: Σ_j x_ij·y_ij per row (numpy ≥ 2 has it built in)
+_rowdot = getattr(np, "vecdot", lambda x, y: np.einsum("ij,ij->i", x, y))
 
 
 def _combine(rows, coefs):

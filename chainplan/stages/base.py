@@ -260,11 +260,17 @@ def dc_load_shunt_r(load: DcLoad, r, v_ref) -> DcLoad:
 
 
 def _inv(x):
-    """1/x with 1/inf = 0 (exact for infinite resistances)."""
+    """1/x with 1/inf = 0 (exact for infinite resistances).  IEEE division already
+    gives 1/±inf = ±0 for real x and for complex x with a finite imaginary part
+    (every admittance here: an infinite conductance plus a finite susceptance), so
+    only a complex x with an infinite or undefined imaginary part takes the extra
+    pass that replaces its quotient by 0."""
     x = np.asarray(x)
     with np.errstate(divide="ignore", invalid="ignore"):
         r = 1.0 / x
-    return np.where(np.isinf(x), 0.0, r)
+    if x.dtype.kind == "c" and not np.isfinite(x.imag).all():
+        r = np.where(np.isinf(x), 0.0, r)
+    return r if r.ndim else np.asarray(r)
 
 
 def parallel(*zs):

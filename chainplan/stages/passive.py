@@ -82,13 +82,15 @@ class Passive(StageKind):
         through the sections before it, M: an EMF e there is (in_v, in_i) = (M_A, M_C)·e,
         a current i is (M_B, M_D)·i (chain noise representation, Hillbrand & Russer 1976)."""
         out, m = [], ABCD(1.0, 0.0, 0.0, 1.0)
-        for sec in self.sections(p):
+        sections = self.sections(p)
+        for i, sec in enumerate(sections):
             label = f"{sec.name or sec.what} thermal"
             if sec.what == "series_r":
                 out.append(NoiseSource(label, thermal_v(sec.value, temp_k), in_v=m.A, in_i=m.C))
             elif sec.what == "shunt_r":
                 out.append(NoiseSource(label, thermal_i(sec.value, temp_k), in_v=m.B, in_i=m.D))
-            m = chain(m, section_abcd(sec, s))
+            if i + 1 < len(sections):          # the product through the last section is not needed
+                m = chain(m, section_abcd(sec, s))
         return out
 
 

@@ -24,11 +24,13 @@ import dataclasses
 
 import importlib.util
 import os
+import threading
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..engine.budget import evaluate, frequency_grid
+from ..engine.workspace import Workspace
 from ..spec.model import Chain
 from .requirements import ReqResult, evaluate_requirements, per_sample
 from .tolerances import Draws, draw
@@ -111,8 +113,8 @@ def metrics(ev) -> dict:
             buffers = buffers + (per(pw) if st.model.follower_type else 0.0)
     out["power_w"], out["buffer_power_w"] = per(power), per(buffers)
     if has_noise():
-        from ..engine.noise import analyse_noise
-        nr = analyse_noise(ev)
+        from ..engine.noise import noise_powers
+        nr = noise_powers(ev)
         for key in ("out_vrms", "in_vrms"):
             out[f"noise_{key}"] = per(getattr(nr, key))
         out["snr_db"], out["enob_bits"] = per(nr.snr_db), per(nr.enob_bits)
@@ -162,15 +164,32 @@ def run(chain: Chain, samples: int, seed: int = 1, chunk: int | None = None, pro
     return run_draws(draw(chain, samples, seed), seed, chunk, progress, key, workers)
 
 
+_local = threading.local()
+
+
+def _workspace() -> Workspace:
+    """This thread's recycled work arrays (chunks on one thread run one after another)."""
+    ws = getattr(_local, "ws", None)
+    if ws is None:
+        ws = _local.ws = Workspace()
+    return ws
+
+
 def _chunk(d: Draws, sl: slice):
-    """(metrics, requirement results, validity) of samples ``sl``."""
-    ev = evaluate(d.chain, d.params(sl))
-    n = sl.stop - sl.start
-    wide = lambda x: np.broadcast_to(x, (n,))  # noqa: E731 - nothing varied: one sample stands for all
-    reqs = [dataclasses.replace(r, value=wide(r.value), margin=wide(r.margin), passed=wide(r.passed),
-                                where=None if r.where is None else (r.where[0], wide(r.where[1])))
-            for r in evaluate_requirements(ev)]
-    return ({k: wide(v) for k, v in metrics(ev).items()}, reqs, wide(ev.valid) & d.valid[sl])
+    """(metrics, requirement results, validity) of samples ``sl``.  The evaluation's
+    arrays live in the thread's workspace: every figure is copied out (``wide``)
+    before the workspace is recycled for the next chunk."""
+    ws = _workspace()
+    try:
+        ev = evaluate(d.chain, d.params(sl), ws=ws)
+        n = sl.stop - sl.start
+        wide = lambda x: np.array(np.broadcast_to(x, (n,)))  # noqa: E731 - nothing varied: one sample stands for all
+        reqs = [dataclasses.replace(r, value=wide(r.value), margin=wide(r.margin), passed=wide(r.passed),
+                                    where=None if r.where is None else (r.where[0], wide(r.where[1])))
+                for r in evaluate_requirements(ev)]
+        return ({k: wide(v) for k, v in metrics(ev).items()}, reqs, wide(ev.valid) & d.valid[sl])
+    finally:
+        ws.recycle()
 
 
 def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None,

@@ -261,8 +261,8 @@ class _Views:
 
     @functools.cached_property
     def noise(self):
-        from ..engine.noise import analyse_noise
-        return analyse_noise(self.ev)
+        from ..engine.noise import noise_powers
+        return noise_powers(self.ev)       # SNR and ENOB need the integrated powers only
 
 
 def _gain_db(v: _Views, r):
