@@ -20,5 +20,5 @@ def run(args) -> int:
     else:
         from ..render.console import make_console
         from ..render.tables import budget_tables
-        budget_tables(b, make_console())
+        budget_tables(b, make_console(wide=args.wide))
     return 0

@@ -66,7 +66,7 @@ def _advise(chain, args) -> int:
     else:
         from ..render.advisor_tables import advice_tables
         from ..render.console import make_console
-        advice_tables(a, make_console(), only=args.interface)
+        advice_tables(a, make_console(wide=args.wide), only=args.interface)
     return 0
 
 
@@ -133,7 +133,7 @@ def _place(chain, args) -> int:
     else:
         from ..render.advisor_tables import plan_tables
         from ..render.console import make_console
-        console = make_console()
+        console = make_console(wide=args.wide)
         plan_tables(plan, console, reqs)
         if written:
             console.print(f"wrote {written}")

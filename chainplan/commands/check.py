@@ -33,5 +33,5 @@ def run(args) -> int:
     else:
         from ..render.check_tables import check_tables
         from ..render.console import make_console
-        check_tables(checked, make_console())
+        check_tables(checked, make_console(wide=args.wide))
     return 0 if all(bool(r.passed[0]) for _, res in checked for r in res) else 1

@@ -12,6 +12,12 @@ def add_analysis_options(p, json: bool = True):
     p.add_argument("--span", metavar="LOW:HIGH", help="frequency span, e.g. '1 Hz:10 MHz' (default: the spec's)")
     if json:
         p.add_argument("--json", action="store_true", help="print JSON instead of tables")
+        add_wide_option(p)
+
+
+def add_wide_option(p):
+    p.add_argument("--wide", action="store_true", help="show the secondary columns of every table, however wide "
+                   "(by default tables fit the terminal, or COLUMNS when piped)")
 
 
 def apply_analysis_options(chain, args):

@@ -38,5 +38,5 @@ def run(args) -> int:
     else:
         from ..render.compare_tables import compare_tables
         from ..render.console import make_console
-        compare_tables(d, make_console())
+        compare_tables(d, make_console(wide=args.wide))
     return 1 if args.strict and d.regressions else 0

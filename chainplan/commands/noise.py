@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import math
 
-from .common import _freq, apply_analysis_options
+from .common import _freq, add_wide_option, apply_analysis_options
 
 
 def add_arguments(p):
@@ -20,6 +20,7 @@ def add_arguments(p):
                    help="integrate over a brick-wall band instead of the whole span: 'HIGH' (from the span's "
                         "start) or 'LOW:HIGH', e.g. '20 kHz' or '10 Hz:20 kHz'")
     p.add_argument("--json", action="store_true", help="print JSON instead of tables")
+    add_wide_option(p)
 
 
 def run(args) -> int:
@@ -50,7 +51,7 @@ def run(args) -> int:
     else:
         from ..render.console import make_console
         from ..render.noise_tables import noise_tables
-        noise_tables(chain, res, freqs, dens, gain, gens, make_console())
+        noise_tables(chain, res, freqs, dens, gain, gens, make_console(wide=args.wide))
     return 0
 
 

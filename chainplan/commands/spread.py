@@ -51,7 +51,7 @@ def run(args) -> int:
     else:
         from ..render.console import make_console
         from ..render.spread_tables import spread_tables
-        spread_tables(res, nominal, corners, make_console())
+        spread_tables(res, nominal, corners, make_console(wide=args.wide))
     return 1 if min_yield is not None and res.yield_all < min_yield else 0
 
 

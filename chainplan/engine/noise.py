@@ -405,4 +405,5 @@ def noise_json(r: NoiseResult, brief: bool = False) -> dict:
 
 
 def _db_text(x: float) -> str:
-    return "—" if not np.isfinite(x) else f"{x:.1f} dB".replace("-", "−")
+    from ..spec.numbers import figure
+    return "—" if not np.isfinite(x) else figure(float(x), "dB", signed=False, decimals=1)

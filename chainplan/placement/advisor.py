@@ -292,7 +292,8 @@ def _describe(e: CandidateEffect, basis: str) -> str:
 
 
 def _signed(x) -> str:
-    return f"{x:+.2f} dB".replace("-", "−")
+    from ..spec.numbers import figure
+    return figure(x, "dB")
 
 
 def _volts(v) -> str:

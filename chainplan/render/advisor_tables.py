@@ -9,10 +9,11 @@ import math
 
 from ..placement.advisor import Advice, CandidateEffect
 from ..placement.optimiser import Measured, Plan, Shortfall, target_text
-from ..spec.numbers import loss
-from ..spec.units import fmt
-from .console import db, eng, table_box
+from ..spec.numbers import figure, figures, loss
+from .console import db, eng
 from .json_out import clean
+from .layout import Col, print_table
+from .tables import chain_heading
 
 VERDICT_STYLE = {"needed": "bold green", "worth it": "green", "would clip": "bold red", "not worth it": None}
 
@@ -20,61 +21,48 @@ VERDICT_STYLE = {"needed": "bold green", "worth it": "green", "would clip": "bol
 # -- advice ------------------------------------------------------------------------------
 
 def advice_tables(a: Advice, console, only: str | None = None) -> None:
-    from rich.table import Table
     from rich.text import Text
-    bx = table_box(console)
     c = a.chain
-    console.print(Text(c.name, style="bold"), Text(f"  ({c.path})" if c.path else ""))
+    chain_heading(c, console)
     cands = ", ".join(f"{e.candidate} ({e.kind}{_bias_text(e)})"
                       for e in (a.interfaces[0].candidates if a.interfaces else []))
     console.print(f"candidates: {cands or 'none'}; ranked by {a.cost_basis}; at {eng(a.f_ref_hz, 'Hz')}, "
                   f"end-to-end gain now {db(a.gain_db)} to '{a.output}'")
 
-    t = Table(title="Interfaces: loading loss now and the verdict", box=bx, title_justify="left")
-    for col in ("from", "to", "Z source", "Z load", "loss now", "verdict", "pick"):
-        t.add_column(col, justify="right" if col in ("Z source", "Z load", "loss now") else "left")
-    for i in a.interfaces:
-        t.add_row(i.source, i.reader, eng(i.z_source_ohm, "Ω"), eng(i.z_load_ohm, "Ω"), loss(i.loss_now_db, 2),
-                  i.verdict, i.best or "—", style=VERDICT_STYLE[i.verdict])
-    console.print(t)
-    for i in a.interfaces:
+    ifs = a.interfaces
+    print_table(console, [Col("from", wrap=True), Col("to", wrap=True), Col("Z source", right=True),
+                          Col("Z load", right=True), Col("loss now", right=True), Col("verdict"),
+                          Col("pick", wrap=True)],
+                list(zip([i.source for i in ifs], [i.reader for i in ifs], figures([i.z_source_ohm for i in ifs], "Ω"),
+                         figures([i.z_load_ohm for i in ifs], "Ω"), [loss(i.loss_now_db, 2) for i in ifs],
+                         [i.verdict for i in ifs], [i.best or "—" for i in ifs])),
+                title="Interfaces: loading loss now (dB lost) and the verdict",
+                styles=[VERDICT_STYLE[i.verdict] for i in ifs])
+    for i in ifs:
         console.print(Text(f"{i.source} → {i.reader}: {i.verdict}. ", style=VERDICT_STYLE[i.verdict] or ""),
                       Text(i.reason[0].upper() + i.reason[1:] + "."))
 
     console.print("Each candidate inserted in turn, the whole chain re-analysed.  back: loading loss given "
                   "back (dB); own: the buffer's open-circuit gain (dB); room Δ: the largest headroom drop, at "
                   "node; f high: upper −3 dB edge after; net: end-to-end gain change (dB).")
-    width = max((len(e.candidate) for i in a.interfaces for e in i.candidates), default=9)
-    for i in a.interfaces:
+    for i in ifs:
         if only is not None and i.reader != only:
             continue
-        t = Table(title=f"{i.source} → {i.reader} (loading loss {loss(i.loss_now_db, 2)}): each candidate inserted",
-                  box=_compact_box(), title_justify="left", show_edge=False, pad_edge=False,
-                  padding=(0, 1, 0, 0))
-        cols = ["candidate", "back", "own", "DC shift", "room Δ", "node", "f high",
-                *(["SNR Δ"] if a.noise else []), "power", "net"]
-        for col in cols:
-            t.add_column(col, justify="left" if col in ("candidate", "node") else "right",
-                         no_wrap=col != "node", min_width=width if col == "candidate" else None)
-        notes = []
+        cols = [Col("candidate", wrap=2), Col("back", right=True), Col("own", right=True, drop=3),
+                Col("DC shift", right=True, drop=2), Col("room Δ", right=True), Col("node", wrap=True),
+                Col("f high", right=True, drop=1), *([Col("SNR Δ", right=True)] if a.noise else []),
+                Col("power", right=True), Col("net", right=True)]
+        print_table(console, cols, [_effect_row(e, a.noise) for e in i.candidates],
+                    title=f"{i.source} → {i.reader} (loading loss {loss(i.loss_now_db, 2)}): each candidate inserted",
+                    styles=["bold red" if e.valid and e.new_clips else None for e in i.candidates])
         for e in i.candidates:
-            t.add_row(*_effect_row(e, a.noise), style="bold red" if e.valid and e.new_clips else None)
             if not e.valid:
-                notes.append(f"  {e.candidate}: no bias here: {e.problem}")
-        console.print(t)
-        for n in notes:
-            console.print(n)
+                console.print(f"  {e.candidate}: no bias here: {e.problem}")
 
 
 def _bias_text(e: CandidateEffect) -> str:
     b = e.input_bias
     return "" if b is None else f" behind {eng(b['c_f'], 'F')} and {eng(b['r_bias_ohm'], 'Ω')} to {b['bias']}"
-
-
-def _compact_box():
-    """Plain ASCII: a rule under the header, no vertical lines (reads the same when piped)."""
-    from rich.box import Box
-    return Box("    \n    \n -- \n    \n    \n -- \n    \n    \n", ascii=True)
 
 
 def _effect_row(e: CandidateEffect, noise: bool) -> list[str]:
@@ -93,15 +81,11 @@ def _effect_row(e: CandidateEffect, noise: bool) -> list[str]:
 
 
 def _num(x, digits: int = 2) -> str:
-    if x is None or (isinstance(x, float) and math.isnan(x)):
-        return "—"
-    return f"{x:+.{digits}f}".replace("-", "−")
+    return figure(x, "dB", decimals=digits)
 
 
 def _signed_v(v) -> str:
-    if v is None or (isinstance(v, float) and math.isnan(v)):
-        return "—"
-    return ("+" if v >= 0 else "−") + fmt(abs(v), "V")
+    return figure(v, "V", signed=True)
 
 
 def advice_dict(a: Advice) -> dict:
@@ -136,47 +120,32 @@ def _effect_dict(e: CandidateEffect) -> dict:
 # -- placement ------------------------------------------------------------------------------
 
 def plan_tables(p: Plan, console, requirements=None) -> None:
-    from rich.table import Table
     from rich.text import Text
-    bx = table_box(console)
-    c = p.chain
-    console.print(Text(c.name, style="bold"), Text(f"  ({c.path})" if c.path else ""))
+    chain_heading(p.chain, console)
     console.print("targets: " + "; ".join(target_text(p.targets, k) + _origin(p, k) for k in p.targets.kinds()))
     if p.feasible:
-        t = Table(title=f"Cheapest placement by {p.cost_basis}: {_cost_text(p)}, "
-                        f"{p.n_buffers} buffer{'s' if p.n_buffers != 1 else ''}", box=bx, title_justify="left")
-        for col in ("interface", "buffer", "candidate", "power", "price", "parts"):
-            t.add_column(col, justify="right" if col in ("power", "price", "parts") else "left")
-        for pl in p.placements:
-            t.add_row(f"{pl.source} → {pl.reader}", pl.buffer, pl.candidate, eng(pl.power_w, "W"),
-                      "—" if pl.price is None else f"{pl.price:g}", str(pl.count))
+        rows = [[f"{pl.source} → {pl.reader}", pl.buffer, pl.candidate, eng(pl.power_w, "W"),
+                 "—" if pl.price is None else f"{pl.price:g}", str(pl.count)] for pl in p.placements]
         if not p.placements:
-            t.add_row("(none: the chain meets the targets as it is)", "", "", "", "", "")
-        console.print(t)
-        t = Table(title="Before and after (full analyses)", box=bx, title_justify="left")
-        for col in ("figure", "before", "after", "target"):
-            t.add_column(col, justify="left" if col == "figure" else "right")
-        for row in _figure_rows(p):
-            t.add_row(*row)
-        console.print(t)
+            rows.append(["(none: the chain meets the targets as it is)", "", "", "", "", ""])
+        print_table(console, [Col("interface", wrap=2), Col("buffer", wrap=True), Col("candidate", wrap=True),
+                              Col("power", right=True), Col("price", right=True), Col("parts", right=True)], rows,
+                    title=f"Cheapest placement by {p.cost_basis}: {_cost_text(p)}, "
+                          f"{p.n_buffers} buffer{'s' if p.n_buffers != 1 else ''}")
+        print_table(console, [Col("figure", wrap=2), Col("before", right=True), Col("after", right=True),
+                              Col("target", wrap=True)], _figure_rows(p), title="Before and after (full analyses)")
     else:
         console.print(Text("No placement of the candidates meets the targets.", style="bold red"))
-        t = Table(title="What cannot be met", box=bx, title_justify="left")
-        for col in ("target", "best reachable", "while"):
-            t.add_column(col)
-        for s in p.shortfalls:
-            t.add_row(s.target, s.best, "the other targets are met" if s.with_others else "on its own")
-        console.print(t)
+        print_table(console, [Col("target", wrap=2), Col("best reachable", wrap=True), Col("while", wrap=True)],
+                    [[s.target, s.best, "the other targets are met" if s.with_others else "on its own"]
+                     for s in p.shortfalls], title="What cannot be met")
     if requirements:
-        t = Table(title="Spec requirements on the result", box=bx, title_justify="left")
-        for col in ("requirement", "value", "limit", "status"):
-            t.add_column(col, justify="left" if col in ("requirement", "status") else "right")
         from ..studies.requirements import show
-        for r in requirements:
-            ok = bool(r.passed[0])
-            t.add_row(r.name, show(float(r.value[0]), r.unit), show(r.limit, r.unit), "met" if ok else "FAILS",
-                      style=None if ok else "bold red")
-        console.print(t)
+        print_table(console, [Col("requirement", wrap=2), Col("value", right=True), Col("limit", right=True),
+                              Col("status")],
+                    [[r.name, show(float(r.value[0]), r.unit), show(r.limit, r.unit),
+                      "met" if r.passed[0] else "FAILS"] for r in requirements], title="Spec requirements on the result",
+                    styles=[None if r.passed[0] else "bold red" for r in requirements])
     if p.targets.skipped:
         console.print("not targeted by the optimiser" + (" (checked on the result above)" if requirements else "")
                       + ": " + ", ".join(p.targets.skipped))

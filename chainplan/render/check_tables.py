@@ -1,33 +1,31 @@
 """Terminal tables and JSON of requirement checks (``chainplan check``)."""
 from __future__ import annotations
 
-from ..studies.requirements import result_dict, show, where_of
-from .console import table_box
+from ..studies.requirements import result_dict, show, show_margin, where_of
+from .layout import Col, print_table
 from ..spec.safety import safety_notice
 from .tables import chain_heading
 
 
 def check_tables(checked: list, console) -> None:
     """``checked``: (chain, [ReqResult]) pairs; one table per spec, then a tally."""
-    from rich.table import Table
-    bx = table_box(console)
     n_req = n_fail = 0
     for chain, results in checked:
         chain_heading(chain, console)
         if not results:
             console.print("  no requirements in this spec (add a 'requirements:' block)")
             continue
-        t = Table(box=bx)
-        for col in ("requirement", "value", "limit", "margin", "result", "set by"):
-            t.add_column(col, justify="left" if col in ("requirement", "result", "set by") else "right")
+        rows, styles = [], []
         for r in results:
             ok = bool(r.passed[0])
-            t.add_row(r.name, show(float(r.value[0]), r.unit), r.requirement.describe(full=False),
-                      show(float(r.margin[0]), r.unit), "pass" if ok else "FAIL", where_of(r) or "",
-                      style=None if ok else "bold red")
+            rows.append([r.name, show(float(r.value[0]), r.unit), r.requirement.describe(full=False),
+                         show_margin(float(r.margin[0]), r.unit), "pass" if ok else "FAIL", where_of(r) or ""])
+            styles.append(None if ok else "bold red")
             n_fail += not ok
         n_req += len(results)
-        console.print(t)
+        print_table(console, [Col("requirement", wrap=2), Col("value", right=True), Col("limit", right=True),
+                              Col("margin", right=True), Col("result"), Col("set by", wrap=True, drop=1)],
+                    rows, styles=styles, caption="margin: positive when met")
     console.print(f"{len(checked)} spec{'s' * (len(checked) != 1)}, {n_req} requirement{'s' * (n_req != 1)}: "
                   f"{n_req - n_fail} met, {n_fail} failing", style="bold red" if n_fail else "bold")
 

@@ -6,7 +6,7 @@ import math
 from ..studies.diffing import Diff
 from ..studies.requirements import show
 from ..spec.safety import safety_notice
-from .console import table_box
+from .layout import Col, print_table
 
 MARK = {"worse": "worse", "clips now": "CLIPS NOW", "fails now": "FAILS NOW"}
 
@@ -59,21 +59,17 @@ def sections(d: Diff) -> list:
 
 
 def compare_tables(d: Diff, console) -> None:
-    from rich.table import Table
     from rich.text import Text
-    bx = table_box(console)
     console.print(Text(f"{d.old.label}  →  {d.new.label}", style="bold"))
     note = safety_notice(sorted(set(d.old.chain.hazards) | set(d.new.chain.hazards)))
     if note:
         console.print(Text(note, style="bold red"))
     console.print(headline(d), style="bold red" if d.regressions else "bold")
     for title, cols, rows in sections(d):
-        t = Table(title=title, box=bx, title_justify="left")
-        for name, right in cols:
-            t.add_column(name, justify="right" if right else "left")
-        for cells, regression in rows:
-            t.add_row(*cells, style="bold red" if regression else None)
-        console.print(t)
+        print_table(console, [Col(name, right=right, wrap=0 if right else (2 if i == 0 else 1))
+                              for i, (name, right) in enumerate(cols)],
+                    [list(cells) for cells, _ in rows], title=title,
+                    styles=["bold red" if regression else None for _, regression in rows])
 
 
 def compare_dict(d: Diff) -> dict:

@@ -7,20 +7,31 @@ import sys
 from ..spec.numbers import figure
 
 
-def make_console(file=None):
+def make_console(file=None, wide: bool = False, width: int | None = None):
+    """The console of a command: the terminal's width, or ``COLUMNS`` (default 100)
+    when piped; ``width`` fixes it (golden-file tests); ``wide`` (``--wide``) shows
+    the secondary columns of every table however wide it gets."""
     from rich.console import Console
     stream = file or sys.stdout
     tty = hasattr(stream, "isatty") and stream.isatty()
     plain = not tty or "NO_COLOR" in os.environ
-    width = None if tty else int(os.environ.get("COLUMNS", "100"))
-    return Console(file=stream, no_color=plain, color_system=None if plain else "auto", width=width,
-                   highlight=False, emoji=False, soft_wrap=False, force_terminal=False if not tty else None)
+    if width is None and not tty:
+        try:
+            width = max(40, int(os.environ.get("COLUMNS", "100")))
+        except ValueError:
+            width = 100
+    console = Console(file=stream, no_color=plain, color_system=None if plain else "auto", width=width,
+                      highlight=False, emoji=False, soft_wrap=False, force_terminal=False if not tty else None)
+    console.chainplan_wide = wide
+    return console
 
 
 def table_box(console):
-    """Light rules on a terminal, plain ASCII when piped."""
+    """A rule under the header and no vertical lines: light on a terminal, ASCII when piped."""
     from rich import box
-    return box.SIMPLE_HEAD if console.is_terminal else box.ASCII2
+    if console.is_terminal:
+        return box.SIMPLE_HEAD
+    return box.Box("    \n    \n -- \n    \n    \n -- \n    \n    \n", ascii=True)
 
 
 def db(x, digits: int = 2) -> str:

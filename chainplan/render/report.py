@@ -24,7 +24,7 @@ from ..engine.budget import Budget
 from ..spec.numbers import loss
 from .console import db, end_gain, eng, stage_gain
 from ..spec.safety import safety_notice
-from .tables import _lim, _set_by
+from .tables import _converter, _lim, _set_by
 
 CSS = """
 body{font:14px/1.45 system-ui,-apple-system,'Segoe UI',sans-serif;color:#1d1d1d;max-width:1180px;margin:24px auto;
@@ -154,7 +154,7 @@ def _summary_rows(b: Budget) -> list[tuple]:
     if tight is not None:
         rows.append(("tightest node", f"{tight.name}: {eng(tight.headroom_v, 'V')} headroom"))
     if b.signal_dbfs is not None:
-        rows.append(("signal at the converter", f"{b.signal_dbfs:+.1f} dBFS".replace("-", "−")))
+        rows.append((f"signal at the converter{_converter(b)}", db(b.signal_dbfs, 1) + "FS"))
     rows.extend(tuple(r) for r in b.extra_summary)
     clips = [n.name for n in b.nodes if n.clips]
     if clips:

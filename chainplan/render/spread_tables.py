@@ -5,8 +5,9 @@ import math
 
 from ..studies.montecarlo import McResult, metric_info, metrics, stats
 from ..studies.requirements import evaluate_requirements, show
+from ..spec.numbers import figure, figures
+from .layout import Col, print_table
 from .tables import chain_heading
-from .console import table_box
 
 #: inputs with a smaller share of the variance are summarised in one row
 MIN_SHARE = 5e-4
@@ -28,8 +29,6 @@ def _rows(res: McResult, nominal):
 
 
 def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
-    from rich.table import Table
-    bx = table_box(console)
     c = res.chain
     chain_heading(c, console)
     n_valid = int(res.valid.sum())
@@ -40,76 +39,76 @@ def spread_tables(res: McResult, nominal, corners: McResult, console) -> None:
     if not res.inputs:
         console.print("no tolerances or corners in this spec: every sample is the nominal chain")
 
-    t = Table(title="Distribution (valid samples)", box=bx, title_justify="left", show_edge=False)
-    for col in ("figure", "nominal", "mean", "σ", "0.1 %", "median", "99.9 %"):
-        t.add_column(col, justify="left" if col == "figure" else "right", no_wrap=True)
-    quiet = 0
+    rows, quiet = [], 0
     for key, n0, s in _rows(res, nominal):
         text, unit, _ = metric_info(c, key)
         if key.startswith("loading_loss_db.") and max(abs(n0), abs(s.p_low), abs(s.p_high)) < LOSS_QUIET_DB:
             quiet += 1                      # interfaces that never lose a measurable amount
             continue
-        t.add_row(text.replace("loading loss ", "loss "), show(n0, unit), show(s.mean, unit), _sigma(s.std, s.mean, unit),
-                  show(s.p_low, unit), show(s.median, unit), show(s.p_high, unit))
-    if quiet:
-        t.caption = f"{quiet} more interface{'s' * (quiet != 1)} lose less than {LOSS_QUIET_DB} dB in every sample"
-        t.caption_justify = "left"
-    console.print(t)
+        nom, mean, lo, med, hi = _row_figures([n0, s.mean, s.p_low, s.median, s.p_high], unit, key)
+        rows.append([text.replace("loading loss ", "loss "), nom, mean, _sigma(s.std, s.mean, unit), lo, med, hi])
+    print_table(console, [Col("figure", wrap=2), Col("nominal", right=True), Col("mean", right=True, drop=2),
+                          Col("σ", right=True), Col("0.1 %", right=True), Col("median", right=True, drop=1),
+                          Col("99.9 %", right=True)], rows, title="Distribution (valid samples)",
+                caption=(f"{quiet} more interface{'s' * (quiet != 1)} lose less than {LOSS_QUIET_DB} dB in every "
+                         "sample") if quiet else None)
 
     if res.requirements:
         nom_req = evaluate_requirements(nominal)
-        t = Table(title="Yield", box=bx, title_justify="left")
-        for col in ("requirement", "limit", "nominal", "worst 0.1 %", "yield"):
-            t.add_column(col, justify="left" if col == "requirement" else "right")
+        rows, styles = [], []
         for r, r0 in zip(res.requirements, nom_req):
             y = res.yield_of(r)
             worst = stats(r.margin, res.valid).p_low
-            t.add_row(r.name, r.requirement.describe(full=False), show(float(r0.value[0]), r.unit),
-                      show(float(r.limit + worst if r.sense == "min" else r.limit - worst), r.unit)
-                      if math.isfinite(worst) else "—", _pct(y), style="bold red" if y < 1 else None)
-        t.add_row("all together", "", "", "", _pct(res.yield_all), style="bold")
-        console.print(t)
+            rows.append([r.name, r.requirement.describe(full=False), show(float(r0.value[0]), r.unit),
+                         show(float(r.limit + worst if r.sense == "min" else r.limit - worst), r.unit)
+                         if math.isfinite(worst) else "—", _pct(y)])
+            styles.append("bold red" if y < 1 else None)
+        rows.append(["all together", "", "", "", _pct(res.yield_all)])
+        styles.append("bold")
+        print_table(console, [Col("requirement", wrap=2), Col("limit", right=True), Col("nominal", right=True),
+                              Col("worst 0.1 %", right=True), Col("yield", right=True)], rows, title="Yield",
+                    styles=styles)
 
     if res.sensitivity:
         key = res.key_metric
         what = key if key not in res.metrics else metric_info(c, key)[0]
-        t = Table(title=f"What drives the spread of {what} (share of variance, linear)", box=bx,
-                  title_justify="left")
-        t.add_column("input")
-        t.add_column("share", justify="right")
         shown = [(n, s) for n, s in res.sensitivity if s >= MIN_SHARE][:10]
-        for name, share in shown:
-            t.add_row(name, _pct(share))
+        rows = [[name, _pct(share)] for name, share in shown]
         if len(shown) < len(res.sensitivity):
             rest = len(res.sensitivity) - len(shown)
-            t.add_row(f"({rest} more input{'s, each' if rest != 1 else ','} below {_pct(MIN_SHARE)})", "")
+            rows.append([f"({rest} more input{'s, each' if rest != 1 else ','} below {_pct(MIN_SHARE)})", ""])
         rest = 1.0 - sum(s for _, s in res.sensitivity)
-        t.add_row("(non-linear and interaction part)", _pct(max(rest, 0.0)))
-        console.print(t)
+        rows.append(["(non-linear and interaction part)", _pct(max(rest, 0.0))])
+        print_table(console, [Col("input", wrap=2), Col("share", right=True)], rows,
+                    title=f"What drives the spread of {what} (share of variance, linear)")
 
     if corners.samples:
-        t = Table(title="Corners (parts at nominal)", box=bx, title_justify="left")
-        t.add_column("corner")
-        t.add_column("gain", justify="right")
-        t.add_column("requirements")
+        rows, styles = [], []
         for i, lab in enumerate(corners.labels):
             fails = [r.name for r in corners.requirements if not r.passed[i]]
             status = "impossible bias" if not corners.valid[i] else \
                 (f"failing: {', '.join(fails)}" if fails else ("all met" if corners.requirements else "—"))
-            t.add_row(lab, show(float(corners.metrics["gain_db"][i]), "dB"), status,
-                      style="bold red" if fails or not corners.valid[i] else None)
-        console.print(t)
+            rows.append([lab, show(float(corners.metrics["gain_db"][i]), "dB"), status])
+            styles.append("bold red" if fails or not corners.valid[i] else None)
+        print_table(console, [Col("corner", wrap=2), Col("gain", right=True), Col("requirements", wrap=True)], rows,
+                    title="Corners (parts at nominal)", styles=styles)
+
+
+def _row_figures(values, unit, key):
+    """One row of a distribution in one prefix (dB and bits keep their decimals); only a
+    gain is signed (losses, SNR and the rest are positive when good, docs/json.md)."""
+    return figures(values, unit, signed=key == "gain_db")
 
 
 def _pct(x) -> str:
-    return "—" if x is None or not math.isfinite(x) else f"{100 * x:.2f} %"
+    return "—" if x is None or not math.isfinite(x) else figure(x, "%", decimals=2)
 
 
 def _sigma(x, mean, unit) -> str:
     """σ, shown as 0 where it is floating-point noise (below 1e-9 of the mean)."""
     if math.isfinite(x) and math.isfinite(mean) and x <= 1e-9 * abs(mean):
         x = 0.0
-    return show(x, unit).replace("−", "")
+    return show(abs(x), unit)
 
 
 def spread_dict(res: McResult, nominal, corners: McResult) -> dict:

@@ -8,8 +8,9 @@ import math
 
 from ..engine.budget import Budget
 from ..spec.safety import safety_notice
-from ..spec.numbers import loss
-from .console import db, end_gain, eng, stage_gain, table_box
+from ..spec.numbers import figures, loss
+from .console import db, end_gain, eng, stage_gain
+from .layout import Col, print_table
 
 def chain_heading(chain, console) -> None:
     """The chain's name and file, and the safety caution when it is hazardous."""
@@ -21,80 +22,90 @@ def chain_heading(chain, console) -> None:
 
 
 def budget_tables(b: Budget, console) -> None:
-    from rich.table import Table
-    from rich.text import Text
-    bx = table_box(console)
     c = b.chain
     chain_heading(c, console)
     f_ref = eng(c.analysis.f_ref_hz, "Hz")
 
-    t = Table(title=f"Stages as connected (at {f_ref})", box=bx, title_justify="left")
-    for col in ("stage", "kind", "Zin", "Zout", "gain", "gain dB"):
-        t.add_column(col, justify="left" if col in ("stage", "kind") else "right")
-    for s in b.stages:
-        t.add_row(s.name, s.kind, eng(s.zin_ohm, "Ω"), eng(s.zout_ohm, "Ω"), *stage_gain(s))
-    console.print(t)
-    _active_table(b, console, bx)
+    gains = [stage_gain(s) for s in b.stages]
+    print_table(console, [Col("stage", wrap=True), Col("kind", wrap=True, drop=1), Col("Zin", right=True),
+                          Col("Zout", right=True), Col("gain", right=True), Col("gain dB", right=True)],
+                list(zip([s.name for s in b.stages], [s.kind for s in b.stages],
+                         figures([s.zin_ohm for s in b.stages], "Ω"), figures([s.zout_ohm for s in b.stages], "Ω"),
+                         [g[0] for g in gains], [g[1] for g in gains])),
+                title=f"Stages as connected (at {f_ref})")
+    _active_table(b, console)
 
     worst = b.worst_interface
-    t = Table(title="Interfaces (loading)", box=bx, title_justify="left")
-    for col in ("from", "to", "Z source", "Z load", "loading loss", ""):
-        t.add_column(col, justify="left" if col in ("from", "to", "") else "right")
-    for r in b.interfaces:
-        mark = "worst" if r is worst and r.loss_db > 0.005 else ""
-        style = "bold yellow" if mark else None
-        t.add_row(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), loss(r.loss_db), mark,
-                  style=style)
-    t.caption = ("each row: the loss recovered if that stage's input were an open circuit; rows along one "
-                 "passive network overlap and do not add")
-    t.caption_justify = "left"
-    console.print(t)
+    marks = ["worst" if r is worst and r.loss_db > 0.005 else "" for r in b.interfaces]
+    print_table(console, [Col("from", wrap=True), Col("to", wrap=True), Col("Z source", right=True),
+                          Col("Z load", right=True), Col("loading loss", right=True), Col("")],
+                list(zip([r.source for r in b.interfaces], [r.to for r in b.interfaces],
+                         figures([r.z_source_ohm for r in b.interfaces], "Ω"),
+                         figures([r.z_load_ohm for r in b.interfaces], "Ω"),
+                         [loss(r.loss_db) for r in b.interfaces], marks)),
+                title="Interfaces (loading): loss in dB lost", styles=["bold yellow" if m else None for m in marks],
+                caption="each row: the loss recovered if that stage's input were an open circuit; rows along "
+                        "one passive network overlap and do not add")
 
     tight = b.tightest_node
     band = c.analysis.band_hz
     where = f"over {eng(band[0], 'Hz')} … {eng(band[1], 'Hz')}" if band else f"at {f_ref}"
-    t = Table(title=f"Nodes (DC, signal peak {where}, limits, headroom)", box=bx, title_justify="left")
-    for col in ("node", "DC", "peak", "low limit", "high limit", "headroom", "(dB)", "set by", ""):
-        t.add_column(col, justify="left" if col in ("node", "set by", "") else "right", no_wrap=col != "set by")
-    for n in b.nodes:
-        mark = "CLIPS" if n.clips else ("tightest" if n is tight else "")
-        style = "bold red" if n.clips else ("bold yellow" if mark else None)
-        t.add_row(n.name, eng(n.dc_v, "V"), eng(n.peak_v, "V"), _lim(n.low_v), _lim(n.high_v),
-                  eng(n.headroom_v, "V") if math.isfinite(n.headroom_v) else "—",
-                  db(n.headroom_db, 1) if math.isfinite(n.headroom_db) else "—", _set_by(n), mark, style=style)
+    class_a = any(n.limit_cause[0] == "class A" for n in b.nodes)
+    caption = None
     if band:
-        t.caption = ("peak: the largest over the signal band, the sensor's amplitude assumed flat over it"
-                     + "; class A: a follower's bias current sets its negative swing into the load"
-                     * any(n.limit_cause[0] == "class A" for n in b.nodes))
-        t.caption_justify = "left"
-    elif any(n.limit_cause[0] == "class A" for n in b.nodes):
-        t.caption = "class A: a follower's bias current sets its negative swing into the load"
-        t.caption_justify = "left"
-    console.print(t)
+        caption = ("peak: the largest over the signal band, the sensor's amplitude assumed flat over it"
+                   + "; class A: a follower's bias current sets its negative swing into the load" * class_a)
+    elif class_a:
+        caption = "class A: a follower's bias current sets its negative swing into the load"
+    ns = b.nodes
+    marks = ["CLIPS" if n.clips else ("tightest" if n is tight else "") for n in ns]
+    lim = lambda vs: [x if math.isfinite(v) else "—" for x, v in zip(figures(vs, "V"), vs)]  # noqa: E731
+    print_table(console, [Col("node", wrap=True), Col("DC", right=True), Col("peak", right=True),
+                          Col("low limit", right=True), Col("high limit", right=True), Col("headroom", right=True),
+                          Col("headroom dB", right=True, drop=2), Col("set by", wrap=True, drop=1), Col("")],
+                list(zip([n.name for n in ns], figures([n.dc_v for n in ns], "V"), figures([n.peak_v for n in ns], "V"),
+                         lim([n.low_v for n in ns]), lim([n.high_v for n in ns]), lim([n.headroom_v for n in ns]),
+                         [db(n.headroom_db, 1) if math.isfinite(n.headroom_db) else "—" for n in ns],
+                         [_set_by(n) for n in ns], marks)),
+                title=f"Nodes (DC, signal peak {where}, limits, headroom)", caption=caption,
+                styles=["bold red" if n.clips else ("bold yellow" if m else None) for n, m in zip(ns, marks)])
 
-    t = Table(title="Summary", box=bx, title_justify="left", show_header=False)
-    t.add_column("what")
-    t.add_column("value")
-    t.add_row(*end_gain(b, f_ref))
-    t.add_row("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
-                            f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")
+    rows = [end_gain(b, f_ref),
+            ("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
+                           f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")]
     if b.peak_gain_db is not None and b.peak_gain_db - b.gain_db > 1.0:
-        t.add_row("note", f"f_ref is on a slope: the gain peaks {b.peak_gain_db - b.gain_db:.1f} dB higher "
-                          f"at {eng(b.f_peak_hz, 'Hz')}")
+        rows.append(("note", f"f_ref is on a slope: the gain peaks {b.peak_gain_db - b.gain_db:.1f} dB higher "
+                             f"at {eng(b.f_peak_hz, 'Hz')}"))
     if worst is not None and worst.loss_db > 0.005:
-        t.add_row("worst interface", f"{worst.source} → {worst.to}: {loss(worst.loss_db)} lost")
+        rows.append(("worst interface", f"{worst.source} → {worst.to}: {loss(worst.loss_db)} lost"))
     elif worst is not None:
-        t.add_row("worst interface", "none loses more than 0.005 dB")
+        rows.append(("worst interface", "none loses more than 0.005 dB"))
     if tight is not None:
-        t.add_row("tightest node", f"{tight.name}: {eng(tight.headroom_v, 'V')} headroom")
+        rows.append(("tightest node", f"{tight.name}: {eng(tight.headroom_v, 'V')} headroom"))
     if b.signal_dbfs is not None:
-        t.add_row("signal at the converter", f"{b.signal_dbfs:+.1f} dBFS".replace("-", "−"))
-    for extra in b.extra_summary:
-        t.add_row(*extra)
+        rows.append((f"signal at the converter{_converter(b)}", db(b.signal_dbfs, 1) + "FS"))
+    rows.extend(tuple(extra) for extra in b.extra_summary)
     clips = [n.name for n in b.nodes if n.clips]
+    styles = [None] * len(rows)
     if clips:
-        t.add_row("clipping", ", ".join(clips), style="bold red")
-    console.print(t)
+        rows.append(("clipping", ", ".join(clips)))
+        styles.append("bold red")
+    print_table(console, [Col("what", wrap=2), Col("value", wrap=True)], [list(r) for r in rows],
+                title="Summary", styles=styles, show_header=False)
+
+
+def _converter(b: Budget) -> str:
+    """' (adc)': the converter where the signal ends, when one reads the output."""
+    adc = converter_of(b.chain, b.output)
+    return f" '{adc}'" if adc else ""
+
+
+def converter_of(chain, node: str) -> str | None:
+    """The ADC stage reading ``node`` (where the signal ends), if any."""
+    for st in chain.stages:
+        if st.parent == node and st.kind == "adc":
+            return st.name
+    return None
 
 
 def _set_by(n) -> str:
@@ -109,22 +120,20 @@ def _set_by(n) -> str:
     return (hi_by if up <= down else lo_by) or ""
 
 
-def _active_table(b: Budget, console, bx) -> None:
+def _active_table(b: Budget, console) -> None:
     """Operating points of the stages that draw power: what each one costs."""
-    from rich.table import Table
     rows = [s for s in b.stages if s.op.get("power_w") is not None]
     if not rows:
         return
-    t = Table(title="Active stages (operating point)", box=bx, title_justify="left")
-    for col in ("stage", "bias current", "DC shift", "gm", "power"):
-        t.add_column(col, justify="left" if col == "stage" else "right")
     dc = {n.name: n.dc_v for n in b.nodes}
     parents = {st.name: st.parent for st in b.chain.stages}
-    for s in rows:
-        i = s.op.get("id_a", s.op.get("ic_a"))
-        shift = dc[s.name] - dc[parents[s.name]] if s.name in dc else None
-        t.add_row(s.name, eng(i, "A"), eng(shift, "V"), eng(s.op.get("gm_s"), "S"), eng(s.op["power_w"], "W"))
-    console.print(t)
+    shifts = [dc[s.name] - dc[parents[s.name]] if s.name in dc else None for s in rows]
+    print_table(console, [Col("stage", wrap=True), Col("bias current", right=True), Col("DC shift", right=True),
+                          Col("gm", right=True), Col("power", right=True)],
+                list(zip([s.name for s in rows], figures([s.op.get("id_a", s.op.get("ic_a")) for s in rows], "A"),
+                         figures(shifts, "V", signed=True), figures([s.op.get("gm_s") for s in rows], "S"),
+                         figures([s.op["power_w"] for s in rows], "W"))),
+                title="Active stages (operating point)")
 
 
 def _lim(v):

@@ -154,8 +154,6 @@ def loss(x, decimals: int = 3) -> str:
     if _missing(x):
         return DASH
     x = float(x)
-    if x == 0:
-        return "0 dB"
-    if 0 < x < 0.5 * 10 ** -decimals:
-        return f"< {10 ** -decimals:.{decimals}f} dB"
+    if abs(x) < 0.5 * 10 ** -decimals:
+        return f"< {10 ** -decimals:.{decimals}f} dB" if x > 0 else "0 dB"
     return figure(x, "dB", signed=False, decimals=decimals)

@@ -109,6 +109,11 @@ def show(x, unit: str) -> str:
     return figure(x, unit, signed=False)
 
 
+def show_margin(x, unit: str) -> str:
+    """A margin, signed (positive = met): '+0.17 dB', '−94.7 mV'."""
+    return figure(x, unit, signed=True)
+
+
 # -- parsing -------------------------------------------------------------------
 
 def parse_section(chain, node, line, path) -> None:
