@@ -113,3 +113,102 @@ def test_a_draw_outside_the_range_is_an_invalid_sample(tmp_path):
                         "  - {name: m, kind: load, r_in: 1k}\n", "t.yaml")
     res = mc.run(c, 500, seed=3)
     assert (~res.valid).any() and np.isfinite(res.metrics["gain_db"]).all()
+
+
+# -- bounds on the work a spec asks for ------------------------------------------
+
+FIX = REPO / "tests" / "fixtures" / "hardening"
+
+
+@pytest.mark.parametrize("name, line, words", [
+    ("deep_nesting.yaml", 7, "more than 64 levels deep"),
+    ("alias_bomb.yaml", 12, "more than 100000 values"),
+    ("non_utf8.yaml", 7, "0xB5 is not UTF-8"),
+    ("corners_unhashable.yaml", 9, "corners.rails: 'rails' is a list of rail names"),
+    ("include_nul.yaml", 6, "include: 'parts\\x00.yaml' contains a NUL byte"),
+])
+def test_a_malformed_spec_is_one_located_line(cli, name, line, words):
+    """Nesting 999 deep, a 2.4 KB alias bomb, a Latin-1 byte, a list inside corners: rails:,
+    a NUL byte in an include path: exit 2 with file:line, never exit 70 or a MemoryError."""
+    path = str(FIX / name)
+    rc, out, err = cli("budget", path)
+    assert rc == 2 and out == "" and err.count("\n") == 1, err
+    assert f"{path}:{line}: " in err and words in err, err
+
+
+def test_nesting_far_beyond_the_limit_is_refused_quickly(cli, spec_file):
+    """100 000 levels crashed the C composer (a segmentation fault); the event loop stops at 65."""
+    path = spec_file("name: x\ndescription: " + "[" * 100_000 + "]" * 100_000 + "\n")
+    rc, _, err = cli("budget", path)
+    assert rc == 2 and ":2: " in err and "64 levels" in err
+
+
+def test_aliases_within_the_limit_still_work(cli, spec_file):
+    path = spec_file("name: a\nsource: {kind: sensor, amplitude: 1 mV, r: 1k}\n"
+                     "stages:\n  - &rc {name: rc1, kind: rc_lowpass, r: 1k, c: 1 nF}\n"
+                     "  - {name: m, kind: load, r_in: &big 1meg}\n"
+                     "  - {name: m2, kind: load, from: rc1, r_in: *big}\n")
+    from chainplan.spec.loader import load_chain
+    chain = load_chain(path)
+    assert chain.stage("m2").params["r_in"] == chain.stage("m").params["r_in"] == 1e6
+
+
+@pytest.mark.parametrize("target", ["/dev/zero", "folder"])
+def test_a_spec_that_is_no_file_is_refused_without_reading_it_all(cli, tmp_path, target):
+    if target == "folder":
+        target = str(tmp_path)
+    rc, out, err = cli("budget", target)
+    assert rc == 2 and err.startswith(f"chainplan: {target}: ") and err.count("\n") == 1
+
+
+def test_a_spec_larger_than_the_limit_is_refused(cli, spec_file):
+    path = spec_file("name: x\n" + "# padding\n" * 120_000)
+    rc, _, err = cli("budget", path)
+    assert rc == 2 and "larger than 1 MiB" in err
+
+
+def test_includes_that_branch_are_read_once_each(cli):
+    """Each of 16 parts files includes the next twice (2^16 paths, 17 s before); every file
+    is read once, and a file reached twice is not a duplicate of itself."""
+    from chainplan.spec.loader import load_chain
+    from chainplan.spec.parts import candidates_of
+    chain = load_chain(str(FIX / "branching.yaml"))
+    names = [c.name for c in candidates_of(chain)]
+    assert sorted(names) == sorted(f"c{i}" for i in range(16))
+    assert len(chain.extra["parts_files"]) == 16
+
+
+def _include_chain(project, n):
+    for i in range(n):
+        (project / f"q{i}.yaml").write_text(f"include: [q{i + 1}.yaml]\n" if i < n - 1 else "candidates: []\n")
+    spec = project / "deep.yaml"
+    text = (REPO / "chains" / "hydrophone_direct.yaml").read_text()
+    spec.write_text(text.replace("include: [parts/followers.yaml]", "include: [q0.yaml]"))
+    return str(spec)
+
+
+def test_includes_nested_a_thousand_deep_are_refused(cli, project):
+    rc, _, err = cli("budget", _include_chain(project, 1000))
+    assert rc == 2 and "nest more than 16 files deep" in err and err.count("\n") == 1
+
+
+@pytest.mark.parametrize("what", ["folder", "fifo"])
+def test_an_include_naming_a_folder_or_a_fifo_says_so(cli, project, what):
+    import os
+    target = project / "odd.yaml"
+    os.mkdir(target) if what == "folder" else os.mkfifo(target)
+    spec = project / "odd_include.yaml"
+    text = (REPO / "chains" / "hydrophone_direct.yaml").read_text()
+    spec.write_text(text.replace("include: [parts/followers.yaml]", "include: [odd.yaml]"))
+    rc, _, err = cli("budget", str(spec))
+    assert rc == 2 and "does not exist" not in err
+    assert ("is a folder" if what == "folder" else "not a regular file") in err
+
+
+def test_stages_times_points_is_bounded(cli, spec_file):
+    """1000 stages × 100 000 points ran out of memory; refused at the points line."""
+    stages = "\n".join(f"  - {{name: r{i}, kind: series_r, r: 1k}}" for i in range(999))
+    path = spec_file(f"name: big\nsource: {{kind: sensor, amplitude: 1 mV}}\nstages:\n{stages}\n"
+                     "analysis:\n  points: 100000\n")
+    rc, _, err = cli("budget", path)
+    assert rc == 2 and ":1004: analysis.points:" in err and "exceeds the limit" in err

@@ -28,6 +28,9 @@ NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 RAIL = Field("V", "rail voltage")
 TEMPERATURE = Field("K", "chain temperature", positive=True, tiny=1.0, maximum=1000.0)
 FREQUENCY = Field("Hz", "analysis frequency", positive=True)
+#: bounds on the work of one analysis (docs/spec.md, "Limits")
+MAX_STAGES = 1000
+MAX_STAGE_POINTS = 2_000_000
 #: widest relative tolerance (draws beyond a field's range are invalid samples, studies.tolerances)
 MAX_REL_TOLERANCE = 10.0
 
@@ -96,6 +99,7 @@ def build_chain(doc, path: str) -> Chain:
                   rails={k: v for k, v in rails.items()}, temp_k=temp_k, t_nom_k=t_nom_k, hazards=hazards,
                   path=path)
     chain.analysis = _analysis(ctx, doc, chain)
+    _check_work(ctx, doc, chain)
     chain.extra["tolerances"] = tolerances
     chain.extra["rail_tolerances"] = rail_tol
     chain.extra["line"] = doc.line
@@ -339,6 +343,22 @@ def range_text(f) -> str:
 
 def _looks_numeric(text: str) -> bool:
     return text in ("inf",) or bool(re.match(r"^[+\-−]?(\d|\.\d)", text))
+
+
+def _check_work(ctx, doc, chain) -> None:
+    """Bound the arrays one analysis holds: stages × frequency points (about 100 bytes
+    each, so the largest accepted spec stays near 250 MB; Monte Carlo runs chunk their
+    samples to a fixed memory budget on top, studies.montecarlo.CHUNK_BYTES)."""
+    n = len(chain.all_stages)
+    if n > MAX_STAGES:
+        raise ctx.err(f"the chain has {n} stages; the limit is {MAX_STAGES}", doc.line_of("stages"), "stages")
+    points = chain.analysis.points + 1
+    if n * points > MAX_STAGE_POINTS:
+        node = doc.get("analysis")
+        line = node.line_of("points") if isinstance(node, LDict) else doc.line_of("stages")
+        raise ctx.err(f"{n} stages × {points} frequency points = {n * points} exceeds the limit of "
+                      f"{MAX_STAGE_POINTS} (about {MAX_STAGE_POINTS * 100 >> 20} MB of arrays); "
+                      f"use at most {MAX_STAGE_POINTS // n - 1} points", line, "analysis.points")
 
 
 def _analysis(ctx, doc, chain) -> Analysis:

@@ -40,13 +40,14 @@ links are resolved first), and the include graph must have no cycle.
 from __future__ import annotations
 
 import os
+import stat
 from dataclasses import dataclass, field
 
 from ..errors import SpecError, nearest
 from .model import Stage
 from ..stages import REGISTRY
 from .units import UnitError, parse_value
-from .yamlsrc import LDict, LList, load_file
+from .yamlsrc import LDict, LList, load_file, short
 
 PARTS_KEYS = ("description", "include", "candidates")
 COST_KEYS = {"price": "1", "count": "1", "power": "W"}
@@ -99,6 +100,11 @@ def candidates_of(chain) -> list[Candidate]:
 
 # -- SECTION_PARSERS entries ---------------------------------------------------
 
+#: Bounds on includes (docs/spec.md, "Limits"): how deep includes nest, how many files one chain reads.
+MAX_INCLUDE_DEPTH = 16
+MAX_INCLUDE_FILES = 100
+
+
 def parse_include(chain, node, line, path) -> None:
     """``include:`` of a chain spec: parts files whose candidates the chain may use."""
     root = project_root(path)
@@ -115,7 +121,7 @@ def load_parts(chain, parts_path: str) -> None:
     """Add the candidates of a parts file named outside any spec (the ``--parts`` option)."""
     if not os.path.isfile(parts_path):
         raise SpecError("no such parts file", parts_path)
-    _load_parts_file(chain, parts_path, (), None, None)
+    _load_parts_file(chain, _real(parts_path), (), None, None)
 
 
 # -- includes --------------------------------------------------------------------
@@ -147,20 +153,44 @@ def _include_items(node, line, path):
 
 
 def _resolve(inc: str, from_path: str, line: int, root: str) -> str:
-    """The included file's real path, checked to exist and to stay inside ``root``."""
+    """The included file's real path, checked to exist, to be a regular file (a FIFO
+    would block the read) and to stay inside ``root``."""
+    at = (from_path, line, "include")
+    if "\0" in inc:
+        raise SpecError(f"'{short(inc)}' contains a NUL byte; a path cannot", *at)
+    if not inc.strip():
+        raise SpecError("an include path is empty", *at)
     target = _real(os.path.join(os.path.dirname(_real(from_path)), inc))
     if os.path.commonpath([target, root]) != root:
-        raise SpecError(f"'{inc}' lies outside the project ({root}); parts files must be inside it",
-                        from_path, line, "include")
-    if not os.path.isfile(target):
-        raise SpecError(f"'{inc}' does not exist (looked for {target})", from_path, line, "include")
+        raise SpecError(f"'{short(inc)}' lies outside the project ({root}); parts files must be inside it", *at)
+    try:
+        mode = os.stat(target).st_mode
+    except OSError:
+        raise SpecError(f"'{short(inc)}' does not exist (looked for {short(target, 200)})", *at) from None
+    if stat.S_ISDIR(mode):
+        raise SpecError(f"'{short(inc)}' is a folder; include names a parts file (YAML)", *at)
+    if not stat.S_ISREG(mode):
+        raise SpecError(f"'{short(inc)}' is not a regular file (a pipe, socket or device); "
+                        "include names a parts file (YAML)", *at)
     return target
 
 
 def _load_parts_file(chain, target: str, stack: tuple, inc_line, inc_from) -> None:
+    """Read a parts file once per chain (a file reached along two include paths is
+    read once; its candidates are not duplicates of themselves), within the depth
+    and count limits, refusing cycles."""
     if target in stack:
         cycle = " → ".join(os.path.basename(p) for p in (*stack[stack.index(target):], target))
         raise SpecError(f"include cycle: {cycle}", inc_from, inc_line, "include")
+    read = chain.extra.setdefault("parts_files", [])
+    if target in read:
+        return
+    if len(stack) > MAX_INCLUDE_DEPTH:
+        raise SpecError(f"includes nest more than {MAX_INCLUDE_DEPTH} files deep", inc_from, inc_line, "include")
+    if len(read) >= MAX_INCLUDE_FILES:
+        raise SpecError(f"the chain includes more than {MAX_INCLUDE_FILES} parts files", inc_from, inc_line,
+                        "include")
+    read.append(target)
     doc = load_file(target)
     if not isinstance(doc, LDict):
         raise SpecError("a parts file is a mapping with 'candidates:' (and optionally 'include:')", target,

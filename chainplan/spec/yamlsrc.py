@@ -28,40 +28,121 @@ class LList(list):
 
 _Loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
+#: Bounds on the work one spec file may ask for (docs/spec.md, "Limits").
+MAX_SPEC_BYTES = 1 << 20          # 1 MiB of text per file
+MAX_DEPTH = 64                    # nesting of mappings and lists
+MAX_VALUES = 100_000              # values after YAML aliases are expanded
 
-def _convert(node, loader, path):
-    if isinstance(node, yaml.MappingNode):
-        out = LDict()
-        out.line, out.key_lines = node.start_mark.line + 1, {}
-        for knode, vnode in node.value:
-            if not isinstance(knode, yaml.ScalarNode):
-                raise SpecError("keys must be plain words", path, knode.start_mark.line + 1)
-            key = knode.value
-            if key == "<<":
-                raise SpecError("YAML merge keys ('<<') are not supported in chain specs", path,
-                                knode.start_mark.line + 1)
-            if key in out:
-                raise SpecError(f"'{key}' is given twice", path, knode.start_mark.line + 1, key)
-            out[key] = _convert(vnode, loader, path)
-            out.key_lines[key] = knode.start_mark.line + 1
-        return out
-    if isinstance(node, yaml.SequenceNode):
-        out = LList(_convert(v, loader, path) for v in node.value)
-        out.line, out.item_lines = node.start_mark.line + 1, [v.start_mark.line + 1 for v in node.value]
-        return out
-    return loader.construct_object(node, deep=True)
+
+def _line(event) -> int:
+    return event.start_mark.line + 1
+
+
+def _compose(loader, path):
+    """The document as LDict/LList/scalars, built from the parser's events in one
+    loop (no recursion: nesting is bounded by MAX_DEPTH, not by the Python stack).
+    An alias reuses the value its anchor built; every value it stands for counts
+    towards MAX_VALUES, so an alias bomb is refused after 100 000 values instead of
+    being expanded to gigabytes (the safe loaders' alias counting)."""
+    anchors: dict = {}
+    stack: list = []                      # [container, pending key, start event, values it stands for]
+    total = 0
+    root = None
+    loader.get_event()                    # StreamStart
+    if loader.check_event(yaml.StreamEndEvent):
+        return None
+    loader.get_event()                    # DocumentStart
+    while True:
+        ev = loader.get_event()
+        if isinstance(ev, (yaml.MappingStartEvent, yaml.SequenceStartEvent)):
+            if ev.tag not in (None, "!", "tag:yaml.org,2002:map", "tag:yaml.org,2002:seq"):
+                raise SpecError(f"YAML tag '{short(ev.tag)}' is not supported in chain specs", path, _line(ev))
+            if len(stack) >= MAX_DEPTH:
+                raise SpecError(f"the spec nests mappings and lists more than {MAX_DEPTH} levels deep; "
+                                "a chain spec needs a handful", path, _line(ev))
+            c = LDict() if isinstance(ev, yaml.MappingStartEvent) else LList()
+            c.line = _line(ev)
+            if isinstance(c, LDict):
+                c.key_lines = {}
+            else:
+                c.item_lines = []
+            stack.append([c, None, ev, 1])
+            total += 1
+            continue
+        if isinstance(ev, (yaml.MappingEndEvent, yaml.SequenceEndEvent)):
+            value, _, ev, count = stack.pop()
+            if ev.anchor is not None:
+                anchors[ev.anchor] = (value, count)
+        elif isinstance(ev, yaml.AliasEvent):
+            if ev.anchor not in anchors:
+                raise SpecError(f"YAML alias '*{short(ev.anchor)}' names no anchor above it", path, _line(ev))
+            value, count = anchors[ev.anchor]
+            total += count
+        elif isinstance(ev, yaml.ScalarEvent):
+            tag = loader.resolve(yaml.ScalarNode, ev.value, ev.implicit) if ev.tag in (None, "!") else ev.tag
+            value, count = loader.construct_object(yaml.ScalarNode(tag, ev.value, ev.start_mark, ev.end_mark,
+                                                                   ev.style)), 1
+            if ev.anchor is not None:
+                anchors[ev.anchor] = (value, 1)
+            total += 1
+        else:                                  # DocumentEnd
+            break
+        if total > MAX_VALUES:
+            raise SpecError(f"the spec stands for more than {MAX_VALUES} values (YAML aliases expand to copies); "
+                            "write it out plainly", path, _line(ev))
+        if not stack:
+            root = value
+            continue
+        _add(stack[-1], value, count, ev, path)
+    if not loader.check_event(yaml.StreamEndEvent):
+        raise SpecError("the file holds more than one YAML document ('---'); a chain spec is one",
+                        path, loader.peek_event().start_mark.line + 1)
+    return root
+
+
+def _add(frame, value, count, ev, path) -> None:
+    """Put ``value`` (standing for ``count`` values) into the open container of ``frame``."""
+    container = frame[0]
+    frame[3] += count
+    if isinstance(container, LList):
+        container.append(value)
+        container.item_lines.append(_line(ev))
+        return
+    if frame[1] is None:                       # a key
+        if isinstance(value, (LDict, LList)) or isinstance(ev, yaml.AliasEvent):
+            raise SpecError("keys must be plain words", path, _line(ev))
+        key = ev.value
+        if key == "<<":
+            raise SpecError("YAML merge keys ('<<') are not supported in chain specs", path, _line(ev))
+        if key in container:
+            raise SpecError(f"'{short(key)}' is given twice", path, _line(ev), short(key))
+        frame[1] = (key, _line(ev))
+        return
+    key, line = frame[1]
+    container[key] = value
+    container.key_lines[key] = line
+    frame[1] = None
+
+
+def short(text, limit: int = 60) -> str:
+    """A user's text for a message: newlines escaped, cut to ``limit`` characters."""
+    text = str(text).encode("unicode_escape").decode("ascii") if any(c in str(text) for c in "\n\r\t\x00") \
+        else str(text)
+    return text if len(text) <= limit else text[:limit - 1] + "…"
 
 
 def load_text(text: str, path: str):
     """Parse YAML text (libyaml when present: about five times faster); syntax
     errors become SpecError with the line."""
+    if len(text) > MAX_SPEC_BYTES:
+        raise SpecError(f"the file is larger than {MAX_SPEC_BYTES >> 20} MiB; a chain spec is a few kilobytes", path)
     loader = None
     try:
         loader = _Loader(text)
-        node = loader.get_single_node()
-        if node is None:
+        doc = _compose(loader, path)
+        if doc is None:
             raise SpecError("the file is empty; a chain spec starts with 'name:', 'source:' and 'stages:'", path, 1)
-        return _convert(node, loader, path)
+        return doc
     except yaml.reader.ReaderError as exc:     # control characters and the like
         char = exc.character if isinstance(exc.character, int) else ord(exc.character)
         raise SpecError(f"character U+{char:04X} is not allowed in YAML ({exc.reason})", path,
@@ -77,12 +158,29 @@ def load_text(text: str, path: str):
             loader.dispose()
 
 
-def load_file(path: str):
+def read_text(path: str) -> str:
+    """A spec or parts file's text: at most MAX_SPEC_BYTES read (``/dev/zero`` is refused
+    after 1 MiB, not read until memory runs out), folders and unreadable files refused,
+    UTF-8 decoded with the line of a bad byte."""
+    if "\0" in path:
+        raise SpecError("a file name cannot contain a NUL byte", short(path))
     try:
-        with open(path, encoding="utf-8") as fh:
-            text = fh.read()
+        with open(path, "rb") as fh:
+            data = fh.read(MAX_SPEC_BYTES + 1)
     except FileNotFoundError:
         raise SpecError("no such file", path) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SpecError(f"cannot read the file ({exc})", path) from None
-    return load_text(text, path)
+    except IsADirectoryError:
+        raise SpecError("this is a folder, not a spec file", path) from None
+    except OSError as exc:
+        raise SpecError(f"cannot read the file ({exc.strerror or exc})", path) from None
+    if len(data) > MAX_SPEC_BYTES:
+        raise SpecError(f"the file is larger than {MAX_SPEC_BYTES >> 20} MiB; a chain spec is a few kilobytes", path)
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise SpecError(f"byte 0x{data[exc.start]:02X} is not UTF-8 text; save the file as UTF-8", path,
+                        data.count(b"\n", 0, exc.start) + 1) from None
+
+
+def load_file(path: str):
+    return load_text(read_text(path), path)

@@ -80,6 +80,8 @@ def parse_corners(chain: Chain, node, line, path) -> None:
         if not isinstance(raw, LList) and not isinstance(raw, list) or not raw:
             raise err("'rails' is a list of rail names, e.g. [vdd]", "rails")
         for r in raw:
+            if not isinstance(r, str):
+                raise err("'rails' is a list of rail names, e.g. [vdd]", "rails")
             if r not in chain.rails:
                 raise err(f"'{r}' is not a declared rail" + nearest(str(r), chain.rails), "rails")
         if supply is None:
