@@ -42,7 +42,9 @@ def run(args) -> int:
     dens, gain, gens = density_at(ev, freqs, band)
     if args.json:
         from ..render.json_out import clean, dumps
-        d = {"chain": chain.name, "file": chain.path, "f_ref_hz": chain.analysis.f_ref_hz,
+        from ..spec.safety import safety_notice
+        d = {"chain": chain.name, "file": chain.path, "hazards": chain.hazards,
+             "caution": safety_notice(chain.hazards), "f_ref_hz": chain.analysis.f_ref_hz,
              "temperature_k": chain.temp_k, "input_unit": chain.source.model.signal_unit, **noise_json(res),
              "density": [{"f_hz": f, "out_v_per_rthz": float(dens[0, i]),
                           "in_v_per_rthz": float(dens[0, i] / gain[0, i]) if gain[0, i] > 0 else None}

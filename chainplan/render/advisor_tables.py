@@ -11,6 +11,7 @@ from ..placement.advisor import Advice, CandidateEffect
 from ..placement.optimiser import Measured, Plan, Shortfall, target_text
 from ..spec.numbers import figure, figures, loss
 from .console import db, eng
+from ..spec.safety import safety_notice
 from .json_out import clean
 from .layout import Col, print_table
 from .tables import chain_heading
@@ -90,7 +91,8 @@ def _signed_v(v) -> str:
 
 def advice_dict(a: Advice) -> dict:
     return clean({
-        "chain": a.chain.name, "file": a.chain.path, "f_ref_hz": a.f_ref_hz, "output": a.output,
+        "chain": a.chain.name, "file": a.chain.path, "hazards": a.chain.hazards,
+        "caution": safety_notice(a.chain.hazards), "f_ref_hz": a.f_ref_hz, "output": a.output,
         "gain_db": a.gain_db, "cost_basis": a.cost_basis, "thresholds": a.thresholds,
         "interfaces": [{
             "from": i.source, "to": i.reader, "z_source_ohm": i.z_source_ohm, "z_load_ohm": i.z_load_ohm,
@@ -199,7 +201,8 @@ def plan_dict(p: Plan, requirements=None) -> dict:
     from ..studies.requirements import result_dict
     t = p.targets
     return clean({
-        "chain": p.chain.name, "file": p.chain.path, "feasible": p.feasible, "cost_basis": p.cost_basis,
+        "chain": p.chain.name, "file": p.chain.path, "hazards": p.chain.hazards,
+        "caution": safety_notice(p.chain.hazards), "feasible": p.feasible, "cost_basis": p.cost_basis,
         "cost": p.cost, "n_buffers": p.n_buffers,
         "targets": {"min_gain_db": [{"f_hz": f, "db": v} for f, v in t.min_gain_db.items()],
                     "max_gain_db": [{"f_hz": f, "db": v} for f, v in t.max_gain_db.items()],

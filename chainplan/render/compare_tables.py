@@ -61,7 +61,7 @@ def sections(d: Diff) -> list:
 def compare_tables(d: Diff, console) -> None:
     from rich.text import Text
     console.print(Text(f"{d.old.label}  →  {d.new.label}", style="bold"))
-    note = safety_notice(sorted(set(d.old.chain.hazards) | set(d.new.chain.hazards)))
+    note = caution(d)
     if note:
         console.print(Text(note, style="bold red"))
     console.print(headline(d), style="bold red" if d.regressions else "bold")
@@ -72,10 +72,20 @@ def compare_tables(d: Diff, console) -> None:
                     styles=["bold red" if regression else None for _, regression in rows])
 
 
+def hazards(d: Diff) -> list:
+    """The hazards of either side (a change may add or remove one: both count)."""
+    return sorted(set(d.old.chain.hazards) | set(d.new.chain.hazards))
+
+
+def caution(d: Diff) -> str | None:
+    return safety_notice(hazards(d))
+
+
 def compare_dict(d: Diff) -> dict:
     from .json_out import clean
     return clean({
         "old": d.old.label, "new": d.new.label, "chain": d.new.chain.name,
+        "hazards": hazards(d), "caution": caution(d),
         "regressions": d.regressions, "unchanged": d.unchanged,
         "parameters": [{"where": p.where, "old": p.old, "new": p.new} for p in d.params],
         "budget": [{"key": c.key, "label": c.label, "unit": c.unit, "old": c.old, "new": c.new,
@@ -93,6 +103,7 @@ def compare_markdown(d: Diff) -> str:
     """A pull-request comment: headline, then only what changed, regressions in bold."""
     out = [f"### chainplan: `{_md(d.new.chain.name)}` budget change", "",
            f"`{_md(d.old.label)}` → `{_md(d.new.label)}`", "",
+           *([f"> **{_md(caution(d))}**", ""] if caution(d) else []),
            ("**" + headline(d) + "**") if d.regressions else headline(d), ""]
     for title, cols, rows in sections(d):
         out += [f"#### {title}", "", "| " + " | ".join(n for n, _ in cols) + " |",

@@ -6,6 +6,7 @@ import math
 from ..studies.montecarlo import McResult, metric_info, metrics, stats
 from ..studies.requirements import evaluate_requirements, show
 from ..spec.numbers import figure, figures
+from ..spec.safety import safety_notice
 from .layout import Col, print_table
 from .tables import chain_heading
 
@@ -115,7 +116,8 @@ def spread_dict(res: McResult, nominal, corners: McResult) -> dict:
     from .json_out import clean
     nom_req = evaluate_requirements(nominal)
     return clean({
-        "chain": res.chain.name, "file": res.chain.path, "samples": res.samples, "seed": res.seed,
+        "chain": res.chain.name, "file": res.chain.path, "hazards": res.chain.hazards,
+        "caution": safety_notice(res.chain.hazards), "samples": res.samples, "seed": res.seed,
         "valid_fraction": float(res.valid.mean()) if res.samples else None,
         "inputs": sorted(res.inputs),
         "metrics": {key: {"nominal": n0, "mean": s.mean, "std": s.std, "p0_1": s.p_low, "p50": s.median,
