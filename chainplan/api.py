@@ -19,6 +19,7 @@ from .spec.loader import load_chain, load_chain_text
 BUDGET_HOOKS: list[str] = [
     "chainplan.engine.noise:attach_to_budget",
     "chainplan.engine.aliasing:attach_to_budget",
+    "chainplan.engine.dcerror:attach_to_budget",
     "chainplan.studies.requirements:attach_to_budget",
 ]
 

@@ -15,6 +15,8 @@ COMMANDS = {
     "budget": ("chainplan.commands.budget", "compute and print the budget of a chain"),
     "buffers": ("chainplan.commands.buffers", "where a buffer pays off, what it costs, and the cheapest placement"),
     "noise": ("chainplan.commands.noise", "noise contributors, SNR, dynamic range and ENOB at the converter"),
+    "accuracy": ("chainplan.commands.accuracy", "DC error budget: offset, bias current, gain error and drift, "
+                 "before and after calibration"),
     "check": ("chainplan.commands.check", "check the requirements of one or more chains (exit 1 if any fails)"),
     "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, yield, what drives the spread"),
     "compare": ("chainplan.commands.compare", "what a change did to the budget: two specs, or one at two git revisions"),

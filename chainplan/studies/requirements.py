@@ -59,7 +59,19 @@ KINDS: dict[str, Kind] = {k.key: k for k in (
          "total power of the follower stages (or stages:)"),
     Kind("min_alias_rejection", "min_alias_rejection_db", "dB", "dB", "min", (),
          "gain drop from f_ref to the first frequency the ADC folds into the band"),
+    # DC accuracy (engine/dcerror.py): limits in V, LSB, % (of full scale; of the gain for
+    # max_gain_error) or the sensor unit of accuracy.sensitivity; 'rule: rss' for the RSS total
+    Kind("max_offset_error", "max_offset_error", "error", "", "max", ("rule",),
+         "initial offset error at 25 °C after the calibration (V, LSB, %FS or sensor units)"),
+    Kind("max_gain_error", "max_gain_error", "error", "", "max", ("rule",),
+         "initial gain error after the calibration (% of the gain, or V, LSB, sensor units at the signal's peak)"),
+    Kind("max_drift", "max_drift", "error", "", "max", ("rule",),
+         "DC error drift over the temperature range (V, LSB, %FS or sensor units)"),
+    Kind("max_total_error", "max_total_error", "error", "", "max", ("rule",),
+         "total DC error: initial after the calibration plus drift (V, LSB, %FS or sensor units)"),
 )}
+ERROR_KINDS = {"max_offset_error": "offset", "max_gain_error": "gain", "max_drift": "drift",
+               "max_total_error": "total"}
 NOISE_KINDS = ("min_snr", "min_enob")
 
 
@@ -76,6 +88,7 @@ class Requirement:
     band_hz: tuple | None = None
     targets: tuple | None = None       # nodes / interfaces (reading stage) / stages; None = all
     line: int | None = None
+    rule: str | None = None            # DC error totals: 'worst_case' (default) or 'rss'
 
     def describe(self, full: bool = True) -> str:
         """The requirement in words, e.g. '≥ 30.00 dB at 1.00 kHz' (``full=False``: '≥ 30.00 dB')."""
@@ -105,7 +118,10 @@ class ReqResult:
 
 
 def show(x, unit: str) -> str:
-    """A requirement value in its unit: dB with two decimals, bits with two, others in engineering notation."""
+    """A requirement value in its unit: dB with two decimals, bits with two, others in engineering
+    notation; LSB and sensor units (DC error limits) with three significant figures."""
+    if unit not in ("V", "%", "dB", "bits", "Hz", "W", "A") and unit and x is not None and math.isfinite(x):
+        return f"{x:.3g} {unit}".replace("-", "−")
     return figure(x, unit, signed=False)
 
 
@@ -150,8 +166,12 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
             raise SpecError(f"unknown key '{key}'" + hint, path, item.line_of(key), f"{where}.{key}")
     err = lambda msg, key: SpecError(msg, path, item.line_of(key), f"{where}.{key}")  # noqa: E731
     raw = item[k.key]
+    symbol = k.symbol
     try:
-        limit = parse_value(raw, k.unit)
+        if k.unit == "error":
+            limit, symbol = _error_limit(raw, chain)
+        else:
+            limit = parse_value(raw, k.unit)
     except UnitError as exc:
         raise err(str(exc), k.key) from None
     if not math.isfinite(limit):
@@ -184,12 +204,43 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
         for t in targets:
             if chain.stage(t).role != "two_port":
                 raise err(f"'{t}' draws no supply power (kind {chain.stage(t).kind})", "stages")
+    rule = None
+    if "rule" in item:
+        rule = item["rule"]
+        if rule not in ("worst_case", "rss"):
+            raise err(f"'{rule}' is not a rule" + nearest(str(rule), ("worst_case", "rss")) +
+                      " (worst_case: the linear sum; rss: the root sum of squares)", "rule")
+    if k.unit == "error" and limit < 0:
+        raise err(f"{k.key} cannot be negative", k.key)
     name = item.get("name")
     if name is not None and (not isinstance(name, str) or not name.strip()):
         raise err("'name' must be text", "name")
     name = name.strip() if name else _default_name(k.key, at, band, targets)
-    return Requirement(name, k.key, k.kind, limit, k.symbol, k.sense, str(raw).strip(), at, band, targets,
-                       item.line)
+    return Requirement(name, k.key, k.kind, limit, symbol, k.sense, str(raw).strip(), at, band, targets,
+                       item.line, rule)
+
+
+def _error_limit(raw, chain):
+    """A DC error limit: '2 mV', '4 LSB', '0.1 %' or '0.05 pH' (the sensor unit of
+    accuracy.sensitivity) -> (value in that unit, the unit's symbol); % is a fraction."""
+    text = str(raw).strip()
+    acc = chain.extra.get("accuracy")
+    unit = getattr(acc, "sensor_unit", None)
+    for sym in ("LSB", unit):
+        if sym and text.endswith(sym) and text[:-len(sym)].strip():
+            number = text[:-len(sym)].strip()
+            if sym == "LSB" and not any(st.kind == "adc" for st in chain.stages):
+                raise UnitError(f"'{text}': LSB needs an ADC reading the output")
+            return parse_value(number, "1"), sym
+    if text.endswith("%"):
+        return parse_value(text, "%"), "%"
+    try:
+        return parse_value(text, "V"), "V"
+    except UnitError:
+        words = "V, LSB, % or " + (f"'{unit}' (accuracy.sensitivity)" if unit else
+                                  "a sensor unit once accuracy.sensitivity declares one")
+        raise UnitError(f"'{text}' is not a DC error limit: give it in {words}, e.g. '2 mV', '4 LSB', "
+                        "'0.1 %'") from None
 
 
 def _default_name(key, at, band, targets) -> str:
@@ -263,6 +314,11 @@ class _Views:
     @functools.cached_property
     def edges(self):
         return self.ev.band_edges()
+
+    @functools.cached_property
+    def dc_errors(self):
+        from ..engine.dcerror import analyse_dc_errors
+        return analyse_dc_errors(self.ev.chain)
 
     @functools.cached_property
     def noise(self):
@@ -344,9 +400,20 @@ def _alias(v: _Views, r):
     return alias_check(v.ev).value_db, None
 
 
+def _dc_error(v: _Views, r):
+    """The budget's figure (engine/dcerror.py) in the requirement's unit: the nominal chain's
+    worst case (or RSS), the same for every sample of a run."""
+    res = v.dc_errors
+    what = ERROR_KINDS[r.key]
+    unit = r.unit
+    x = res.in_unit(res.total(what, r.rule or "worst_case"), unit, what)
+    return np.full(v.n, x), None
+
+
 _VALUE = {"min_gain": _gain_db, "max_gain": _gain_db, "flatness": _flatness, "min_f_high": _f_high,
           "max_f_low": _f_low, "min_headroom": _headroom, "max_loading_loss": _loading, "min_snr": _snr,
-          "min_enob": _enob, "max_buffer_power": _power, "min_alias_rejection": _alias}
+          "min_enob": _enob, "max_buffer_power": _power, "min_alias_rejection": _alias,
+          **{k: _dc_error for k in ERROR_KINDS}}
 
 
 def evaluate_requirements(ev, reqs=None) -> list[ReqResult]:
@@ -414,10 +481,12 @@ def __getattr__(name):
     from ..stages.base import Field
     value = lambda unit, doc: field_schema(Field(unit, doc, tolerable=False))  # noqa: E731
     names = {"anyOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}, "minItems": 1}]}
-    props = {k.key: value(k.unit, k.what) for k in KINDS.values()}
+    props = {k.key: value(k.unit, k.what) if k.unit != "error" else
+             {"type": ["string", "number"], "description": k.what} for k in KINDS.values()}
     props.update(name={"type": "string", "description": "what tables, JUnit and diffs call it"},
                  at=value("Hz", "frequency (default: f_ref)"),
                  band={"type": "array", "items": value("Hz", "band end"), "minItems": 2, "maxItems": 2},
+                 rule={"enum": ["worst_case", "rss"], "description": "DC error total: linear sum or RSS"},
                  nodes=names, interfaces=names, stages=names)
     item = {"type": "object", "properties": props, "additionalProperties": False,
             "oneOf": [{"required": [k]} for k in KINDS]}
