@@ -112,6 +112,11 @@ def test_every_kind_accepts_its_spec_form():
     interfaces: [div]
   - max_buffer_power: 1 W
     stages: [buf]
+  - max_offset_error: 1 mV
+  - max_gain_error: 0.5 %
+  - max_drift: 2 mV
+    rule: rss
+  - max_total_error: 1 %
 """
     reqs = rc_with(text).extra["requirements"]
     assert {r.key for r in reqs} == set(KINDS) - set(NOISE_KINDS) - {"min_alias_rejection"}  # tests/test_aliasing.py
