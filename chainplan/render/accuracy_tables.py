@@ -41,6 +41,12 @@ def accuracy_tables(r, console, reqs=()) -> None:
                   f"; initial at 25 °C, {span}; {CAL_WORDS[r.calibration]}")
     console.print(f"DC gain {r.gain_dc:.4g} V/{r.signal_unit}; gain errors at ±{eng(r.amplitude, r.signal_unit)} "
                   "from the zero point")
+    if not r.contributors:
+        console.print("no DC error sources in this spec: give the data-sheet limits (vos, ib, offset, gain_error, "
+                      "…), tolerances or a temperature range (docs/accuracy.md)")
+        for line in r.notes:
+            console.print(f"note: {line}")
+        return
     t = Table(title="Error contributors (at the output)", box=bx, title_justify="left")
     for col in ("contributor", "offset", "gain", "drift", "counted"):
         t.add_column(col, justify="left" if col == "contributor" else "right")
