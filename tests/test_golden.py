@@ -37,7 +37,8 @@ def _screens():
             out.append((f"{name}.buffers", ["buffers", rel]))
     out += [("hydrophone.compare", ["compare", "chains/hydrophone_direct.yaml", "chains/hydrophone_buffered.yaml"]),
             ("hydrophone_direct.place", ["buffers", "--place", "chains/hydrophone_direct.yaml"]),
-            ("ph_probe_dc.budget-wide", ["budget", "--wide", "chains/ph_probe_dc.yaml"])]
+            ("ph_probe_dc.budget-wide", ["budget", "--wide", "chains/ph_probe_dc.yaml"]),
+            ("ph_dosing_precision.accuracy", ["accuracy", "chains/ph_dosing_precision.yaml"])]
     return out
 
 
