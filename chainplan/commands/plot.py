@@ -6,7 +6,7 @@ import os
 
 from .common import add_analysis_options, apply_analysis_options
 
-WHICH = ("levels", "gain", "noise", "montecarlo")
+WHICH = ("levels", "gain", "noise", "montecarlo", "compare")
 
 
 def add_arguments(p):
@@ -15,7 +15,32 @@ def add_arguments(p):
                    help="folder for the files, created if needed (default: the current folder)")
     p.add_argument("--only", metavar="NAMES", help="comma-separated subset of: " + ", ".join(WHICH))
     add_montecarlo_options(p)
+    add_against_option(p)
     add_analysis_options(p, json=False)
+
+
+def add_against_option(p):
+    p.add_argument("--against", metavar="OLD", help="also draw the gain and noise of FILE against OLD overlaid "
+                   "(a spec file, or FILE@REV for a git revision, e.g. 'chains/x.yaml@HEAD')")
+
+
+def comparison_figure(args, b, noise):
+    """The before/after picture of ``--against`` (None without it)."""
+    if not getattr(args, "against", None):
+        return None
+    import os
+
+    from ..api import budget_for
+    from ..engine.noise import analyse_noise
+    from ..studies.diffing import load_side
+    path, rev = args.against, None
+    if not os.path.exists(path) and "@" in path:
+        path, rev = path.rsplit("@", 1)
+    old = load_side(path, rev, lambda chain: apply_analysis_options(chain, args))
+    b_old = budget_for(old.chain)
+    from ..render.plots import comparison_plot
+    return comparison_plot(b_old, b, analyse_noise(b_old.ev) if noise is not None else None, noise,
+                           labels=(old.label, b.chain.path or b.chain.name))
 
 
 def add_montecarlo_options(p):
@@ -59,10 +84,15 @@ def run(args) -> int:
         raise UsageError(f"--only: unknown figure '{bad[0]}' (choose from {', '.join(WHICH)})")
     if "montecarlo" in wanted and args.only and not args.mc:
         raise UsageError("--only montecarlo needs --mc N (the number of samples)")
+    if "compare" in wanted and args.only and not args.against:
+        raise UsageError("--only compare needs --against OLD (the spec to compare with)")
     check_folder(args.out)                       # refuse a bad folder before any work
     b, noise, mc = analyse_for_pictures(args)
     from ..render import plots
     figs = {k: v for k, v in plots.figures(b, noise, mc).items() if k in wanted}
+    cmp = comparison_figure(args, b, noise) if "compare" in wanted else None
+    if cmp is not None:
+        figs["compare"] = cmp
     stem = os.path.splitext(os.path.basename(args.file))[0]
     for path in plots.save(figs, args.out, stem):
         print(path)

@@ -4,7 +4,7 @@ from __future__ import annotations
 import os
 
 from .common import add_analysis_options
-from .plot import add_montecarlo_options, analyse_for_pictures
+from .plot import add_against_option, add_montecarlo_options, analyse_for_pictures, comparison_figure
 
 
 def add_arguments(p):
@@ -12,6 +12,7 @@ def add_arguments(p):
     p.add_argument("-o", "--output", metavar="PATH",
                    help="the HTML file to write (default: <spec name>-report.html in the current folder)")
     add_montecarlo_options(p)
+    add_against_option(p)
     add_analysis_options(p, json=False)
 
 
@@ -21,7 +22,12 @@ def run(args) -> int:
     path = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-report.html"
     check_folder(os.path.dirname(path))          # refuse a bad folder before any work
     b, noise, mc = analyse_for_pictures(args)
+    from ..render.plots import figures
     from ..render.report import report_html
-    write_atomic({path: report_html(b, noise, mc)})
+    figs = figures(b, noise, mc)
+    cmp = comparison_figure(args, b, noise)
+    if cmp is not None:
+        figs["compare"] = cmp
+    write_atomic({path: report_html(b, noise, mc, figures=figs)})
     print(path)
     return 0

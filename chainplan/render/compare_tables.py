@@ -6,16 +6,20 @@ import math
 from ..studies.diffing import Diff
 from ..studies.requirements import show
 from ..spec.safety import safety_notice
+from ..spec.numbers import figure
 from .layout import Col, print_table
 
 MARK = {"worse": "worse", "clips now": "CLIPS NOW", "fails now": "FAILS NOW"}
 
 
 def _delta(c) -> str:
+    """new − old in the figure's unit, and relative for figures that are not in dB or bits."""
     if c.old is None or c.new is None or not (math.isfinite(c.old) and math.isfinite(c.new)):
         return ""
-    d = show(c.new - c.old, c.unit)
-    return d if d.startswith("−") else "+" + d
+    d = figure(c.new - c.old, c.unit, signed=True)
+    if c.unit not in ("dB", "bits") and c.old != 0:
+        d += f" ({figure((c.new - c.old) / abs(c.old), '%', signed=True)})"
+    return d
 
 
 def _req_cell(r) -> str:
@@ -66,7 +70,7 @@ def compare_tables(d: Diff, console) -> None:
         console.print(Text(note, style="bold red"))
     console.print(headline(d), style="bold red" if d.regressions else "bold")
     for title, cols, rows in sections(d):
-        print_table(console, [Col(name, right=right, wrap=0 if right else (2 if i == 0 else 1))
+        print_table(console, [Col(name, right=right, wrap=0 if right or not name else (2 if i == 0 else 1))
                               for i, (name, right) in enumerate(cols)],
                     [list(cells) for cells, _ in rows], title=title,
                     styles=["bold red" if regression else None for _, regression in rows])

@@ -365,6 +365,43 @@ def montecarlo_plot(mc, nominal: dict | None = None, max_panels: int = 9):
 
 # -- writing ---------------------------------------------------------------------
 
+# -- a comparison of two revisions -------------------------------------------------
+
+def comparison_plot(old: Budget, new: Budget, noise_old=None, noise_new=None, labels=("before", "after")):
+    """Before and after overlaid: the end-to-end gain over frequency and, when the noise
+    analysis exists, the output noise density (``chainplan compare`` in a picture)."""
+    panels = 2 if noise_old is not None and noise_new is not None else 1
+    hazardous = old.chain if old.chain.hazards and not new.chain.hazards else new.chain
+    fig = _figure(8.0, 3.4 * panels + 1.0)
+    margin = _caution_margin(fig, hazardous)
+    gs = fig.add_gridspec(panels, 1, hspace=0.3, left=0.12, right=0.97, top=0.88, bottom=0.1 + margin)
+    ax = fig.add_subplot(gs[0])
+    for b, lab, style in ((old, labels[0], dict(color=QUIET, ls="--", lw=1.6)),
+                          (new, labels[1], dict(color="black", lw=1.8))):
+        h = np.asarray(b.ev.gain(b.output))[0, 1:]
+        ax.semilogx(b.ev.span, 20 * np.log10(np.maximum(np.abs(h), 1e-300)), label=f"{lab}: {_db(b.gain_db)}"
+                    f"{b.gain_unit[2:]} at f_ref", gid=f"compare:gain:{'old' if b is old else 'new'}", **style)
+    ax.set_ylabel("gain to the output, dB" if new.gain_unit == "dB" else "transimpedance, dBΩ")
+    ax.grid(which="both", color="#e6e6e6", lw=0.6)
+    ax.legend(loc="lower center", fontsize=8, frameon=False)
+    if panels == 2:
+        axn = fig.add_subplot(gs[1], sharex=ax)
+        for nr, lab, style in ((noise_old, labels[0], dict(color=QUIET, ls="--", lw=1.6)),
+                               (noise_new, labels[1], dict(color="black", lw=1.8))):
+            axn.loglog(np.asarray(nr.f_hz), np.asarray(nr.out_density)[0],
+                       label=f"{lab}: {fmt(float(np.ravel(nr.out_vrms)[0]), 'V')} rms",
+                       gid=f"compare:noise:{'old' if nr is noise_old else 'new'}", **style)
+        axn.set_ylabel("output noise density, V/√Hz")
+        axn.grid(which="both", color="#e6e6e6", lw=0.6)
+        axn.legend(loc="upper right", fontsize=8, frameon=False)
+        axn.set_xlabel("frequency, Hz")
+    else:
+        ax.set_xlabel("frequency, Hz")
+    _title(fig, f"{new.chain.name}: before (dashed) and after (solid)")
+    _finish(fig, hazardous)
+    return fig
+
+
 def figure_bytes(fig, fmt_: str) -> bytes:
     """PNG or SVG of a figure; SVG keeps text as text and is reproducible (no date, fixed ids)."""
     import matplotlib

@@ -93,7 +93,8 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
                           "at every interface.",
                 "gain": "Gain V(node)/Vs over frequency at every node; the output in black with its −3 dB edges.",
                 "noise": "Output noise density and each contributor's share of the output noise power.",
-                "montecarlo": "Monte Carlo: every requirement's spread, its limit (failing side shaded) and yield."}
+                "montecarlo": "Monte Carlo: every requirement's spread, its limit (failing side shaded) and yield.",
+                "compare": "Before (dashed) and after (solid): the gain to the output and the output noise density."}
     out.append("<h2>Figures</h2>")
     for name, fig in figs.items():
         out.append(f'<figure id="fig-{_e(name)}">{_svg(fig)}<figcaption>{_e(captions.get(name, name))}'

@@ -4,12 +4,25 @@ tree is never touched).
 
 Budget figures compared: the same per-sample metrics a tolerance run reports
 (gain, band edges, every interface's loading loss, every node's headroom,
-power, noise/SNR/ENOB when the noise analysis exists) and every requirement's
-value and status.  A figure with a better direction (less loading loss, more
-headroom, less noise, less power) that moved the wrong way by more than a
-significant amount (``SIGNIFICANT``: 0.05 dB, 1 mV or 1 %, ...) is a regression,
-as is a requirement that passed before and fails now; gain and band edges are
-design choices and only reported as changed.
+power, noise/SNR/ENOB when the noise analysis exists, and any figure added to
+``montecarlo.METRICS``) and every requirement's value and status.  Interfaces
+are matched by their two ends (``element → lead`` and ``follower → lead`` are
+different interfaces), nodes and figures by name.
+
+The rules (docs/requirements.md, "compare"):
+
+* **listed** — a figure is listed when it moved by more than ``LISTED``: a
+  relative amount of its own size (0.1 %), never less than the floor of its
+  unit below which a value has no meaning on a screen (1 nV, 1 pA, 1 pW; dB
+  and bits: 0.005); there is no fixed µV tolerance, so a sub-µV noise figure
+  that moves by 19 % is listed.
+* **worse** — a figure with a better direction (less loading loss, more
+  headroom, less noise, more SNR and ENOB, less power, a wider band) that moved
+  the wrong way by more than ``SIGNIFICANT`` (1 % of its size; 0.05 dB; 0.05
+  bits) is *worse* and a regression — ``--strict`` fails on it; a smaller move
+  the wrong way is "slightly worse" and is not.  A node whose headroom goes
+  negative "clips now"; a requirement that passed and fails now regresses.
+  The gain alone has no direction (a design choice): it is "changed".
 """
 from __future__ import annotations
 
@@ -21,18 +34,31 @@ from dataclasses import dataclass, field
 from ..errors import UsageError
 from ..spec.model import Chain
 
-#: unit -> (absolute, relative) tolerance under which a figure counts as unchanged
-SAME = {"dB": (0.005, 0.0), "bits": (0.005, 0.0), "V": (1e-6, 1e-6), "Hz": (0.0, 1e-4), "W": (1e-12, 1e-6)}
-#: (absolute, relative) change a figure must move the wrong way by to count as a
-#: regression (``--strict`` fails on these); smaller moves show as "slightly worse"
-SIGNIFICANT = {"dB": (0.05, 0.0), "bits": (0.05, 0.0), "V": (1e-3, 0.01), "Hz": (0.0, 0.01), "W": (1e-9, 0.01)}
+#: unit -> (absolute floor, relative part) of the move under which a figure counts as unchanged;
+#: units without an entry use (the floor of meaning of spec.numbers.FLOOR or 0, LISTED_REL)
+LISTED_REL = 1e-3
+LISTED = {"dB": (0.005, 0.0), "bits": (0.005, 0.0)}
+#: (absolute floor, relative part) of the move the wrong way that makes a figure worse
+#: (a regression; ``--strict`` fails on it); smaller moves show as "slightly worse"
+SIGNIFICANT_REL = 0.01
+SIGNIFICANT = {"dB": (0.05, 0.0), "bits": (0.05, 0.0)}
+
+
+def threshold(unit: str, x: float, y: float, kind: str = "listed") -> float:
+    """The move a figure of ``unit`` between ``x`` and ``y`` must exceed to be listed
+    (``kind='listed'``) or to be worse (``kind='worse'``): relative to its size, never
+    below the floor of meaning of its unit."""
+    from ..spec.numbers import FLOOR
+    table, rel = (LISTED, LISTED_REL) if kind == "listed" else (SIGNIFICANT, SIGNIFICANT_REL)
+    atol, rtol = table.get(unit, (FLOOR.get(unit, (0.0, ""))[0], rel))
+    return atol + rtol * max(abs(x), abs(y))
 
 
 @dataclass
 class Side:
     label: str              # 'chains/x.yaml' or 'chains/x.yaml@HEAD'
     chain: Chain
-    metrics: dict           # key -> float (nominal)
+    metrics: dict           # key -> float (nominal); interfaces keyed by both ends (see side_metrics)
     requirements: dict      # name -> result_dict
 
 
@@ -131,9 +157,32 @@ def analyse_side(chain: Chain, label: str) -> Side:
     from .requirements import evaluate_requirements, result_dict
     ev = evaluate(chain)
     check_operating_points(chain, ev.dc)
-    mets = {k: float(v[0]) for k, v in metrics(ev).items()}
+    mets = side_metrics(chain, {k: float(v[0]) for k, v in metrics(ev).items()})
     reqs = {r.name: result_dict(r) for r in evaluate_requirements(ev)}
     return Side(label, chain, mets, reqs)
+
+
+def side_metrics(chain: Chain, mets: dict) -> dict:
+    """Metric keys as compared: a loading loss keyed by its two ends
+    ('loading_loss_db.element>lead'), so a stage inserted before a reader makes a
+    new interface instead of renaming the old one."""
+    out = {}
+    for k, v in mets.items():
+        base, _, reader = k.partition(".")
+        if base == "loading_loss_db" and reader and ">" not in reader:
+            k = f"{base}.{chain.stage(reader).parent}>{reader}"
+        out[k] = v
+    return out
+
+
+def figure_info(chain: Chain, key: str) -> tuple[str, str, int]:
+    """(label, unit, better direction) of a compared key (see :func:`side_metrics`)."""
+    from .montecarlo import METRICS, metric_info
+    base, _, target = key.partition(".")
+    if base == "loading_loss_db" and ">" in target:
+        text, unit, better = METRICS[base]
+        return f"{text} {target.replace('>', ' → ')}", unit, better
+    return metric_info(chain, key)
 
 
 # -- comparing ------------------------------------------------------------------
@@ -195,17 +244,15 @@ def _same(x, y, unit) -> bool:
         return True
     if math.isinf(x) or math.isinf(y):
         return x == y
-    atol, rtol = SAME.get(unit, (0.0, 1e-9))
-    return abs(x - y) <= atol + rtol * max(abs(x), abs(y))
+    return abs(x - y) <= threshold(unit, x, y, "listed")
 
 
 def budget_changes(old: Side, new: Side) -> tuple[list[Change], int]:
-    from .montecarlo import metric_info
     out, same = [], 0
     keys = list(old.metrics) + [k for k in new.metrics if k not in old.metrics]
     for key in keys:
         x, y = old.metrics.get(key), new.metrics.get(key)
-        label, unit, better = metric_info(new.chain if y is not None else old.chain, key)
+        label, unit, better = figure_info(new.chain if y is not None else old.chain, key)
         if x is None or y is None:
             out.append(Change(key, label, unit, x, y, "added" if x is None else "removed"))
             continue
@@ -215,8 +262,7 @@ def budget_changes(old: Side, new: Side) -> tuple[list[Change], int]:
         verdict, regression = "changed", False
         if better and not (math.isnan(x) or math.isnan(y)):
             worse = (y - x) * better < 0
-            atol, rtol = SIGNIFICANT.get(unit, (0.0, 0.0))
-            big = math.isinf(x) or math.isinf(y) or abs(y - x) > atol + rtol * max(abs(x), abs(y))
+            big = math.isinf(x) or math.isinf(y) or abs(y - x) > threshold(unit, x, y, "worse")
             verdict = ("worse" if big else "slightly worse") if worse else "better"
             regression = worse and big
         if key.startswith("headroom_v.") and x >= 0 > y:

@@ -121,9 +121,12 @@ def metrics(ev) -> dict:
     return out
 
 
-#: metric key (before the '.') -> (words, unit symbol, better direction: +1 higher, −1 lower, 0 neither)
-METRICS = {"gain_db": ("gain at f_ref", "dB", 0), "f_low_hz": ("lower −3 dB edge", "Hz", 0),
-           "f_high_hz": ("upper −3 dB edge", "Hz", 0), "loading_loss_db": ("loading loss", "dB", -1),
+#: metric key (before the '.') -> (words, unit symbol, better direction: +1 higher, −1 lower, 0 neither).
+#: Every figure of merit has a direction (``compare --strict`` fails when one moves the wrong way;
+#: a wider band is better); only the gain, a design choice, has none.  A new metric must name one
+#: (tests/test_compare_sees.py checks it).
+METRICS = {"gain_db": ("gain at f_ref", "dB", 0), "f_low_hz": ("lower −3 dB edge", "Hz", -1),
+           "f_high_hz": ("upper −3 dB edge", "Hz", +1), "loading_loss_db": ("loading loss", "dB", -1),
            "headroom_v": ("headroom", "V", +1), "power_w": ("supply power", "W", -1),
            "buffer_power_w": ("buffer power", "W", -1), "noise_out_vrms": ("output noise", "V", -1),
            "noise_in_vrms": ("input-referred noise", "V", -1), "snr_db": ("SNR", "dB", +1),
