@@ -18,7 +18,10 @@ COMMANDS = {
     "accuracy": ("chainplan.commands.accuracy", "DC error budget: offset, bias current, gain error and drift, "
                  "before and after calibration"),
     "check": ("chainplan.commands.check", "check the requirements of one or more chains (exit 1 if any fails)"),
-    "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, yield, what drives the spread"),
+    "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, production yield over the "
+               "corners, what drives the spread"),
+    "temperature": ("chainplan.commands.temperature", "the budget from cold to hot: gain, DC levels, headroom and "
+                    "noise at a list of temperatures, with the drift per kelvin"),
     "compare": ("chainplan.commands.compare", "what a change did to the budget: two specs, or one at two git revisions"),
     "plot": ("chainplan.commands.plot", "draw the level diagram, gain, noise and Monte Carlo figures (PNG, SVG)"),
     "report": ("chainplan.commands.report", "write a self-contained HTML review report of a chain"),

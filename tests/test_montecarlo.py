@@ -12,7 +12,7 @@ import pytest
 from chainplan.studies import montecarlo as mc
 from chainplan.engine.budget import analyse
 from chainplan.errors import SpecError
-from chainplan.studies.tolerances import corner_draws, draw
+from chainplan.studies.tolerances import at_corners, corner_points, draw
 from conftest import chain_from
 
 DIVIDER = """
@@ -29,11 +29,20 @@ def divider(ra="10k ±1%", rb="10k ±1%"):
     return chain_from(DIVIDER.format(ra=ra, rb=rb))
 
 
-@pytest.mark.parametrize("dist,k", [("normal", 1.0), ("uniform", 1 / math.sqrt(3))])
+def _truncated_sd(a=3.0):
+    """Standard deviation of a standard normal truncated at ±a, in units of the limit a:
+    √(1 − 2a·φ(a)/(2Φ(a) − 1))/a (truncated-normal variance, any statistics handbook, from memory)."""
+    phi = math.exp(-a * a / 2) / math.sqrt(2 * math.pi)
+    big = 0.5 * (1 + math.erf(a / math.sqrt(2)))
+    return math.sqrt(1 - 2 * a * phi / (2 * big - 1)) / a
+
+
+@pytest.mark.parametrize("dist,k", [("σ", 1.0), ("normal", _truncated_sd()), ("uniform", 1 / math.sqrt(3))])
 def test_divider_variance_matches_first_order_propagation(dist, k):
     """Law of propagation of uncertainty, u²(G) = Σ (∂G/∂x_i)²·u²(x_i) (GUM, JCGM 100:2008,
-    eq. 10, from memory), for G = Rb/(Ra + Rb); u = 1 % of 10 kΩ as one sigma (normal) or
-    as the half-width of a uniform distribution, u = w/√3 (GUM 4.3.7, from memory)."""
+    eq. 10, from memory), for G = Rb/(Ra + Rb); 1 % of 10 kΩ as one sigma ('σ'), as a limit
+    at 3σ truncated there ('normal'), or as the half-width of a uniform distribution,
+    u = w/√3 (GUM 4.3.7, from memory)."""
     ra, rb = 10e3, 4.7e3
     c = divider(f"10k ±1% {dist}", f"4.7k ±1% {dist}")
     n = 40_000
@@ -66,7 +75,7 @@ def test_nominal_sample_equals_the_budget():
     d = draw(c, 3, seed=5)
     for key in d.assign:                                   # every varied value back at nominal
         st, fld = key
-        nominal = c.temp_k if fld == "temp_k" else c.stage(st).params[fld]
+        nominal = c.stage(st).params[fld]
         d.assign[key] = np.full(3, nominal)
     res = mc.run_draws(d)
     b = analyse(c)
@@ -147,17 +156,20 @@ def test_a_rail_tolerance_moves_every_user_together_and_supply_corners_scale_rai
     d = draw(c, 1000, seed=1)
     vdd = d.assign[("a1", "v_pos")]
     assert np.array_equal(vdd, d.assign[("a2", "v_pos")]) and np.array_equal(vdd, d.assign[("adc", "fs_high")])
-    assert np.allclose(vdd, 5.0 * (1 + (d.inputs["rails.vdd"] / 5.0 - 1)) * d.inputs["corners.supply"])
-    assert ("sensor", "dc") not in d.assign                # vref is not moved by the supply corner
-    cd = corner_draws(c)
-    assert cd.n == 2 and sorted(cd.assign[("a1", "v_pos")]) == pytest.approx([4.5, 5.5])
+    assert np.array_equal(vdd, d.inputs["rails.vdd"])      # a unit's rail: its regulator's tolerance
+    corners = corner_points(c)
+    assert [k.supply for k in corners] == [1.0, 0.9, 1.1]
+    p = at_corners(d, slice(0, 1000), corners)             # every unit at every corner, unit-major
+    for st in ("a1", "a2"):
+        np.testing.assert_allclose(p[st]["v_pos"][:, 0], np.repeat(vdd, 3) * np.tile([1.0, 0.9, 1.1], 1000))
+    assert np.ndim(p["sensor"]["dc"]) == 0                 # vref is not moved by the supply corner
 
 
 def test_corners_block_parses_and_rejects_nonsense():
     base = "name: t\nrails: {vdd: 3 V}\nsource: {kind: sensor, amplitude: 1 V}\nstages: [{name: l, kind: load}]\n"
     c = chain_from(base + "corners: {temperature: 25 °C ±25 °C}\n")
     assert c.extra["corners"].temp_k == pytest.approx((273.15, 323.15))
-    assert corner_draws(c).labels == ["0 °C", "50 °C"]
+    assert [k.label for k in corner_points(c)] == ["27 °C", "0 °C", "50 °C"]     # the nominal first
     for text, msg in (("corners: {supply: 5 V}", "percentage"), ("corners: {temperature: [50 °C, 0 °C]}", "low"),
                       ("corners: {supply: ±5 %, rails: [vcc]}", "not a declared rail"),
                       ("corners: {heat: 1}", "unknown key")):
@@ -165,12 +177,23 @@ def test_corners_block_parses_and_rejects_nonsense():
             chain_from(base + text + "\n")
 
 
-def test_an_out_of_range_draw_is_an_invalid_sample_not_an_error():
-    c = divider("10k ±200% normal", "10k")          # a wide normal tolerance reaches R ≤ 0
+def test_an_out_of_range_draw_is_drawn_again_not_a_failure():
+    c = divider("10k σ=60%", "10k")                 # a wide σ reaches R ≤ 0 in about 5 % of first draws
     res = mc.run(c, 2000, seed=4)
-    bad = res.inputs["div.r_top"] <= 0
-    assert bad.any() and np.array_equal(~res.valid, bad)
+    assert (res.inputs["div.r_top"] > 0).all() and res.valid.all() and res.units == 2000
     assert np.isfinite(res.metrics["gain_db"]).all()
+
+
+def test_a_unit_still_non_physical_is_rejected_and_left_out_of_the_yield(monkeypatch):
+    """Without redraws, the first draws below 0 Ω reject their units: reported apart, outside
+    every yield's denominator, never a design failure."""
+    from chainplan.studies import tolerances
+    monkeypatch.setattr(tolerances, "REDRAWS", 0)
+    c = chain_from(DIVIDER.format(ra="10k σ=60%", rb="10k") + "requirements:\n  - min_gain: -40 dB\n")
+    res = mc.run(c, 2000, seed=4)
+    rejected = res.rejected
+    assert 0 < rejected.sum() < 200 and res.units == 2000 - rejected.sum()
+    assert res.yield_all == 1.0                     # every accepted unit passes
 
 
 def test_metric_names_match_the_metrics():
@@ -191,7 +214,7 @@ def test_spread_command_json_and_tables(cli, spec_file):
     assert 0 < req["yield"] < 1 and d["yield_all"] == req["yield"]
     assert d["ranking"]["of"] == "min_gain"
     rc, out, _ = cli("spread", path, "-n", "2000", "--seed", "7")
-    assert rc == 0 and "Yield" in out and "div.r_top" in out
+    assert rc == 0 and "Yield" in out and "div.r_top" in out and "95 % interval" in out
     rc, _, _ = cli("spread", path, "-n", "2000", "--min-yield", "99.9 %")
     assert rc == 1
 
@@ -224,14 +247,17 @@ def test_spread_usage_errors(cli, spec_file):
     assert rc == 2 and "did you mean 'gain_db'" in err
 
 
-def test_temperature_corners_reach_the_noise_of_a_passive_chain():
-    """Only temperature varies: the gain stays (1, F) while the noise varies per sample.
-    Resistor noise only, so v_rms ∝ √T (Johnson–Nyquist, v² = 4kTR·B; Nyquist, Phys. Rev. 32, 1928)."""
+def test_temperature_reaches_the_noise_of_a_passive_chain():
+    """Only temperature varies: the gain stays while the noise moves.  Resistor noise only,
+    so v_rms ∝ √T (Johnson–Nyquist, v² = 4kTR·B; Nyquist, Phys. Rev. 32, 1928)."""
     if not mc.has_noise():
         pytest.skip("no noise analysis in this version")
-    c = chain_from(DIVIDER.format(ra="10k", rb="10k").replace("analysis:", "corners: {temperature: [250 K, 350 K]}\n"
-                                                                           "analysis:"))
-    res = mc.run_draws(corner_draws(c))
-    lo, hi = res.metrics["noise_out_vrms"]
+    from chainplan.studies.tempsweep import sweep
+    c = chain_from(DIVIDER.format(ra="10k", rb="10k"))
+    res = sweep(c, [250.0, 350.0])
+    rows = {r.key: r for r in res.rows}
+    lo, hi = rows["noise_out_vrms"].values
     assert hi / lo == pytest.approx(math.sqrt(350 / 250), rel=1e-9)
-    assert res.metrics["gain_db"][0] == res.metrics["gain_db"][1]
+    g = rows["gain_db"]
+    assert g.values[0] == g.values[1] and res.drift(g) == 0.0
+    assert res.drift(rows["noise_out_vrms"]) == pytest.approx((hi - lo) / 100.0)

@@ -1,6 +1,7 @@
-"""``chainplan spread FILE``: tolerance Monte Carlo — every tolerance and corner
-drawn per sample; the distribution of every budget figure, the yield of each
-requirement and of all together, what drives the spread, and the corners."""
+"""``chainplan spread FILE``: tolerance Monte Carlo — every tolerance drawn per
+unit, every unit evaluated at every operating corner; the distribution of every
+budget figure, the production yield of each requirement and of all together
+with its 95 % interval, the yield at each corner, what drives the spread."""
 from __future__ import annotations
 
 import sys
@@ -15,8 +16,8 @@ def add_arguments(p):
     p.add_argument("--seed", type=int, default=1, help="random seed; the same seed gives the same numbers (default 1)")
     p.add_argument("--rank", metavar="METRIC", help="rank the inputs by their share of this metric's or "
                    "requirement's variance (default: the requirement with the lowest yield, else gain_db)")
-    p.add_argument("--min-yield", metavar="PERCENT", help="exit 1 when the yield of all requirements together "
-                   "is below this, e.g. '99 %%'")
+    p.add_argument("--min-yield", metavar="PERCENT", help="exit 1 unless the production yield is at least this "
+                   "with 95 %% confidence (the Wilson interval's lower bound decides), e.g. '99 %%'")
     add_analysis_options(p)
 
 
@@ -41,18 +42,22 @@ def run(args) -> int:
     _check_rank(chain, args.rank)
     with _Progress(args.samples) as tick:
         res = run_mc(chain, args.samples, args.seed, progress=tick, key=args.rank)
-    from ..studies.montecarlo import run_draws
-    from ..studies.tolerances import corner_draws
-    corners = run_draws(corner_draws(chain))
+    from ..studies.montecarlo import nominal_unit_at_corners
+    corners = nominal_unit_at_corners(chain, res.corners)
+    gate = None
+    if min_yield is not None:
+        lower = res.interval(res.yield_all)[0]
+        gate = {"min_yield": min_yield, "decided_on": "wilson_lower_95", "lower_bound": lower,
+                "passed": bool(lower >= min_yield)}
     if args.json:
         from ..render.json_out import dumps
         from ..render.spread_tables import spread_dict
-        print(dumps(spread_dict(res, nominal, corners)))
+        print(dumps(spread_dict(res, nominal, corners, gate)))
     else:
         from ..render.console import make_console
         from ..render.spread_tables import spread_tables
-        spread_tables(res, nominal, corners, make_console(wide=args.wide))
-    return 1 if min_yield is not None and res.yield_all < min_yield else 0
+        spread_tables(res, nominal, corners, make_console(wide=args.wide), gate)
+    return 1 if gate is not None and not gate["passed"] else 0
 
 
 def _check_rank(chain, key):

@@ -15,6 +15,7 @@ from .swing import class_a_limits
 from .workspace import Workspace
 from ..errors import SpecError
 from ..spec.model import Chain
+from ..stages.base import at_temperature
 
 SQRT_HALF = 1.0 / np.sqrt(2.0)
 
@@ -190,6 +191,7 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
     """DC and AC analysis; with a :class:`Workspace` (a Monte Carlo chunk) the AC arrays
     live in its recycled memory, valid until it is recycled."""
     params = params if params is not None else nominal_params(chain)
+    params = {st.name: at_temperature(st.raw.get("__tempco__"), params[st.name]) for st in chain.all_stages}
     f_hz = frequency_grid(chain) if f_hz is None else f_hz
     # A floating node or an impossible bias gives non-finite numbers in some samples;
     # they are reported per sample (check_operating_points, valid), not as numpy warnings.

@@ -199,7 +199,7 @@ def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
     s = (2j * np.pi * ev.f_hz)[None, :]
     h = ev.gain()[:, 1:]
     hw2 = np.repeat((h.real ** 2 + h.imag ** 2) * w, 2, axis=1)      # w·|H|² beside Re and Im
-    n = h.shape[0]
+    n = max(h.shape[0], ev.samples)     # the transfer may be one row while a power varies per sample
     on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
     conv, _ = converter(ev)
     f_sample = sample_rate(ev.chain, conv)

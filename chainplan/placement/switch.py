@@ -25,7 +25,7 @@ import numpy as np
 
 from ..spec.model import Stage
 from ..spec.parts import Candidate
-from ..stages.base import ABCD, NO_LOAD, DcLoad, DcState, Op
+from ..stages.base import ABCD, NO_LOAD, DcLoad, DcState, Op, at_temperature
 
 PASS, MODEL, TERMINAL = 0, 1, 2
 #: Kinds whose DC operating point is solved numerically (worth remembering per input row).
@@ -40,7 +40,7 @@ class Element:
 
     def __init__(self, stage: Stage, temp_k: float, candidate: Candidate | None = None, t_nom_k: float = 300.0):
         self.stage, self.model, self.kind = stage, stage.model, stage.kind
-        self.p = {**stage.params, "temp_k": temp_k, "t_nom_k": t_nom_k}
+        self.p = at_temperature(stage.raw.get("__tempco__"), {**stage.params, "temp_k": temp_k, "t_nom_k": t_nom_k})
         self.candidate = candidate                      # a buffer: its cost
         self.uid = float(next(_uids))
         self.term_op: Op | None = None

@@ -188,11 +188,15 @@ def _active_rows(b: Budget) -> list[tuple]:
 
 def _montecarlo_html(mc) -> list[str]:
     from ..studies.requirements import show
-    out = [f"<h2>Monte Carlo: {mc.samples} samples, seed {mc.seed}</h2>",
-           f"<p>All requirements met in <b>{100 * mc.yield_all:.2f} %</b> of the samples.</p>"]
+    ci = lambda y: "{:.2f} … {:.2f} %".format(*(100 * x for x in mc.interval(y)))  # noqa: E731
+    corners = len(mc.corners) if mc.corners else 1
+    out = [f"<h2>Monte Carlo: {mc.samples} units, seed {mc.seed}, {corners} operating corner"
+           f"{'s' * (corners != 1)}</h2>",
+           f"<p>Production yield (every requirement at every corner): <b>{100 * mc.yield_all:.2f} %</b> "
+           f"(95 % Wilson interval {ci(mc.yield_all)}).</p>"]
     if mc.requirements:
-        out.append(_table(["requirement", "limit", "yield"],
-                          [(r.name, r.requirement.describe(), f"{100 * mc.yield_of(r):.2f} %")
+        out.append(_table(["requirement", "limit", "yield", "95 % interval"],
+                          [(r.name, r.requirement.describe(), f"{100 * mc.yield_of(r):.2f} %", ci(mc.yield_of(r)))
                            for r in mc.requirements],
                           classes=["fail" if mc.yield_of(r) < 1 else "" for r in mc.requirements]))
     from ..studies.montecarlo import metric_info

@@ -15,7 +15,7 @@ from ..errors import SpecError, nearest
 from .model import Analysis, Chain, Stage
 from ..stages import REGISTRY
 from ..stages.base import Field
-from .units import UnitError, parse_toleranced, parse_value
+from .units import UnitError, parse_field_value, parse_toleranced, parse_value
 from .yamlsrc import LDict, LList, load_file, load_text
 
 HAZARDS = ("mains", "high_voltage", "patient")
@@ -270,9 +270,13 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
             raw, from_default = f.default, True
         else:
             raw, from_default = node[key], False
-        st.params[key], tol = _field_value(ctx, f, raw, rails, line, where, st, key)
+        st.params[key], tol, tc = _field_value(ctx, f, raw, rails, line, where, st, key)
         if not from_default:
             st.raw[key] = raw
+        if tc is not None:
+            if not f.tolerable or f.unit in ("choice", "K"):
+                raise ctx.err(f"'{key}' cannot carry a temperature coefficient", line, where)
+            st.raw.setdefault("__tempco__", {})[key] = tc
         if tol is not None:
             if not f.tolerable:
                 raise ctx.err(f"'{key}' cannot carry a tolerance", line, where)
@@ -284,18 +288,18 @@ def _field_value(ctx, f, raw, rails, line, where, st, key):
     if f.unit == "choice":
         if raw not in f.choices:
             raise ctx.err(f"'{raw}' is not valid" + nearest(str(raw), f.choices), line, where)
-        return raw, None
+        return raw, None, None
     if isinstance(raw, str) and raw in f.choices:
-        return raw, None
+        return raw, None, None
     if f.rail_ok and isinstance(raw, str) and NAME_RE.match(raw) and not _looks_numeric(raw):
         if raw not in rails:
             valid = sorted(set(rails) - {"__tol__"})
             raise ctx.err(f"'{raw}' is not a declared rail" + (nearest(raw, valid) if valid else
                           "; declare it under 'rails:' (e.g. vdd: 3.3 V)"), line, where)
         st.raw.setdefault("__rails__", {})[key] = raw
-        return rails[raw], None
+        return rails[raw], None, None
     try:
-        value, tol = parse_toleranced(raw, f.unit)
+        value, tol, tc = parse_field_value(raw, f.unit)
     except UnitError as exc:
         raise ctx.err(str(exc), line, where) from None
     check_range(ctx, f, value, tol, line, where)
@@ -303,7 +307,7 @@ def _field_value(ctx, f, raw, rails, line, where, st, key):
         raise ctx.err("bits is a whole number from 1 to 32", line, where)
     if key == "gain" and value == 0:
         raise ctx.err("a gain of zero passes no signal; give a non-zero gain", line, where)
-    return value, tol
+    return value, tol, tc
 
 
 def check_range(ctx, f, value, tol, line, where) -> None:

@@ -55,11 +55,29 @@ Unit-specific decisions:
 * ``'1'`` (dimensionless): bare numbers with optional SI prefix and optional
   ``x`` suffix (``"10k"``, ``"100x"``).
 
-Tolerances (:func:`parse_toleranced`): ``"10k ±1%"``, ``"10k +-1 %"``,
-``"10k +/-1%"``, ``"0.7 V ±50m"``, ``"0.7 V ±50 mV"``, optionally followed by
-``normal`` (the width is one sigma) or ``uniform`` (the default; the width is
-the half-width).  A width in ``%`` or ``ppm`` is relative (even for '%'/'ppm'
-fields); anything else is absolute in the field's unit.
+Tolerances (:func:`parse_toleranced`) are read as data sheets state them:
+``"10k ±1%"``, ``"10k +-1 %"``, ``"10k +/-1%"``, ``"0.7 V ±50m"``,
+``"0.7 V ±50 mV"`` give a *limit*: every unit lies within it.  What lies
+inside the limit is the distribution word after it:
+
+* ``uniform`` (the default): equally likely anywhere between the limits — the
+  rectangular distribution the GUM prescribes when only bounds are known
+  (JCGM 100:2008, §4.3.7, from memory);
+* ``normal``: the limit is 3σ (common practice for a production spread) and
+  draws are truncated at the limit;
+* ``σ`` or ``sigma`` (``"10k ±1% σ"``, or ``"10k σ=1%"``): the width is a true
+  standard deviation; the normal is not truncated.
+
+A width in ``%`` or ``ppm`` is relative (even for '%'/'ppm' fields); anything
+else is absolute in the field's unit.
+
+A temperature coefficient may follow (:func:`parse_field_value`):
+``"10k ±1% 50ppm/K"`` (relative: ``ppm/K``, ``%/K``, also ``/°C``) or
+``"1.2 V ±5 mV -2mV/K"`` (absolute, in the field's unit per kelvin).  Written
+with ``±`` (``"10k ±1% ±25ppm/K"``) it is a limit like a tolerance: each unit
+has its own coefficient, uniform within it; without ``±`` every unit shares it
+(parts that track).  The value then is ``x(T) = x0·(1 + tc·(T − Tnom))``
+(relative) or ``x0 + tc·(T − Tnom)`` (absolute), Tnom the spec's ``t_nom``.
 
 :func:`fmt` prints engineering notation with the prefixes f p n µ m k M G T,
 ``digits`` significant digits (default 3), U+2212 for negatives, ``"∞ Ω"`` for
@@ -84,6 +102,8 @@ __all__ = [
     "Tolerance",
     "parse_value",
     "parse_toleranced",
+    "parse_field_value",
+    "Tempco",
     "fmt",
 ]
 
@@ -191,7 +211,11 @@ _NONFINITE_RE = re.compile(r"[+\-\u2212]?\s*(?:nan|inf|∞)", re.IGNORECASE)
 _RKM_RE = re.compile(r"(meg|MEG|Meg|[fpnuµμmkKMGTR])(\d+)(.*)", re.DOTALL)
 _TOL_RE = re.compile(r"±|\+/-|\+-")
 _REL_RE = re.compile(r"(\d+(?:\.\d*)?|\.\d+)((?:[eE][+\-]?\d+)?)\s*(%|ppm)")
-_DISTS = ("uniform", "normal")
+_DISTS = ("uniform", "normal", "sigma")
+_DIST_WORDS = {"uniform": "uniform", "normal": "normal", "σ": "sigma", "sigma": "sigma"}
+_SIGMA_RE = re.compile(r"^(.*?)\s*(?:σ|sigma)\s*=\s*(.+)$", re.DOTALL | re.IGNORECASE)
+_TC_RE = re.compile(r"(?:^|\s)(±|\+/-|\+-)?\s*([+\-\u2212]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+\-]?\d+)?)\s*"
+                    r"([^\s/±]*)\s*/\s*(K|°C|degC|\u2103)\s*$")
 
 
 # ----------------------------------------------------------------- helpers
@@ -417,8 +441,22 @@ def _parse(text, unit: Unit, delta: bool = False) -> float:
 # ----------------------------------------------------------------- public API
 
 @dataclass(frozen=True)
+class Tempco:
+    """A temperature coefficient: ``rel`` per kelvin (50 ppm/K -> 5e-5) or ``abs`` in the
+    field's SI unit per kelvin; ``spread``: written with ±, each unit draws its own
+    coefficient uniformly within ±|tc| (a data-sheet TCR limit)."""
+    rel: float | None
+    abs: float | None
+    spread: bool = False
+
+    @property
+    def value(self) -> float:
+        return self.rel if self.rel is not None else self.abs
+
+
+@dataclass(frozen=True)
 class Tolerance:
-    dist: str             # 'uniform' (width is the half-width) or 'normal' (width is 1 sigma)
+    dist: str             # 'uniform' (between ±limit), 'normal' (limit = 3σ, truncated) or 'sigma' (width = 1σ)
     rel: float | None     # relative width, e.g. 0.01 for ±1 %
     abs: float | None     # absolute width in SI units, e.g. 0.05 for ±50 mV
     # exactly one of rel/abs is set
@@ -437,12 +475,41 @@ def parse_value(text, unit_id: str) -> float:
     return _parse(text, _get_unit(unit_id))
 
 
+def parse_field_value(text, unit_id: str) -> tuple[float, Tolerance | None, Tempco | None]:
+    """Parse ``"nominal [± width [uniform|normal|σ]] [[±]tc/K]"`` (or ``"nominal σ=width"``);
+    see the module docstring.  Returns ``(nominal, Tolerance or None, Tempco or None)``."""
+    unit = _get_unit(unit_id)
+    if not isinstance(text, str):
+        return _parse(text, unit), None, None
+    tc = None
+    m = _TC_RE.search(text)
+    if m and m.start() > 0 and text[:m.start()].strip() and not unit.id.endswith("/K"):
+        tc = _parse_tempco(text, m, unit)
+        text = text[:m.start()]
+    return (*parse_toleranced(text, unit_id), tc)
+
+
+def _parse_tempco(text, m, unit: Unit) -> Tempco:
+    spread, num, sym = bool(m.group(1)), m.group(2), m.group(3)
+    if sym in ("%", "ppm"):
+        return Tempco(_scaled(num, _SCALE[sym]), None, spread)
+    try:
+        v = _parse(num + sym, unit, delta=True)
+    except UnitError as exc:
+        raise UnitError(f"in the temperature coefficient of {text!r}: {exc} (a coefficient is "
+                        f"'50ppm/K', '0.1 %/K' or a {unit.quantity} per kelvin)") from None
+    return Tempco(None, v, spread)
+
+
 def parse_toleranced(text, unit_id: str) -> tuple[float, Tolerance | None]:
-    """Parse ``"nominal [± width [normal|uniform]]"``; see the module docstring.
-    Returns ``(nominal, Tolerance or None)``.  Raises :class:`UnitError`."""
+    """Parse ``"nominal [± width [uniform|normal|σ]]"`` or ``"nominal σ=width"``; see the
+    module docstring.  Returns ``(nominal, Tolerance or None)``.  Raises :class:`UnitError`."""
     unit = _get_unit(unit_id)
     if not isinstance(text, str):
         return _parse(text, unit), None
+    m = _SIGMA_RE.match(text)
+    if m and not _TOL_RE.search(text):
+        text = f"{m.group(1)} ±{m.group(2)} sigma"
     parts = _TOL_RE.split(text)
     if len(parts) == 1:
         return _parse(text, unit), None
@@ -461,9 +528,9 @@ def parse_toleranced(text, unit_id: str) -> tuple[float, Tolerance | None]:
 def _parse_tolerance(text: str, t: str, unit: Unit) -> Tolerance:
     dist = "uniform"
     words = t.rsplit(None, 1)
-    if len(words) == 2 and words[1].lower() in _DISTS:
-        dist, t = words[1].lower(), words[0]
-    if not t or t.lower() in _DISTS:
+    if len(words) == 2 and words[1].lower() in _DIST_WORDS:
+        dist, t = _DIST_WORDS[words[1].lower()], words[0]
+    if not t or t.lower() in _DIST_WORDS:
         raise _err(text, unit, "the tolerance width after '±' is missing "
                                "(e.g. '10k ±1%', '0.7 V ±50 mV')", how=False)
     try:
@@ -477,8 +544,9 @@ def _parse_tolerance(text: str, t: str, unit: Unit) -> Tolerance:
             except UnitError:
                 pass
             else:
-                raise _err(text, unit, f"unknown distribution {last!r}; use "
-                                       "'uniform' (default) or 'normal'", how=False) from None
+                raise _err(text, unit, f"unknown distribution {last!r}; use 'uniform' (default: "
+                                       "anywhere within the limit), 'normal' (limit = 3σ) or 'σ' "
+                                       "(the width is one standard deviation)", how=False) from None
         raise
 
 

@@ -212,6 +212,22 @@ def follower(y_series, gm, g_out, y_in_shunt=0.0) -> ABCD:
     return m
 
 
+def at_temperature(tempcos: dict | None, p: dict) -> dict:
+    """Fields with a temperature coefficient moved to ``p['temp_k']`` from ``p['t_nom_k']``:
+    the linear law of a data sheet's coefficient, ``x(T) = x0·(1 + tc·(T − Tnom))``
+    (relative, ppm/K) or ``x0 + tc·(T − Tnom)`` (absolute, e.g. mV/K); a resistor's
+    R(T) = R0·(1 + α·ΔT) (any electrical-engineering handbook, from memory).  A unit's
+    own coefficient, drawn in a tolerance run, is ``p['FIELD@tc']``."""
+    if not tempcos:
+        return p
+    dt = p.get("temp_k", 300.0) - p.get("t_nom_k", 300.0)
+    q = dict(p)
+    for fld, tc in tempcos.items():
+        c = p.get(f"{fld}@tc", tc.value)
+        q[fld] = p[fld] * (1.0 + c * dt) if tc.rel is not None else p[fld] + c * dt
+    return q
+
+
 # --- DC algebra -----------------------------------------------------------
 
 def dc_series_r(st: DcState, r) -> DcState:

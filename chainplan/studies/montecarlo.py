@@ -1,6 +1,18 @@
-"""Tolerance Monte Carlo: every tolerance and corner drawn per sample, the chain
-evaluated by the same engine on ``(samples, frequencies)`` arrays, in chunks so
-memory stays bounded.
+"""Tolerance Monte Carlo: every tolerance drawn per unit, every unit evaluated at
+every operating corner, the chain evaluated by the same engine on
+``(samples, frequencies)`` arrays, in chunks so memory stays bounded.
+
+Production yield: a unit passes when it meets every requirement at every
+corner of its operating range (supply × temperature grid,
+chainplan.studies.tolerances.corner_points).  The corners are folded into the
+sample axis — one engine call evaluates a chunk's units at all the other
+corners at once (sample ``u·C + c``) — and that call uses only the
+frequencies the requirements read (:func:`requirement_frequencies`): the
+reference frequency, any ``at:``/``band:`` points, and for a band-edge limit
+the grid from f_ref up to (or down to) the limit, which decides pass or fail
+exactly as the full grid does.  The figures' distributions are those of the
+units at nominal conditions (the full analysis, noise included).  Each yield
+carries its 95 % Wilson score interval (:func:`wilson`).
 
 Per sample: the gain at f_ref, the band edges, every interface's loading loss,
 every node's headroom, the supply power, noise/SNR/ENOB when the noise
@@ -23,6 +35,7 @@ from __future__ import annotations
 import dataclasses
 
 import importlib.util
+import math
 import os
 import threading
 from dataclasses import dataclass, field
@@ -33,7 +46,7 @@ from ..engine.budget import evaluate, frequency_grid
 from ..engine.workspace import Workspace
 from ..spec.model import Chain
 from .requirements import ReqResult, evaluate_requirements, per_sample
-from .tolerances import Draws, draw
+from .tolerances import Corner, Draws, at_corners, corner_points, draw
 
 #: working-memory budget of one chunk (bytes; one chunk per thread); the chunk size follows from it
 CHUNK_BYTES = 256e6
@@ -67,20 +80,85 @@ class McResult:
     key_metric: str = "gain_db"
     sensitivity: list = field(default_factory=list)    # [(input name, share of variance)]
     labels: list | None = None                          # corner runs: a label per sample
+    corners: list = field(default_factory=list)         # tolerances.Corner, the nominal one first
+    corner_pass: np.ndarray | None = None               # (R, S, C) bool: requirement r met by unit s at corner c
+    corner_ok: np.ndarray | None = None                 # (S, C) bool: the operating point holds
+    rejected: np.ndarray | None = None                  # (S,) bool: non-physical draws, outside every yield
+
+    @property
+    def accepted(self) -> np.ndarray:
+        return ~self.rejected if self.rejected is not None else np.ones(self.samples, dtype=bool)
+
+    @property
+    def units(self) -> int:
+        """Units that count in the yield (the rejected draws left out)."""
+        return int(self.accepted.sum())
+
+    def _passes(self, req_index=None) -> np.ndarray:
+        """(S, C) bool: unit s meets requirement ``req_index`` (all: None) at corner c."""
+        ok = self.corner_ok.copy()
+        rows = range(len(self.requirements)) if req_index is None else [req_index]
+        for i in rows:
+            ok &= self.corner_pass[i]
+        return ok
+
+    def passes(self, req_index=None) -> np.ndarray:
+        """(S,) bool: the unit meets the requirement(s) at every corner (production)."""
+        return self._passes(req_index).all(axis=1) & self.accepted
+
+    def _frac(self, ok) -> float:
+        n = self.units
+        return float(ok[self.accepted].sum() / n) if n else float("nan")
 
     @property
     def yield_all(self) -> float:
-        """Fraction of samples that are valid and meet every requirement."""
-        ok = self.valid.copy()
-        for r in self.requirements:
-            ok &= r.passed
-        return float(ok.mean()) if self.samples else float("nan")
+        """Production yield: the fraction of units meeting every requirement at every corner."""
+        return self._frac(self.passes())
 
     def yield_of(self, r: ReqResult) -> float:
-        return float(r.passed.mean()) if self.samples else float("nan")
+        """Fraction of units meeting ``r`` at every corner."""
+        return self._frac(self.passes(self.requirements.index(r)))
+
+    def yield_at(self, c: int) -> float:
+        """Fraction of units meeting every requirement at corner ``c``."""
+        return self._frac(self._passes()[:, c])
+
+    def interval(self, y: float) -> tuple:
+        """95 % Wilson score interval of a yield over this run's units."""
+        n = self.units
+        return wilson(round(y * n), n) if n else (float("nan"), float("nan"))
 
     def stats(self, name: str) -> Stats:
         return stats(self.metrics[name], self.valid)
+
+    @property
+    def limiting_corner(self) -> int | None:
+        """The corner with the lowest yield (None when every corner yields 100 %)."""
+        if not self.corners:
+            return None
+        ys = [self.yield_at(c) for c in range(len(self.corners))]
+        c = min(range(len(ys)), key=lambda i: ys[i])
+        return c if ys[c] < 1.0 else None
+
+
+#: z of a two-sided 95 % interval (the normal quantile 0.975)
+Z95 = 1.959963984540054
+
+
+def wilson(k: int, n: int, z: float = Z95) -> tuple[float, float]:
+    """Wilson score interval of a proportion k/n (E. B. Wilson, J. Am. Stat. Assoc. 22, 1927;
+    also NIST/SEMATECH e-Handbook of Statistical Methods, from memory):
+    (p̂ + z²/2n ± z·√(p̂(1 − p̂)/n + z²/4n²)) / (1 + z²/n).  It stays inside [0, 1] and is
+    not empty at 0 or n passes, where the plain normal interval collapses."""
+    if n <= 0:
+        return float("nan"), float("nan")
+    p = k / n
+    den = 1.0 + z * z / n
+    mid = p + z * z / (2 * n)
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
+    lo = 0.0 if k == 0 else max(0.0, (mid - half) / den)        # exact ends: no rounding residue
+    hi = 1.0 if k == n else min(1.0, (mid + half) / den)
+    return lo, hi
 
 
 def stats(x: np.ndarray, valid: np.ndarray) -> Stats:
@@ -164,7 +242,7 @@ def run(chain: Chain, samples: int, seed: int = 1, chunk: int | None = None, pro
     """Monte Carlo over every tolerance and corner of ``chain``.  ``progress(done, total)``
     is called after each chunk; ``key`` names the metric or requirement to rank inputs for
     (default: the requirement with the lowest yield, else the gain)."""
-    return run_draws(draw(chain, samples, seed), seed, chunk, progress, key, workers)
+    return run_draws(draw(chain, samples, seed), seed, chunk, progress, key, workers, corners=corner_points(chain))
 
 
 _local = threading.local()
@@ -178,49 +256,135 @@ def _workspace() -> Workspace:
     return ws
 
 
-def _chunk(d: Draws, sl: slice):
-    """(metrics, requirement results, validity) of samples ``sl``.  The evaluation's
-    arrays live in the thread's workspace: every figure is copied out (``wide``)
-    before the workspace is recycled for the next chunk."""
+def requirement_frequencies(chain: Chain, f_hz: np.ndarray) -> np.ndarray:
+    """The columns of ``f_hz`` (f_ref first) that decide the chain's requirements at the
+    corners, so that pass or fail there is what the full grid gives: f_ref, the signal
+    band (signal peaks and headroom are the worst over it), and for a band-edge limit L
+    the passband's columns (the grid around ``mid_band``, or the signal band) and the grid
+    from there to the first point beyond L — the first −3 dB crossing is then the one of
+    the full grid, and beyond the last kept point the edge is known to pass (that point
+    stands in for it).  The whole grid when a noise, flatness or alias requirement needs
+    the span, or a band edge is read against the largest gain over the whole span (no
+    ``mid_band`` and no signal band)."""
+    reqs = chain.extra.get("requirements", [])
+    a = chain.analysis
+    edges = [r for r in reqs if r.key in ("min_f_high", "max_f_low")]
+    if any(r.key in ("min_snr", "min_enob", "flatness", "min_alias_rejection") for r in reqs) or (
+            edges and a.mid_band_hz is None and a.band_hz is None):
+        return f_hz
+    span, f_ref = f_hz[1:], f_hz[0]
+    idx = np.arange(span.size)
+    keep = np.zeros(span.size, dtype=bool)
+    if a.band_hz is not None:
+        lo_b, hi_b = a.band_hz
+        keep |= (span >= lo_b * (1 - 1e-12)) & (span <= hi_b * (1 + 1e-12))
+    if edges:
+        if a.mid_band_hz is not None:          # the two grid points around mid_band
+            j = int(np.clip(np.searchsorted(span, a.mid_band_hz) - 1, 0, span.size - 2))
+            keep[j:j + 2] = True
+            first, last = j, j + 1
+        else:
+            inside = np.nonzero(keep)[0]
+            first, last = (inside[0], inside[-1]) if inside.size else (0, span.size - 1)
+        for r in edges:
+            if r.key == "min_f_high":
+                beyond = np.nonzero(span >= r.limit)[0]
+                stop = beyond[0] if beyond.size else span.size - 1
+                keep |= (idx >= first) & (idx <= max(stop, last))
+            else:
+                before = np.nonzero(span <= r.limit)[0]
+                start = before[-1] if before.size else 0
+                keep |= (idx >= min(start, first)) & (idx <= last)
+    return np.concatenate(([f_ref], span[keep]))
+
+
+def _chunk(d: Draws, sl: slice, corners: list, f_corner):
+    """(metrics, requirement results, validity, corner passes (R, n, C), corner validity (n, C))
+    of units ``sl``: the full analysis at nominal conditions, then every other corner in one
+    engine call on the frequencies the requirements read."""
     ws = _workspace()
+    n = sl.stop - sl.start
+    wide = lambda x: np.array(np.broadcast_to(x, (n,)))  # noqa: E731 - nothing varied: one sample stands for all
     try:
         ev = evaluate(d.chain, d.params(sl), ws=ws)
-        n = sl.stop - sl.start
-        wide = lambda x: np.array(np.broadcast_to(x, (n,)))  # noqa: E731 - nothing varied: one sample stands for all
         reqs = [dataclasses.replace(r, value=wide(r.value), margin=wide(r.margin), passed=wide(r.passed),
                                     where=None if r.where is None else (r.where[0], wide(r.where[1])))
                 for r in evaluate_requirements(ev)]
-        return ({k: wide(v) for k, v in metrics(ev).items()}, reqs, wide(ev.valid) & d.valid[sl])
+        mets = {k: wide(v) for k, v in metrics(ev).items()}
+        valid = wide(ev.valid) & d.valid[sl]
     finally:
-        ws.recycle()
+        ws.recycle()        # every figure is copied out before the arrays are lent again
+    c_n = len(corners)
+    cpass = np.zeros((len(reqs), n, c_n), dtype=bool)
+    cok = np.zeros((n, c_n), dtype=bool)
+    others = [i for i, c in enumerate(corners) if not c.nominal]
+    for i, c in enumerate(corners):
+        if c.nominal:
+            cok[:, i] = valid
+            for j, r in enumerate(reqs):
+                cpass[j, :, i] = r.passed
+    if others:
+        k = len(others)
+        try:
+            ev_c = evaluate(d.chain, at_corners(d, sl, [corners[i] for i in others]), f_hz=f_corner, ws=ws)
+            cok[:, others] = np.broadcast_to(ev_c.valid, (n * k,)).reshape(n, k) & d.valid[sl, None]
+            for j, r in enumerate(evaluate_requirements(ev_c)):
+                cpass[j][:, others] = np.broadcast_to(r.passed, (n * k,)).reshape(n, k)
+        finally:
+            ws.recycle()
+    return (mets, reqs, valid, cpass, cok)
 
 
 def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None,
-              workers: int | None = None) -> McResult:
+              workers: int | None = None, corners: list | None = None) -> McResult:
     """Evaluate prepared draws (a Monte Carlo set or the corner combinations) in chunks.
     Chunks run on ``workers`` threads (default: one per core, at most 4): numpy releases
     the interpreter lock in its array arithmetic, and results are collected in order,
     so the numbers do not depend on the thread count."""
     from concurrent.futures import ThreadPoolExecutor
+    corners = corners or [Corner("nominal", d.chain.temp_k, 1.0, True)]
+    f_full = frequency_grid(d.chain)
+    f_corner = requirement_frequencies(d.chain, f_full)
     chunk = chunk or chunk_size(d.chain)
+    # the corner call holds chunk·(C − 1) samples on f_corner: keep it within the memory of one chunk
+    others = sum(1 for c in corners if not c.nominal)
+    if others:
+        chunk = max(1, min(chunk, int(chunk * len(f_full) / (others * len(f_corner)))))
     slices = [slice(i, min(i + chunk, d.n)) for i in range(0, d.n, chunk)]
     workers = min(workers or os.cpu_count() or 1, MAX_WORKERS, max(len(slices), 1))
-    parts_m, parts_r, parts_v = [], [], []
+    parts_m, parts_r, parts_v, parts_cp, parts_ck = [], [], [], [], []
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        for sl, (m, r, v) in zip(slices, pool.map(lambda sl: _chunk(d, sl), slices)):
+        for sl, (m, r, v, cp, ck) in zip(slices, pool.map(lambda sl: _chunk(d, sl, corners, f_corner), slices)):
             parts_m.append(m)
             parts_r.append(r)
             parts_v.append(v)
+            parts_cp.append(cp)
+            parts_ck.append(ck)
             if progress is not None:
                 progress(sl.stop, d.n)
     valid = np.concatenate(parts_v) if parts_v else np.zeros(0, dtype=bool)
     mets = {k: np.concatenate([p[k] for p in parts_m]) for k in parts_m[0]} if parts_m else {}
     reqs = [_join([p[i] for p in parts_r], valid) for i in range(len(parts_r[0]))] if parts_r else []
-    res = McResult(d.chain, d.n, seed, mets, reqs, valid, d.inputs, labels=d.labels)
+    res = McResult(d.chain, d.n, seed, mets, reqs, valid, d.inputs, labels=d.labels, corners=corners,
+                   corner_pass=np.concatenate(parts_cp, axis=1) if parts_cp else np.zeros((0, 0, len(corners)), bool),
+                   corner_ok=np.concatenate(parts_ck) if parts_ck else np.zeros((0, len(corners)), bool),
+                   rejected=~d.valid)
     if d.n:
         res.key_metric, y = key_values(res, key)
         res.sensitivity = rank(y, d.inputs, valid)
     return res
+
+
+def nominal_unit_at_corners(chain: Chain, corners: list) -> McResult:
+    """The nominal design (parts at nominal) evaluated at each corner, one sample per corner."""
+    d = Draws(chain, 1, valid=np.ones(1, dtype=bool))
+    ev = evaluate(chain, at_corners(d, slice(0, 1), corners))
+    n = len(corners)
+    wide = lambda x: np.broadcast_to(x, (n,))  # noqa: E731
+    reqs = [dataclasses.replace(r, value=wide(r.value), margin=wide(r.margin), passed=wide(r.passed))
+            for r in evaluate_requirements(ev)]
+    return McResult(chain, n, 0, {"gain_db": wide(metrics(ev)["gain_db"])}, reqs, wide(ev.valid), {},
+                    labels=[c.label for c in corners], corners=corners)
 
 
 def _join(parts: list[ReqResult], valid) -> ReqResult:

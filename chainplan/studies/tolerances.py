@@ -15,18 +15,25 @@ Sources of spread:
         rails: [vdd]                   # optional: rails the supply moves (default: all)
 
 Drawing (GUM Supplement 1, JCGM 101:2008, propagation of distributions by a
-Monte Carlo method, from memory): a ``uniform`` tolerance of half-width w is
-``x0 + w·U(−1, 1)``, a ``normal`` one ``x0 + w·N(0, 1)`` (w is one sigma); a
-relative width is ``w = |x0|·rel``.  Corners are drawn uniformly over their
-range.  Each source draws from its own stream, seeded by the run's seed and the
-source's name, so a result does not depend on the chunk size, and adding a
-tolerance elsewhere does not reshuffle the others.  Temperature reaches what
-the models make temperature-dependent (the BJT's thermal voltage, noise); the
-level-1 MOSFET parameters carry no temperature coefficient.
+Monte Carlo method, from memory) — a tolerance is a limit w (``w = |x0|·rel``
+for a relative one), read as a data sheet states it (see chainplan.spec.units):
+``uniform`` (the default) is ``x0 + w·U(−1, 1)``; ``normal`` is
+``x0 + (w/3)·N(0, 1)`` truncated at ±w (the limit taken as 3σ, common
+practice; draws beyond it are drawn again); ``σ`` is ``x0 + w·N(0, 1)``,
+untruncated.  A coefficient written ``±25ppm/K`` is drawn per unit,
+uniformly within its limit.  Each source draws from its own stream, seeded
+by the run's seed and the source's name, so a result does not depend on the
+chunk size, and adding a tolerance elsewhere does not reshuffle the others.
 
-A drawn value outside its field's limits (a resistance ≤ 0 from a wide normal
-tolerance) is replaced by the nominal and the sample is marked invalid: it
-counts as a failure, like an impossible operating point.
+Tolerances make *units*; corners are *operating conditions*.  A tolerance run
+draws units only and evaluates every unit at every corner of the
+``corners:`` grid (:func:`corner_points`); a unit passes when it passes at
+all of them (production yield).
+
+A drawn value outside its field's physical range (a resistance ≤ 0 from a
+σ tolerance wider than the part) is drawn again from the same distribution,
+up to ``REDRAWS`` times; a unit still outside is *rejected*: reported on its
+own and left out of the yield, never counted as a design failure.
 """
 from __future__ import annotations
 
@@ -44,7 +51,11 @@ from ..spec.model import Chain
 from ..spec.units import UnitError, parse_toleranced, parse_value
 from ..spec.yamlsrc import LDict, LList
 
-CORNER_KEYS = ("temperature", "supply", "rails")
+CORNER_KEYS = ("temperature", "supply", "rails", "grid")
+#: times a non-physical draw is drawn again before the unit is rejected
+REDRAWS = 20
+#: the limit of a 'normal' tolerance in standard deviations (common practice)
+NORMAL_LIMIT_SIGMA = 3.0
 
 
 @dataclass(frozen=True)
@@ -52,6 +63,7 @@ class Corners:
     temp_k: tuple | None = None        # (low, high) kelvin
     supply: float | None = None        # fractional deviation, e.g. 0.05
     rails: tuple | None = None         # rails the supply moves; None = every rail
+    grid: str = "full"                 # 'full': low/nominal/high on every axis; 'extremes': the corners + nominal
 
 
 def parse_corners(chain: Chain, node, line, path) -> None:
@@ -63,6 +75,10 @@ def parse_corners(chain: Chain, node, line, path) -> None:
         if key not in CORNER_KEYS:
             raise err(f"unknown key '{key}'" + nearest(key, CORNER_KEYS), key)
     temp = supply = rails = None
+    grid = node.get("grid", "full")
+    if grid not in ("full", "extremes"):
+        raise err("grid is 'full' (low, nominal and high of every axis, all combinations) or 'extremes' "
+                  "(every combination of the extremes, plus nominal)", "grid")
     if "temperature" in node:
         temp = _temp_range(node["temperature"], lambda m: err(m, "temperature"))
     if "supply" in node:
@@ -87,7 +103,7 @@ def parse_corners(chain: Chain, node, line, path) -> None:
         if supply is None:
             raise err("'rails' says which rails 'supply' moves; give 'supply: ±X %' too", "rails")
         rails = tuple(raw)
-    chain.extra["corners"] = Corners(temp, supply, rails)
+    chain.extra["corners"] = Corners(temp, supply, rails, grid)
 
 
 def _temp_range(raw, err):
@@ -118,9 +134,11 @@ class Draws:
     """Per-sample parameter values of a run.
 
     ``inputs`` are the independent draws by source name (``stage.field``,
-    ``rails.NAME``, ``corners.temperature``, ``corners.supply``), used to rank
-    what drives the spread; ``assign`` maps (stage, field) to the values the
-    engine sees; ``valid`` is False where a drawn value broke a field's limits."""
+    ``rails.NAME``, ``stage.field.tc``), used to rank what drives the spread;
+    ``assign`` maps (stage, field) to the values the engine sees; ``valid`` is
+    False for a rejected unit (a draw outside a field's physical range even
+    after redrawing); ``temp_k``/``supply`` are per-sample operating conditions
+    (None: the chain's own)."""
 
     chain: Chain
     n: int
@@ -137,6 +155,53 @@ class Draws:
         return p
 
 
+@dataclass(frozen=True)
+class Corner:
+    """One operating condition: temperature, supply factor (1 = nominal) and a label."""
+    label: str
+    temp_k: float
+    supply: float
+    nominal: bool = False
+
+
+def corner_points(chain: Chain) -> list[Corner]:
+    """The operating corners of ``corners:``: on each axis its low end, nominal and high end
+    (temperature: the chain's temperature when it lies inside the range, else the middle;
+    supply: −x, 0, +x), every combination (``grid: full``, 3 × 3 for both axes), or every
+    combination of the ends plus the all-nominal point (``grid: extremes``, 4 + 1).
+    No ``corners:``: the one nominal condition.  The all-nominal corner is first."""
+    c = chain.extra.get("corners") or Corners()
+    t0 = chain.temp_k
+    axes = []
+    if c.temp_k is not None:
+        lo, hi = c.temp_k
+        mid = t0 if lo < t0 < hi else 0.5 * (lo + hi)
+        axes.append([("t", lo), ("t", mid), ("t", hi)])
+    if c.supply is not None:
+        axes.append([("s", 1 - c.supply), ("s", 1.0), ("s", 1 + c.supply)])
+    combos = list(itertools.product(*axes)) if axes else [()]
+    if c.grid == "extremes":
+        combos = [k for k in combos if all(v is not a[1][1] for v, a in zip((x[1] for x in k), axes))]
+        combos = [tuple(a[1] for a in axes)] + combos
+    else:
+        mid = tuple(a[1] for a in axes)
+        combos = [mid] + [k for k in combos if k != mid]
+    out = []
+    for k in combos:
+        d = dict(k)
+        t, sf = d.get("t", t0 if c.temp_k is None else None), d.get("s", 1.0)
+        if t is None:
+            t = t0
+        parts = []
+        if c.temp_k is not None:
+            parts.append(f"{t - 273.15:.0f} °C".replace("-", "−"))
+        if c.supply is not None:
+            parts.append("supply nominal" if sf == 1.0 else f"supply {(sf - 1) * 100:+.3g} %".replace("-", "−"))
+        is_nom = (t == t0 and sf == 1.0)
+        out.append(Corner(", ".join(parts) or "nominal", float(t), float(sf), is_nom))
+    return out
+
+
 def _stream(seed: int, name: str) -> np.random.Generator:
     return np.random.default_rng([int(seed) & 0xFFFFFFFF, zlib.crc32(name.encode())])
 
@@ -147,56 +212,98 @@ def spread(nominal: float, tol, unit_draw: np.ndarray) -> np.ndarray:
     return nominal + w * unit_draw
 
 
-def _unit_draw(tol, rng, n):
-    return rng.standard_normal(n) if tol.dist == "normal" else rng.uniform(-1.0, 1.0, n)
+def unit_draw(dist: str, rng, n):
+    """Draws in units of the tolerance's width: uniform on [−1, 1]; 'normal' a normal of
+    σ = 1/3 truncated at ±1 (limit = 3σ; beyond it drawn again); 'sigma' a standard normal."""
+    if dist == "uniform":
+        return rng.uniform(-1.0, 1.0, n)
+    z = rng.standard_normal(n)
+    if dist == "sigma":
+        return z
+    out = np.abs(z) > NORMAL_LIMIT_SIGMA
+    while out.any():                       # rejection: the exact truncated normal
+        z[out] = rng.standard_normal(int(out.sum()))
+        out = np.abs(z) > NORMAL_LIMIT_SIGMA
+    return z / NORMAL_LIMIT_SIGMA
+
+
+def _physical(f):
+    """The field's physical range as a test on values (None: any value)."""
+    if f is None:
+        return None
+    return lambda v: ~np.asarray(f.out_of_range(v), dtype=bool)
+
+
+def _draw_source(x0, tol, rng, n, ok):
+    """Draws of one tolerance; values outside the physical range ``ok`` drawn again (REDRAWS
+    times); returns (values, still-bad mask)."""
+    v = spread(x0, tol, unit_draw(tol.dist, rng, n))
+    if ok is None:
+        return v, np.zeros(n, dtype=bool)
+    bad = ~ok(v)
+    for _ in range(REDRAWS):
+        if not bad.any():
+            break
+        v[bad] = spread(x0, tol, unit_draw(tol.dist, rng, int(bad.sum())))
+        bad = ~ok(v)
+    return v, bad
 
 
 def draw(chain: Chain, samples: int, seed: int) -> Draws:
-    """Independent draws of every tolerance and corner for ``samples`` samples."""
+    """Independent draws of every tolerance (the units) for ``samples`` units, at nominal conditions."""
     d = Draws(chain, samples)
+    rejected = np.zeros(samples, dtype=bool)
     for (st, fld), tol in chain.extra.get("tolerances", {}).items():
         name = f"{st}.{fld}"
-        d.inputs[name] = spread(chain.stage(st).params[fld], tol, _unit_draw(tol, _stream(seed, name), samples))
-        d.assign[(st, fld)] = d.inputs[name]
+        stage = chain.stage(st)
+        v, bad = _draw_source(stage.params[fld], tol, _stream(seed, name), samples,
+                              _physical(stage.model.FIELDS.get(fld)))
+        rejected |= bad
+        d.inputs[name] = d.assign[(st, fld)] = v
+    for stage in chain.all_stages:
+        for fld, tc in (stage.raw.get("__tempco__") or {}).items():
+            if tc.spread:
+                name = f"{stage.name}.{fld}.tc"
+                d.inputs[name] = d.assign[(stage.name, f"{fld}@tc")] = \
+                    abs(tc.value) * _stream(seed, name).uniform(-1.0, 1.0, samples)
     rails = {}
     for rail, tol in chain.extra.get("rail_tolerances", {}).items():
         name = f"rails.{rail}"
-        rails[rail] = d.inputs[name] = spread(chain.rails[rail], tol, _unit_draw(tol, _stream(seed, name), samples))
-    c = chain.extra.get("corners") or Corners()
-    if c.supply is not None:
-        f = d.inputs["corners.supply"] = 1.0 + c.supply * _stream(seed, "corners.supply").uniform(-1, 1, samples)
-        for rail in c.rails or chain.rails:
-            rails[rail] = rails.get(rail, chain.rails[rail]) * f
-    if c.temp_k is not None:
-        d.inputs["corners.temperature"] = _stream(seed, "corners.temperature").uniform(*c.temp_k, samples)
-    _apply_shared(d, rails, d.inputs.get("corners.temperature"))
+        rails[rail] = d.inputs[name] = spread(chain.rails[rail], tol,
+                                              unit_draw(tol.dist, _stream(seed, name), samples))
+    _apply_shared(d, rails, None)
+    d.valid &= ~rejected
     return d
 
 
-def corner_draws(chain: Chain) -> Draws:
-    """Every combination of the corner extremes (parts at nominal): one sample each,
-    labelled like '0 °C, supply −5 %'."""
-    c = chain.extra.get("corners") or Corners()
-    axes = []
-    if c.temp_k is not None:
-        axes.append([("temperature", t, f"{t - 273.15:.0f} °C".replace("-", "−")) for t in c.temp_k])
-    if c.supply is not None:
-        axes.append([("supply", 1 + s, f"supply {s * 100:+.3g} %".replace("-", "−"))
-                     for s in (-c.supply, c.supply)])
-    combos = list(itertools.product(*axes)) if axes else []
-    d = Draws(chain, len(combos), labels=[", ".join(x[2] for x in combo) for combo in combos])
-    if not combos:
-        return d
-    vals = {k: np.array([dict((a, v) for a, v, _ in combo)[k] for combo in combos])
-            for k, _, _ in combos[0]}
-    d.inputs = {f"corners.{k}": v for k, v in vals.items()}
-    rails = {r: chain.rails[r] * vals["supply"] for r in (c.rails or chain.rails)} if "supply" in vals else {}
-    _apply_shared(d, rails, vals.get("temperature"))
-    return d
+def at_corners(d: Draws, sl: slice, corners: list[Corner]) -> dict:
+    """Parameters of units ``sl`` at each of ``corners``, folded into the sample axis
+    (unit-major: sample ``u·C + c``), as ``(n·C, 1)`` arrays: the corner's temperature on
+    every stage, its supply factor on every field that names a moved rail."""
+    chain = d.chain
+    n, k = sl.stop - sl.start, len(corners)
+    cfg = chain.extra.get("corners") or Corners()
+    moved = set(cfg.rails or chain.rails)
+    temps = np.array([c.temp_k for c in corners])
+    factor = np.array([c.supply for c in corners])
+    p = nominal_params(chain)
+    fold = lambda v: np.repeat(np.broadcast_to(np.ravel(v), (n,)), k)  # noqa: E731
+    for (st, fld), v in d.assign.items():
+        p[st][fld] = fold(v[sl])[:, None]
+    t_col = np.tile(temps, n)[:, None]
+    f_col = np.tile(factor, n)[:, None]
+    for st in chain.all_stages:
+        p[st.name]["temp_k"] = t_col
+        for fld, rail in st.raw.get("__rails__", {}).items():
+            if rail in moved and np.any(factor != 1.0):
+                base = p[st.name][fld]
+                p[st.name][fld] = (base if np.ndim(base) else np.full((n * k, 1), float(base))) * f_col
+    return p
 
 
 def _apply_shared(d: Draws, rails: dict, temp) -> None:
-    """Rail values to every field that names the rail, temperature to every stage; then field limits."""
+    """Rail values to every field that names the rail, temperature to every stage; then field
+    limits: a value still outside its field's physical range rejects the unit."""
     for st in d.chain.all_stages:
         for fld, rail in st.raw.get("__rails__", {}).items():
             if rail in rails:
@@ -205,10 +312,10 @@ def _apply_shared(d: Draws, rails: dict, temp) -> None:
             d.assign[(st.name, "temp_k")] = temp
     d.valid = np.ones(d.n, dtype=bool)
     for (st, fld), v in list(d.assign.items()):
-        f = d.chain.stage(st).model.FIELDS.get(fld)
-        if f is None:
+        ok = _physical(d.chain.stage(st).model.FIELDS.get(fld))
+        if ok is None:
             continue
-        bad = f.out_of_range(v)
+        bad = ~ok(v)
         if bad.any():
             d.valid &= ~bad
             d.assign[(st, fld)] = np.where(bad, d.chain.stage(st).params[fld], v)
@@ -228,5 +335,8 @@ def __getattr__(name):
         "supply": {"type": "string", "pattern": r"^\s*(±|\+/-|\+-)?\s*\d+(\.\d*)?\s*%\s*$",
                    "description": "deviation that scales every rail (or the listed ones) together, e.g. '±5 %'"},
         "rails": {"anyOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}, "minItems": 1}],
-                  "description": "rails the supply corner moves (default: all)"}},
+                  "description": "rails the supply corner moves (default: all)"},
+        "grid": {"enum": ["full", "extremes"],
+                 "description": "full: low/nominal/high of every axis, all combinations; extremes: the ends' "
+                                "combinations plus nominal"}},
         "description": "global corners for tolerance runs (docs/requirements.md)"}}
