@@ -256,6 +256,12 @@ def _workspace() -> Workspace:
     return ws
 
 
+#: requirement kinds decided by f_ref, at:/band points, the signal band and band-edge windows;
+#: any other kind (noise, flatness, aliasing, DC error, a kind added later) gets the whole grid
+NARROW_KINDS = ("min_gain", "max_gain", "min_headroom", "max_loading_loss", "max_buffer_power", "min_f_high",
+                "max_f_low")
+
+
 def requirement_frequencies(chain: Chain, f_hz: np.ndarray) -> np.ndarray:
     """The columns of ``f_hz`` (f_ref first) that decide the chain's requirements at the
     corners, so that pass or fail there is what the full grid gives: f_ref, the signal
@@ -263,14 +269,13 @@ def requirement_frequencies(chain: Chain, f_hz: np.ndarray) -> np.ndarray:
     the passband's columns (the grid around ``mid_band``, or the signal band) and the grid
     from there to the first point beyond L — the first −3 dB crossing is then the one of
     the full grid, and beyond the last kept point the edge is known to pass (that point
-    stands in for it).  The whole grid when a noise, flatness or alias requirement needs
-    the span, or a band edge is read against the largest gain over the whole span (no
-    ``mid_band`` and no signal band)."""
+    stands in for it).  The whole grid for any other kind (NARROW_KINDS), or when a band
+    edge is read against the largest gain over the whole span (no ``mid_band``, no signal
+    band)."""
     reqs = chain.extra.get("requirements", [])
     a = chain.analysis
     edges = [r for r in reqs if r.key in ("min_f_high", "max_f_low")]
-    if any(r.key in ("min_snr", "min_enob", "flatness", "min_alias_rejection") for r in reqs) or (
-            edges and a.mid_band_hz is None and a.band_hz is None):
+    if any(r.key not in NARROW_KINDS for r in reqs) or (edges and a.mid_band_hz is None and a.band_hz is None):
         return f_hz
     span, f_ref = f_hz[1:], f_hz[0]
     idx = np.arange(span.size)
