@@ -85,7 +85,7 @@ def main():
               f"{grid['cpu_seconds']:7.2f} s CPU; corner call on {grid['f_corner']} of {grid['f_full']} frequencies")
         print(f"ratio: {grid['seconds'] / plain['seconds']:.2f}× wall, {grid['cpu_seconds'] / plain['cpu_seconds']:.2f}× CPU "
               f"(issue 13: at most 3×); production yield {100 * grid['yield']:.2f} % "
-              f"[{100 * grid['interval'][0]:.2f} … {100 * grid['interval'][1]:.2f} %]")
+              f"[{100 * grid['interval'][0]:.3f} … {100 * grid['interval'][1]:.3f} %]")
         print(f"load average before {load0[0]:.2f} {load0[1]:.2f} {load0[2]:.2f}, after {load1[0]:.2f} {load1[1]:.2f} "
               f"{load1[2]:.2f} (2 cores, shared)")
 

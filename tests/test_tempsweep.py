@@ -66,3 +66,26 @@ def test_ph_probe_follower_moves_up_when_hot():
     res = sweep(chain, [273.15, 323.15])
     rise = np.diff({r.key: r for r in res.rows}["dc_v.follower"].values)[0]
     assert 0.03 < rise < 0.09
+
+
+def test_opamp_gbw_and_noise_carry_a_tempco():
+    """An op-amp's GBW written '1 MHz -3000ppm/K' (falling 0.3 %/K, a typical bipolar-input
+    figure, common practice) moves the follower's −3 dB edge with it: f_3dB = GBW for a
+    unity follower (single-pole op-amp, from memory); en with a tempco moves the noise."""
+    spec = """
+    name: oa
+    t_nom: 25 °C
+    rails: {vdd: 5 V}
+    source: {name: src, kind: sensor, amplitude: 10 mV, dc: 2.5 V}
+    stages:
+      - {name: buf, kind: opamp_follower, gbw: 1 MHz -3000ppm/K, a0: 140 dB, en: 10 nV/√Hz 2000ppm/K}
+      - {name: m, kind: load, r_in: inf}
+    analysis: {f_ref: 1 kHz, f_start: 10 Hz, f_stop: 100 MHz, points: 2001}
+    """
+    res = sweep(chain_from(spec), [298.15, 348.15])
+    rows = {r.key: r for r in res.rows}
+    f_hi = rows["f_high_hz"].values
+    assert f_hi[0] == pytest.approx(1e6, rel=0.01)
+    assert f_hi[1] / f_hi[0] == pytest.approx(1 - 3000e-6 * 50, rel=0.01)
+    n = rows["noise_out_vrms"].values
+    assert n[1] > n[0]
