@@ -70,7 +70,7 @@ def budget_tables(b: Budget, console) -> None:
                 title=f"Nodes (DC, signal peak {where}, limits, headroom)", caption=caption,
                 styles=["bold red" if n.clips else ("bold yellow" if m else None) for n, m in zip(ns, marks)])
 
-    rows = [end_gain(b, f_ref),
+    rows = [*_amplitude_row(c), end_gain(b, f_ref),
             ("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
                            f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")]
     if b.peak_gain_db is not None and b.peak_gain_db - b.gain_db > 1.0:
@@ -92,6 +92,16 @@ def budget_tables(b: Budget, console) -> None:
         styles.append("bold red")
     print_table(console, [Col("what", wrap=2), Col("value", wrap=True)], [list(r) for r in rows],
                 title="Summary", styles=styles, show_header=False)
+
+
+def _amplitude_row(chain) -> list:
+    """What an amplitude written as rms or peak-to-peak was taken as (the engine uses the peak)."""
+    from ..spec.loader import amplitude_form
+    raw = chain.source.raw.get("amplitude")
+    if raw is None or amplitude_form(raw)[1] == 1.0:
+        return []
+    unit = chain.source.model.signal_unit
+    return [("source amplitude", f"{eng(chain.source.params['amplitude'], unit)} peak (written '{raw}', a sine)")]
 
 
 def _converter(b: Budget) -> str:

@@ -7,6 +7,7 @@ also generates the JSON Schema.
 """
 from __future__ import annotations
 
+import dataclasses
 import importlib
 import math
 import re
@@ -232,7 +233,12 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
         raise ctx.err("missing 'kind:'" + ("" if is_source else " (e.g. kind: source_follower)"), node.line, "kind")
     kind = node["kind"]
     if not isinstance(kind, str) or kind not in REGISTRY:
-        raise ctx.err(f"unknown stage kind '{kind}'" + nearest(str(kind), REGISTRY), node.line_of("kind"), "kind")
+        kinds = [k for k, m in REGISTRY.items() if (m.role == "source") == is_source]
+        what = "source kind" if is_source else "stage kind"
+        hint = nearest(str(kind), kinds)
+        if is_source and "valid:" not in hint:
+            hint += f" (source kinds: {', '.join(sorted(kinds))})"
+        raise ctx.err(f"unknown {what} '{kind}'" + hint, node.line_of("kind"), "kind")
     model = REGISTRY[kind]
     if is_source and model.role != "source":
         raise ctx.err(f"the source must be a sensor (kind sensor or current_sensor), not '{kind}'",
@@ -298,16 +304,59 @@ def _field_value(ctx, f, raw, rails, line, where, st, key):
                           "; declare it under 'rails:' (e.g. vdd: 3.3 V)"), line, where)
         st.raw.setdefault("__rails__", {})[key] = raw
         return rails[raw], None, None
+    factor = 1.0
+    if key == "amplitude":
+        raw, factor = amplitude_form(raw)
     try:
         value, tol, tc = parse_field_value(raw, f.unit)
     except UnitError as exc:
         raise ctx.err(str(exc), line, where) from None
+    if factor != 1.0:
+        value = value * factor
+        if tol is not None and tol.abs is not None:
+            tol = dataclasses.replace(tol, abs=tol.abs * factor)
+    if f.unit == "dB" and _bare(raw) and abs(value) > DB_BARE_MAX:
+        ratio = abs(value)
+        raise ctx.err(f"a bare {raw} in a field of decibels is not plausible ({f.doc}); write the unit: "
+                      f"'{_plain(value)} dB' if you mean decibels"
+                      + (f", or '{20 * math.log10(ratio):.0f} dB' for a ratio of {_plain(ratio)}" if ratio > 1 else ""),
+                      line, where)
     check_range(ctx, f, value, tol, line, where)
     if key == "bits" and (value != int(value) or value > 32):
         raise ctx.err("bits is a whole number from 1 to 32", line, where)
     if key == "gain" and value == 0:
         raise ctx.err("a gain of zero passes no signal; give a non-zero gain", line, where)
     return value, tol, tc
+
+
+#: the largest bare number (no 'dB' written) a field in decibels accepts: beyond it the
+#: number is more likely a ratio ('a0: 1e6') than decibels (no op-amp has 160 dB of gain)
+DB_BARE_MAX = 160.0
+
+#: how an amplitude may be written: (suffix words, factor to the peak the engine uses)
+AMPLITUDE_FORMS = {"rms": math.sqrt(2.0), "pk": 1.0, "peak": 1.0, "pp": 0.5, "p-p": 0.5}
+_AMP_RE = re.compile(r"^(?P<value>.*?[0-9A-Za-zΩµ%])\s*(?P<form>rms|pk|peak|pp|p-p)(?P<tol>\s*(?:±|\+/-|\+-).*)?$")
+
+
+def amplitude_form(raw):
+    """``('14 mV rms')`` -> ``('14 mV', √2)``: an amplitude written as rms, peak or
+    peak-to-peak (``14 mV rms``, ``20 mVpk``, ``40 mVpp``, ``40 mV p-p ±5%``), and the
+    factor to its peak value (a sine: peak = √2·rms = pp/2).  Other text passes unchanged."""
+    if not isinstance(raw, str):
+        return raw, 1.0
+    m = _AMP_RE.match(raw.strip())
+    if not m:
+        return raw, 1.0
+    return m.group("value") + (m.group("tol") or ""), AMPLITUDE_FORMS[m.group("form")]
+
+
+def _bare(raw) -> bool:
+    """A number written without its unit (YAML number, or text without 'dB')."""
+    return not isinstance(raw, str) or "dB" not in raw
+
+
+def _plain(v: float) -> str:
+    return f"{v:g}"
 
 
 def check_range(ctx, f, value, tol, line, where) -> None:

@@ -30,7 +30,7 @@ def _alt(items) -> str:
     return "(?:" + "|".join(re.escape(i) for i in sorted(set(items), key=lambda i: (-len(i), i))) + ")"
 
 
-def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool) -> str:
+def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool, amplitude: bool = False) -> str:
     """A regular expression for a value text of this unit (prefixes and symbols as units.py reads them)."""
     u = UNITS[unit_id]
     prefixes = list(PREFIXES) + (["c"] if unit_id == "m" else [])
@@ -42,7 +42,7 @@ def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool) -> str:
         suffix = rf"(?:{A}|{P})?"
     else:
         suffix = rf"{A}?"
-    value = rf"{_NUM}\s*{suffix}"
+    value = rf"{_NUM}\s*{suffix}" + (r"(?:\s*(?:rms|pk|peak|pp|p-p))?" if amplitude else "")
     if tolerable:
         value += rf"(?:\s*(?:±|\+/-|\+-)\s*{_NUM}\s*(?:%|ppm|{suffix})(?:\s+(?:normal|uniform))?)?"
     if allow_inf and u.allow_inf:
@@ -50,8 +50,8 @@ def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool) -> str:
     return rf"^\s*{value}\s*$"
 
 
-def field_schema(f) -> dict:
-    """Schema of one stage field."""
+def field_schema(f, amplitude: bool = False) -> dict:
+    """Schema of one stage field; an ``amplitude`` may carry rms/pk/pp (spec.loader.amplitude_form)."""
     out: dict = {"description": f.doc}
     if isinstance(f.default, str):
         out["default"] = f.default
@@ -61,7 +61,7 @@ def field_schema(f) -> dict:
     u = UNITS[f.unit]
     low, high, _ = f.bounds()
     kinds: list[dict] = [{"type": "number", "minimum": low, "maximum": high},
-                         {"type": "string", "pattern": unit_pattern(f.unit, f.allow_inf, f.tolerable)}]
+                         {"type": "string", "pattern": unit_pattern(f.unit, f.allow_inf, f.tolerable, amplitude)}]
     if f.choices:
         kinds.append({"enum": list(f.choices)})
     if f.rail_ok:
@@ -80,7 +80,7 @@ def stage_schema(kind: str, is_source: bool = False) -> dict:
     if not is_source:
         props["from"] = {"type": "string", "pattern": spec.NAME_RE.pattern,
                          "description": "the stage whose output this stage reads (default: the one above)"}
-    props.update({k: field_schema(f) for k, f in model.FIELDS.items()})
+    props.update({k: field_schema(f, amplitude=k == "amplitude") for k, f in model.FIELDS.items()})
     out = {"type": "object", "properties": props, "additionalProperties": False,
            "required": ["kind"] + ([] if is_source else ["name"]) + [k for k, f in model.FIELDS.items() if f.required]}
     if model.ONE_OF:

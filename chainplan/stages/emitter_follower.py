@@ -63,9 +63,25 @@ class EmitterFollower(StageKind):
         g_in = inv(r_pi + (beta + 1.0) * inv(g_out + out_load.G))
         op.input_load = DcLoad(g_in, g_in * v_in - ib)
         sat = p["collector"] - ve < p["vce_sat"]
-        op.flag(sat, "collector", "the transistor saturates at this bias")
+        # No DC path for the base current: the driving node's DC resistance (b/a of
+        # e = a·V + b·I) times IB exceeds the whole supply span, so no base bias exists
+        # (an ac-coupled or electret-like source without a bias resistor).
+        with np.errstate(divide="ignore", invalid="ignore"):
+            r_dc = np.abs(np.asarray(st_in.b, dtype=float) / np.asarray(st_in.a, dtype=float))
+            drop = ib * r_dc
+        span = p["collector"] - p["v_low"]
+        no_path = ~np.isfinite(r_dc) | (drop > span)
+        if np.any(no_path):
+            from ..spec.units import fmt
+            r_txt = "an open circuit" if not np.all(np.isfinite(r_dc)) else fmt(float(np.max(r_dc)), "Ω")
+            op.flag(no_path, "i_bias" if p.get("i_bias") is not None else "r_e",
+                    f"the base has no DC bias path: what drives it has a DC resistance of {r_txt}, through "
+                    f"which the base current ({fmt(float(np.max(ib)), 'A')}) cannot flow within the "
+                    f"{span:.3g} V supply (bias the base through a resistor to a rail: an ac_coupling with "
+                    "r_bias, or a candidate's input_bias)")
+        op.flag(sat & ~no_path, "collector", "the transistor saturates at this bias")
         if p.get("i_bias") is not None:
-            op.flag(~sat & (ve - p["v_low"] < p["v_compliance"]), "i_bias",
+            op.flag(~sat & ~no_path & (ve - p["v_low"] < p["v_compliance"]), "i_bias",
                     f"the emitter sits at {float(np.min(ve)):.3g} V, below the current "
                     "sink's compliance; the bias current cannot flow in the active region")
         i_load = out_load.G * ve - out_load.I0
