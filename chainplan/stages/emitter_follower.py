@@ -74,9 +74,11 @@ class EmitterFollower(StageKind):
         if np.any(no_path):
             from ..spec.units import fmt
             r_txt = "an open circuit" if not np.all(np.isfinite(r_dc)) else fmt(float(np.max(r_dc)), "Ω")
+            i_e = p["i_bias"] if p.get("i_bias") is not None else span / p["r_e"]
+            ib_need = float(np.max(i_e / (np.asarray(p["beta"], dtype=float) + 1.0)))   # IB = IE/(β + 1)
             op.flag(no_path, "i_bias" if p.get("i_bias") is not None else "r_e",
                     f"the base has no DC bias path: what drives it has a DC resistance of {r_txt}, through "
-                    f"which the base current ({fmt(float(np.max(ib)), 'A')}) cannot flow within the "
+                    f"which the base current (about {fmt(ib_need, 'A')}) cannot flow within the "
                     f"{span:.3g} V supply (bias the base through a resistor to a rail: an ac_coupling with "
                     "r_bias, or a candidate's input_bias)")
         op.flag(sat & ~no_path, "collector", "the transistor saturates at this bias")
