@@ -20,6 +20,11 @@ BUDGET_HOOKS: list[str] = [
     "chainplan.engine.noise:attach_to_budget",
     "chainplan.engine.aliasing:attach_to_budget",
     "chainplan.engine.dcerror:attach_to_budget",
+    "chainplan.engine.loop:attach_to_budget",
+    "chainplan.engine.slew:attach_to_budget",
+    "chainplan.engine.sampling:attach_to_budget",
+    "chainplan.engine.step:attach_to_budget",
+    "chainplan.engine.startup:attach_to_budget",
     "chainplan.studies.requirements:attach_to_budget",
 ]
 

@@ -202,3 +202,111 @@ def test_second_order_relation_between_phase_margin_and_peaking():
         chain = chain_from(FOLLOWER_10NF.replace("r_out: 40,", f"f_p2: {fp2},").replace("a0: 110 dB", "a0: 200 dB"))
         (res,) = analyse_loops(evaluate(chain))
         assert res.peaking_db[0] == pytest.approx(second_order_peaking_db(res.pm_deg[0]), abs=0.05), fp2
+
+
+# ---------------------------------------------------------------------------
+# Step response from the frequency response (Filon-type sine integral) against
+# ngspice .tran of the photodiode demo (a 1 µA step of photocurrent): within 1 %
+# of the final value at the TIA output (where the 38° loop rings) and at the output.
+
+def test_step_response_of_photodiode_demo_matches_ngspice_tran():
+    from conftest import REPO
+    from chainplan.engine.step import analyse_step
+    from chainplan.spec.loader import load_chain
+    from helpers_ngspice import _values, run
+    chain = load_chain(str(REPO / "chains" / "photodiode_tia.yaml"))
+    ev = evaluate(chain)
+    a0 = 10 ** (110 / 20)
+    net = "\n".join(["Ish 0 d dc 0 pwl(0 0 1n 1u)", "Rsh d 0 1G", "Cd d 0 50p", "Cin d 0 5p", "RF out d 100k",
+                     "CF out d 2p", "Gm 0 x 0 d 1", f"Gx x 0 x 0 {1 / a0!r}", f"Cx x 0 {1 / (2 * np.pi * 10e6)!r}",
+                     "Eo ei 0 x 0 1", "Rro ei out 50", "Raa out aa 1k", "Caa aa 0 10n", "Cadc aa 0 20p"])
+    for node, spice_node, t_end in (("antialias", "aa", 150e-6), ("tia", "out", 6e-6)):
+        res = analyse_step(ev, node)
+        times = np.linspace(t_end / 30, t_end, 30)
+        ctl = [f"tran {t_end / 3000:g} {t_end:g} 0 {t_end / 3000:g}"]
+        ctl += [f"meas tran v{i} find v({spice_node}) at={t:.9g}" for i, t in enumerate(times)]
+        out = _values(run(net + "\n.options reltol=1e-6", ctl))
+        ref = np.array([out[f"v{i}"][-1] for i in range(len(times))]) / 1e-6       # V per A of step
+        assert res.t_s[-1] >= t_end
+        mine = np.interp(times, res.t_s, res.response[0])
+        np.testing.assert_allclose(mine, ref, atol=0.01 * abs(res.final[0]))
+        print(node, "max deviation / final:", np.max(np.abs(mine - ref)) / abs(res.final[0]))
+
+
+# ---------------------------------------------------------------------------
+# SAR kickback: a 16-bit converter resetting its 30 pF sampling capacitor behind
+# 470 Ω / 3.3 nF.  By hand ΔV = FS·Cs/(Cs + Cf) = 29.7 mV, τ = 470 Ω·3.33 nF, and
+# ½ LSB after τ·ln(2¹⁷·ΔV/FS) ≈ 11.1 µs.  ngspice .tran: the node at full scale,
+# Cs at 0 V switched on at t = 0 (a conductance ramped to 10 S in 1 ns: a behavioural
+# switch), the time the error last falls through ½ LSB.  Within 2 % (issue 14).
+
+SAR = """
+name: sar
+rails: {vdd: 3.3 V}
+source: {name: src, kind: sensor, amplitude: 1 V, dc: 1.65 V}
+stages:
+  - {name: filt, kind: rc_lowpass, r: 470, c: 3.3 nF}
+  - {name: adc, kind: adc, bits: 16, fs_low: 0 V, fs_high: vdd, c_sample: 30 pF, t_acq: 12 us, f_sample: 48 kHz}
+"""
+
+
+def test_sar_kickback_settling_matches_ngspice_tran():
+    from chainplan.engine.sampling import analyse_sampling
+    from helpers_ngspice import _values, run
+    r = analyse_sampling(evaluate(chain_from(SAR)))
+    lsb_half = 3.3 / 2 ** 17
+    net = "\n".join(["Vd d 0 dc 3.3", "R1 d n 470", "Cf n 0 3.3n ic=3.3", "Cs s 0 30p ic=0",
+                     "Vc c 0 pwl(0 0 1n 1)", "Bsw n s I = V(n,s)*(1e-15 + 10*V(c))",
+                     ".options reltol=1e-9 abstol=1e-18 vntol=1e-12 chgtol=1e-22"])
+    out = _values(run(net, ["tran 1n 20u 0 2n uic", "let err = 3.3 - v(n)", "meas tran dv max err",
+                            f"meas tran tset when err={lsb_half!r} fall=1", "print dv tset"]))
+    assert r.kickback_v[0] == pytest.approx(out["dv"][-1], rel=0.02)
+    assert r.t_settle_s[0] == pytest.approx(out["tset"][-1], rel=0.02)
+    assert r.t_settle_s[0] == pytest.approx(11.1e-6, rel=0.01)          # the hand figure
+    assert r.r_avg_ohm[0] == pytest.approx(1 / (48e3 * 30e-12))
+    assert r.settled_bits[0] > 16 and r.margin_s[0] > 0
+    short = analyse_sampling(evaluate(chain_from(SAR.replace("t_acq: 12 us", "t_acq: 8 us"))))
+    assert short.settled_bits[0] < 16 and short.margin_s[0] < 0
+
+
+# ---------------------------------------------------------------------------
+# Start-up: the hydrophone's 100 MΩ / 100 nF gate bias behind its 2 nF, 1 GΩ element.
+# The slow mode is the root of s²·Rb·Rs·C·Cs + s·(Rs(C + Cs) + Rb·C) + 1 (two-node
+# analysis): τ = 111.8 s.  ngspice .tran from power-up (vdd stepped, capacitors
+# empty): the decay rate of the element node between 20 s and 60 s.
+
+def test_hydrophone_gate_bias_time_constant_matches_ngspice():
+    from conftest import REPO
+    from chainplan.engine.startup import analyse_startup
+    from chainplan.spec.loader import load_chain
+    from helpers_ngspice import _values, run
+    res = analyse_startup(evaluate(load_chain(str(REPO / "chains" / "hydrophone_buffered.yaml"))))
+    a, b = 1e8 * 1e9 * 1e-7 * 2e-9, 1e9 * (1e-7 + 2e-9) + 1e8 * 1e-7
+    tau_hand = 1 / ((b - np.sqrt(b * b - 4 * a)) / (2 * a))
+    assert res.worst_node in ("gate_bias", "element")
+    assert res.worst_tau_s[0] == pytest.approx(tau_hand, rel=1e-3)
+    net = "\n".join(["Vdd vdd 0 pwl(0 0 1u 3.3)", "Rs e 0 1G", "Cs e 0 2n", "Cc e g 100n", "Rb g vdd 100meg"])
+    out = _values(run(net, ["tran 10m 60 0 10m uic", "meas tran v20 find v(e) at=20",
+                            "meas tran v60 find v(e) at=60", "print v20 v60"]))
+    tau_spice = 40.0 / np.log(out["v20"][-1] / out["v60"][-1])
+    assert res.worst_tau_s[0] == pytest.approx(tau_spice, rel=0.01)
+
+
+def test_step_on_the_budget_grid_agrees_with_a_fine_grid():
+    """The 10-stage benchmark chain (AC-coupled): the step response computed on the budget's
+    28-per-decade grid against the sine integral on a 120-per-decade grid of its own."""
+    import sys
+    from conftest import REPO
+    from chainplan.engine import step
+    sys.path.insert(0, str(REPO / "benchmarks"))
+    from bench_montecarlo import CHAIN
+    ev = evaluate(chain_from(CHAIN))
+    coarse = step.analyse_step(ev)
+    old = step.SPAN_PER_DECADE, step.POINTS_PER_DECADE
+    try:
+        step.SPAN_PER_DECADE, step.POINTS_PER_DECADE = 1e9, 120
+        fine = step.analyse_step(ev)
+    finally:
+        step.SPAN_PER_DECADE, step.POINTS_PER_DECADE = old
+    np.testing.assert_allclose(coarse.response[0], fine.response[0], atol=2e-3 * abs(fine.final[0]))
+    assert coarse.settling_s[0] == pytest.approx(fine.settling_s[0], rel=0.02)

@@ -63,11 +63,16 @@ class AcResult:
         return self.row[node]
 
 
-def run_ac(chain: Chain, params: dict, ops: dict, f_hz: np.ndarray, ws: Workspace | None = None) -> AcResult:
+def run_ac(chain: Chain, params: dict, ops: dict, f_hz: np.ndarray | None, ws: Workspace | None = None,
+           s=None) -> AcResult:
     """Both passes over the grid ``f_hz``.  With a :class:`Workspace` the admittances
     and rows are written into its recycled arrays (a Monte Carlo chunk); the values
-    are the same as without one."""
-    s = (2j * np.pi * np.asarray(f_hz, dtype=float))[None, :]
+    are the same as without one.  Or at complex frequencies ``s`` (shape (1, K) or
+    (S, K); ``f_hz`` None), e.g. on the negative real axis (engine/startup.py)."""
+    if s is None:
+        s = (2j * np.pi * np.asarray(f_hz, dtype=float))[None, :]
+    else:
+        f_hz = np.full(np.shape(s)[-1], np.nan)
     abcd, y_in = {}, {}
     zero = 0.0 * s
     node_y = {n: zero for n in chain.nodes}

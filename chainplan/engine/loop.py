@@ -31,7 +31,9 @@ import numpy as np
 from .cascade import run_ac
 from ..spec.units import fmt
 
-POINTS_PER_DECADE = 48
+POINTS_PER_DECADE = 48         # the fine loop grid (the fixes' searches)
+COARSE_PER_DECADE = 12         # the coarse grid that brackets crossovers and peaks
+REFINE_POINTS = 12             # per-sample points inside each bracket
 DEFAULT_PM_DEG = 45.0          # the target of the recommended fixes without a min_phase_margin requirement
 OPAMP_KINDS = ("opamp_follower", "opamp_noninverting", "opamp_inverting", "opamp_transimpedance")
 FOLLOWER_KINDS = ("source_follower", "emitter_follower")
@@ -71,7 +73,7 @@ class Fix:
         unit = "F" if self.what == "c_f" else "Ω"
         name = "c_f" if self.what == "c_f" else "isolation resistor"
         return (f"{name} {fmt(self.value, unit)} ({self.purpose}): PM {self.pm_deg:.0f}°, "
-                f"peaking {self.peaking_db:.1f} dB; {self.effect}")
+                f"peaks {self.peaking_db:.1f} dB; {self.effect}")
 
 
 @dataclass
@@ -94,7 +96,7 @@ class LoopResult:
         return self.t is not None
 
 
-def loop_grid(chain, params) -> np.ndarray:
+def loop_grid(chain, params, per_decade: int = POINTS_PER_DECADE) -> np.ndarray:
     """A log grid wide enough to hold every op-amp's crossover: from below the smallest
     GBW/10⁷ (a noise gain up to 10⁷) or f_start to 10× the largest GBW or f_stop."""
     a = chain.analysis
@@ -104,7 +106,7 @@ def loop_grid(chain, params) -> np.ndarray:
             g = np.asarray(params[st.name]["gbw"], dtype=float)
             lo, hi = min(lo, float(g.min()) * 1e-7), max(hi, 10 * float(g.max()))
     lo = max(lo, 1e-3)
-    n = int(math.ceil(math.log10(hi / lo) * POINTS_PER_DECADE)) + 1
+    n = int(math.ceil(math.log10(hi / lo) * per_decade)) + 1
     return np.geomspace(lo, hi, n)
 
 
@@ -115,22 +117,28 @@ def loop_ac(ev, f_hz=None):
         return run_ac(ev.chain, ev.params, ev.dc.ops, f_hz)
 
 
-def stage_loop_gain(ev, ac, st, params=None):
-    """T(jω) of one op-amp stage as connected, (S, F)."""
+def stage_loop_gain(ev, ac, st, params=None, s=None):
+    """T(jω) of one op-amp stage as connected, (S, F) (``s``: the AC pass's own complex
+    frequencies when they are per sample)."""
     p = ev.params[st.name] if params is None else params
-    s = (2j * np.pi * ac.f_hz)[None, :]
+    s = (2j * np.pi * ac.f_hz)[None, :] if s is None else s
     return st.model.loop_gain(p, s, ac.branch_row[st.name], ac.node_y[st.name]) + 0.0 * s
 
 
-def crossover(f_hz, t):
+def unwrapped_phase(t):
+    """∠T in degrees, unwrapped along frequency and starting near 0° (T(0) > 0)."""
+    ph = np.degrees(np.unwrap(np.angle(np.atleast_2d(t)), axis=1))
+    return ph - 360.0 * np.round(ph[:, :1] / 360.0)
+
+
+def crossover(f_hz, t, ph=None):
     """(f_c, PM°) per sample: |T| falling through 1 (the highest such crossing), the
     phase unwrapped from the lowest frequency; PM = inf where |T| < 1 everywhere and
     nan where |T| ≥ 1 still at the top of the grid."""
     t = np.atleast_2d(t)
     with np.errstate(divide="ignore", invalid="ignore"):
         lmag = np.log10(np.abs(t))
-    ph = np.degrees(np.unwrap(np.angle(t), axis=1))
-    ph = ph - 360.0 * np.round(ph[:, :1] / 360.0)        # T(0) > 0: the phase starts near 0°
+    ph = unwrapped_phase(t) if ph is None else ph
     above = lmag >= 0
     cross = above[:, :-1] & ~above[:, 1:]
     n = t.shape[1]
@@ -185,45 +193,158 @@ def f_minus3db(f_hz, h):
     return np.where(has, 10 ** (lf[k - 1] + w * (lf[k] - lf[k - 1])), np.nan)
 
 
-def analyse_loops(ev, ac=None, fixes: bool = False, target_pm_deg: float | None = None) -> list[LoopResult]:
+def _coarse_ac(ev):
+    """(AcResult, {stage: T}): the evaluation's own span when it holds every loop's
+    crossover (|T| above 1 at its bottom, below at its top, in every sample), else one
+    pass on the loop grid."""
+    span = ev.f_hz[1:]
+    if span.size > 8 and np.all(np.diff(span) > 0):
+        ac = _columns(ev.ac, slice(1, None), span)
+        ts, ok = {}, True
+        for st in ev.chain.stages:
+            if is_loop_stage(st):
+                t = ts[st.name] = stage_loop_gain(ev, ac, st)
+                mag = np.abs(t[:, [0, -1]])
+                ok &= bool(np.all(mag[:, 1] < 1.0) and np.all(mag[:, 0] > 1.0))
+        if ok:
+            return ac, ts
+    return loop_ac(ev, loop_grid(ev.chain, ev.params, COARSE_PER_DECADE)), {}
+
+
+def _columns(ac, col, f_hz):
+    """A view of an AcResult on some frequency columns (only what the loop analysis reads)."""
+    from .cascade import AcResult, NodeGains
+    take = lambda x: x[:, col] if np.ndim(x) == 2 else x  # noqa: E731
+    rows = {k: tuple(take(np.asarray(v)) for v in r) for k, r in ac.row.items()}
+    ny = {k: take(np.asarray(v)) for k, v in ac.node_y.items()}
+    br = {k: tuple(take(np.asarray(v)) for v in r) for k, r in ac.branch_row.items()}
+    return AcResult(f_hz, NodeGains(rows, ny), ny, rows, br, {}, {})
+
+
+def _local_ac(ev, f_loc):
+    """The cascade at per-sample frequencies f_loc (S, K)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return run_ac(ev.chain, ev.params, ev.dc.ops, None, s=2j * np.pi * f_loc)
+
+
+def _bracket_grid(f, k_lo, k_hi, n):
+    """(S, n) log grids from f[k_lo] to f[k_hi] per sample."""
+    lf = np.log10(f)
+    a, b = lf[k_lo], lf[k_hi]
+    return 10 ** (a[:, None] + (b - a)[:, None] * np.linspace(0.0, 1.0, n)[None, :])
+
+
+def _response(st, ev, ac, s=None):
+    """T/(1+T) and T of an op-amp stage, or a follower's V_out/V_th (and None)."""
+    if is_loop_stage(st):
+        t = stage_loop_gain(ev, ac, st, s=s)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return t / (1.0 + t), t
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return ac.node_h[st.name] * ac.branch_row[st.name][0], None
+
+
+def analyse_loops(ev, ac=None, fixes: bool = False, target_pm_deg: float | None = None,
+                  refine: bool = True) -> list[LoopResult]:
     """Every op-amp stage's loop and every follower's pole/peaking, vectorised over samples.
-    ``fixes``: add the recommended fixes (nominal chains)."""
+    A coarse grid (the evaluation's span, or the loop grid) brackets each crossover and
+    peak per sample; ``refine`` then evaluates the cascade on a fine grid inside each
+    bracket (per-sample frequencies, REFINE_POINTS each).  ``fixes``: add the recommended
+    fixes (nominal chains)."""
     chain = ev.chain
     stages = [st for st in chain.stages if is_loop_stage(st) or st.kind in FOLLOWER_KINDS]
     if not stages:
         return []
-    ac = loop_ac(ev) if ac is None else ac
+    ac, cached = _coarse_ac(ev) if ac is None else (ac, {})
     f = ac.f_hz
+    n_s = ev.samples
+    rows = np.arange(n_s)
     out = []
     for st in stages:
-        if is_loop_stage(st):
-            t = stage_loop_gain(ev, ac, st)
+        if st.name in cached:
+            t = cached[st.name]
             with np.errstate(divide="ignore", invalid="ignore"):
                 resp = t / (1.0 + t)
-            fc, pm = crossover(f, t)
-            notes = []
+        else:
+            resp, t = _response(st, ev, ac)
+        resp = np.broadcast_to(resp, (n_s, f.size))
+        notes = []
+        if t is not None:
+            t = np.broadcast_to(t, (n_s, f.size))
+            ph = unwrapped_phase(t)
+            fc, pm = crossover(f, t, ph)
             p = ev.params[st.name]
             if np.all(np.isinf(np.asarray(p.get("f_p2", np.inf)))):
-                notes.append("single-pole op-amp (no f_p2 given): the bare op-amp's own phase lag above "
-                             "crossover is not modelled, so this phase margin is an upper bound")
+                notes.append("single-pole op-amp model (no f_p2): this phase margin is an upper bound")
             if np.any(np.isnan(pm)):
                 notes.append("|T| is still above 1 at the top of the loop grid: the crossover lies beyond it")
+            has = np.isfinite(fc)
+            if refine and has.any():
+                k = np.clip(np.searchsorted(f, np.where(has, fc, f[0])) - 1, 0, f.size - 2)
+                f_loc = _bracket_grid(f, k, k + 1, REFINE_POINTS)
+                _, t_loc = _response(st, ev, _local_ac(ev, f_loc), s=2j * np.pi * f_loc)
+                t_loc = np.broadcast_to(t_loc, f_loc.shape)
+                fc2, pm2 = _local_crossover(f_loc, t_loc, ph[rows, k])
+                good = has & np.isfinite(fc2)
+                fc, pm = np.where(good, fc2, fc), np.where(good, pm2, pm)
         else:
-            t = None
-            a_in = ac.branch_row[st.name][0]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                resp = ac.node_h[st.name] * a_in          # V_out / V_th of the driving node
-            fc = pm = np.full(resp.shape[0], np.nan)
-            notes = []
+            fc = pm = np.full(n_s, np.nan)
         pk, fpk = peak_of(f, resp)
-        res = LoopResult(st.name, st.kind, f, t, resp, fc, pm, pk, fpk, f_minus3db(f, resp), notes)
-        out.append(res)
+        if refine and np.any(pk > 0):
+            k = np.clip(np.argmax(np.abs(resp), axis=1), 1, f.size - 2)
+            f_loc = _bracket_grid(f, k - 1, k + 1, REFINE_POINTS)
+            r_loc = np.broadcast_to(_response(st, ev, _local_ac(ev, f_loc), s=2j * np.pi * f_loc)[0], f_loc.shape)
+            with np.errstate(divide="ignore"):
+                ref = 20 * np.log10(np.abs(resp[:, 0]))
+            pk2, fpk2 = _local_peak(f_loc, r_loc, ref)
+            pk = np.where(pk > 0, pk2, pk)
+            fpk = np.where(pk > 0, fpk2, fpk)
+        out.append(LoopResult(st.name, st.kind, f, t, resp, fc, pm, pk, fpk, f_minus3db(f, resp), notes))
     if fixes:
         target = DEFAULT_PM_DEG if target_pm_deg is None else target_pm_deg
+        fine = None
         for res in out:
             if res.is_loop and np.ravel(res.pm_deg)[0] < target:
-                res.fixes = recommend(ev, ac, chain.stage(res.stage), res, target)
+                fine = loop_ac(ev) if fine is None else fine
+                res.fixes = recommend(ev, fine, chain.stage(res.stage), res, target)
     return out
+
+
+def _local_crossover(f_loc, t_loc, ph_start):
+    """Crossover inside per-sample grids (S, K), the phase continued from ph_start (the
+    coarse unwrapped phase at the bracket's lower end)."""
+    lmag = np.log10(np.abs(t_loc))
+    ph = np.degrees(np.unwrap(np.angle(t_loc), axis=1))
+    ph = ph + 360.0 * np.round((ph_start - ph[:, 0]) / 360.0)[:, None]
+    above = lmag >= 0
+    cross = above[:, :-1] & ~above[:, 1:]
+    n = f_loc.shape[1]
+    k = n - 2 - np.argmax(cross[:, ::-1], axis=1)
+    rows = np.arange(f_loc.shape[0])
+    y0, y1 = lmag[rows, k], lmag[rows, k + 1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        w = np.clip(y0 / (y0 - y1), 0.0, 1.0)
+    lf = np.log10(f_loc)
+    fc = 10 ** (lf[rows, k] + w * (lf[rows, k + 1] - lf[rows, k]))
+    pc = ph[rows, k] + w * (ph[rows, k + 1] - ph[rows, k])
+    has = cross.any(axis=1)
+    return np.where(has, fc, np.nan), np.where(has, 180.0 + pc, np.nan)
+
+
+def _local_peak(f_loc, h, ref_db):
+    """Peak of |h| on per-sample grids (S, K), parabola-refined, in dB above ref_db."""
+    with np.errstate(divide="ignore"):
+        db = 20 * np.log10(np.abs(h))
+    rows = np.arange(db.shape[0])
+    k = np.clip(np.argmax(db, axis=1), 1, db.shape[1] - 2)
+    ym, y0, yp = db[rows, k - 1], db[rows, k], db[rows, k + 1]
+    den = ym - 2 * y0 + yp
+    with np.errstate(divide="ignore", invalid="ignore"):
+        off = np.clip(np.where(den < 0, 0.5 * (ym - yp) / den, 0.0), -1.0, 1.0)
+    top = np.maximum(y0 - 0.25 * (ym - yp) * off, db.max(axis=1))
+    lf = np.log10(f_loc)
+    f_pk = 10 ** (lf[rows, k] + off * (lf[rows, 1] - lf[rows, 0]))
+    return np.maximum(top - ref_db, 0.0), f_pk
 
 
 # -- the classic fixes ------------------------------------------------------------
@@ -282,7 +403,7 @@ def recommend(ev, ac, st, res: LoopResult, target: float) -> list[Fix]:
             pole = f_minus3db(ac.f_hz, 1.0 / (1.0 + ri * yl))[0]
             c_eff = float(np.imag(yl[0, k]) / (2 * np.pi * fc))
             fixes.append(Fix(st.name, "r_iso", ri, f"{target:.0f}°", float(pm[i]), float(pk[i]),
-                             f"the load (≈ {fmt(c_eff, 'F')} at crossover) then sees a pole at "
+                             f"the load ({fmt(c_eff, 'F')}) then sees a pole at "
                              f"{fmt(pole, 'Hz')} and {loss:+.3f} dB at f_ref".replace("-", "−")))
     # capacitance at the − input
     zf, y = st.model.loop_network(p, np.array([[s_c]]), tuple(np.asarray(x)[:1, k:k + 1]
@@ -330,6 +451,50 @@ def _cf_effect(ev, st, cf) -> str:
         ev1 = evaluate(chain)
     hi1, hi2 = float(ev1.band_edges()[1][0]), float(ev2.band_edges()[1][0])
     dg = 20 * math.log10(abs(ev2.gain()[0, 0]) / abs(ev1.gain()[0, 0]))
-    edge = (f"upper band edge {fmt(hi2, 'Hz')} (now {fmt(hi1, 'Hz')})" if np.isfinite(hi1) and np.isfinite(hi2)
-            else "upper band edge beyond the span")
-    return f"{edge}, gain at f_ref {dg:+.2f} dB".replace("-", "−")
+    edge = (f"band edge {fmt(hi2, 'Hz')} (now {fmt(hi1, 'Hz')})" if np.isfinite(hi1) and np.isfinite(hi2)
+            else "band edge beyond the span")
+    return f"{edge}, gain {dg:+.2f} dB".replace("-", "−")
+
+
+# -- budget hook -------------------------------------------------------------------
+
+def target_pm(chain) -> float:
+    """The phase margin the fixes aim for: the chain's min_phase_margin requirement, else 45°."""
+    lims = [r.limit for r in chain.extra.get("requirements", []) if r.key == "min_phase_margin"]
+    return max(lims) if lims else DEFAULT_PM_DEG
+
+
+def summary_rows(results) -> list:
+    """(what, value) rows for the budget summary, one per stage and one per fix."""
+    rows = []
+    for r in results:
+        pk = float(r.peaking_db[0])
+        peak = f"peaks {pk:.1f} dB at {fmt(float(r.f_peak_hz[0]), 'Hz')}" if pk > 0.05 else "no peaking"
+        if r.is_loop:
+            pm, fc = float(r.pm_deg[0]), float(r.f_cross_hz[0])
+            head = (f"PM {pm:.1f}° at {fmt(fc, 'Hz')}" if math.isfinite(pm) else
+                    "|T| < 1 everywhere: no crossover" if pm == math.inf else "crossover beyond the loop grid")
+            rows.append((f"loop {r.stage}", f"{head}; {peak}"))
+        else:
+            rows.append((f"response {r.stage}", f"pole {fmt(float(r.f_3db_hz[0]), 'Hz')} as connected; {peak}"))
+        rows.extend((f"  fix {r.stage}", fx.describe()) for fx in r.fixes)
+        rows.extend((f"  note {r.stage}", n) for n in r.notes if "single-pole" not in n or r.fixes)
+    return rows
+
+
+def result_json(r: LoopResult) -> dict:
+    num = lambda x: None if not np.isfinite(float(np.ravel(x)[0])) else float(np.ravel(x)[0])  # noqa: E731
+    return {"stage": r.stage, "kind": r.kind, "loop": r.is_loop, "f_cross_hz": num(r.f_cross_hz),
+            "phase_margin_deg": num(r.pm_deg), "peaking_db": float(r.peaking_db[0]), "f_peak_hz": num(r.f_peak_hz),
+            "f_3db_hz": num(r.f_3db_hz), "notes": list(r.notes),
+            "fixes": [{"what": fx.what, "value": fx.value, "purpose": fx.purpose, "phase_margin_deg": fx.pm_deg,
+                       "peaking_db": fx.peaking_db, "effect": fx.effect} for fx in r.fixes]}
+
+
+def attach_to_budget(b) -> None:
+    """BUDGET_HOOKS entry: loop and follower rows in the summary, ``stability`` in JSON."""
+    results = analyse_loops(b.ev, fixes=True, target_pm_deg=target_pm(b.chain))
+    if not results:
+        return
+    b.extra_summary.extend(summary_rows(results))
+    b.extra_json["stability"] = [result_json(r) for r in results]

@@ -55,10 +55,29 @@ class Adc(_Load):
         "i_supply": Field("A", "quiescent supply current of the converter and its reference", default="0 A",
                           minimum=0.0, tolerable=False),
         "supply": Field("V", "rail that feeds the converter's supply current", rail_ok=True),
+        "c_sample": Field("F", "sampling (hold) capacitor of a SAR-type input; with t_acq (or t_conv and "
+                          "f_sample) the kickback and its settling in the acquisition time are checked",
+                          default="0 F", minimum=0.0),
+        "t_acq": Field("s", "acquisition time: how long the sampling switch is closed", positive=True,
+                       tolerable=False),
+        "t_conv": Field("s", "conversion time; with f_sample, t_acq = 1/f_sample − t_conv", positive=True,
+                        tolerable=False),
+        "sampling": Field("choice", "input architecture: 'reset' (the capacitor is reset every cycle, the "
+                          "kickback is up to full scale) or 'track' (it holds the previous sample, the kickback "
+                          "is the signal's change between samples)", default="reset", choices=("reset", "track"),
+                          tolerable=False),
     }
 
     def op(self, p):
         op = Op(in_range=(p["fs_low"], p["fs_high"]))
+        period = 1.0 / p["f_sample"] if p.get("f_sample") is not None else np.inf
+        for key in ("t_acq", "t_conv"):
+            if p.get(key) is not None:
+                op.flag(np.asarray(p[key]) >= period, key, f"{key} must be shorter than the sample period "
+                        "1/f_sample")
+        if p.get("t_acq") is None and (p.get("t_conv") is None or p.get("f_sample") is None):
+            op.flag(np.asarray(p.get("c_sample", 0.0)) > 0, "c_sample", "a sampling capacitor needs t_acq, or t_conv and f_sample, "
+                    "to check its settling")
         op.flag(np.asarray(p["fs_high"]) <= np.asarray(p["fs_low"]), "fs_high",
                 "the full-scale range is empty: fs_high must be above fs_low")
         return op

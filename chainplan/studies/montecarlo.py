@@ -196,6 +196,33 @@ def metrics(ev) -> dict:
         for key in ("out_vrms", "in_vrms"):
             out[f"noise_{key}"] = per(getattr(nr, key))
         out["snr_db"], out["enob_bits"] = per(nr.snr_db), per(nr.enob_bits)
+    out.update(dynamics_metrics(ev))
+    return out
+
+
+def dynamics_metrics(ev) -> dict:
+    """Phase margin and peaking of every loop and follower, the chain's step settling,
+    a sampling converter's settled bits and the start-up time, each ``(S,)``."""
+    from ..engine.loop import analyse_loops
+    from ..engine.sampling import analyse_sampling
+    from ..engine.startup import analyse_startup
+    from ..engine.step import analyse_step
+    n = ev.samples
+    per = lambda x: per_sample(x, n)  # noqa: E731
+    out = {}
+    for r in analyse_loops(ev):
+        if r.is_loop:
+            out[f"phase_margin_deg.{r.stage}"] = per(r.pm_deg)
+        out[f"peaking_db.{r.stage}"] = per(r.peaking_db)
+    st = analyse_step(ev)
+    if st is not None:
+        out["settling_s"] = per(st.settling_s)
+    sm = analyse_sampling(ev)
+    if sm is not None:
+        out["settled_bits"] = per(sm.settled_bits)
+    su = analyse_startup(ev)
+    if su is not None and su.worst_node is not None:
+        out["startup_s"] = per(su.startup_s)
     return out
 
 
@@ -208,7 +235,9 @@ METRICS = {"gain_db": ("gain at f_ref", "dB", 0), "f_low_hz": ("lower −3 dB ed
            "headroom_v": ("headroom", "V", +1), "power_w": ("supply power", "W", -1),
            "buffer_power_w": ("buffer power", "W", -1), "noise_out_vrms": ("output noise", "V", -1),
            "noise_in_vrms": ("input-referred noise", "V", -1), "snr_db": ("SNR", "dB", +1),
-           "enob_bits": ("ENOB", "bits", +1)}
+           "enob_bits": ("ENOB", "bits", +1), "phase_margin_deg": ("phase margin", "°", +1),
+           "peaking_db": ("peaking", "dB", -1), "settling_s": ("step settling time", "s", -1),
+           "settled_bits": ("settled bits", "bits", +1), "startup_s": ("start-up time", "s", -1)}
 
 
 def metric_info(chain: Chain, key: str) -> tuple[str, str, int]:
@@ -228,7 +257,15 @@ def metric_names(chain: Chain) -> list:
     """The keys :func:`metrics` returns for this chain."""
     return (["gain_db", "f_low_hz", "f_high_hz"] + [f"loading_loss_db.{st.name}" for st in chain.stages]
             + [f"headroom_v.{n}" for n in chain.nodes] + ["power_w", "buffer_power_w"]
-            + (["noise_out_vrms", "noise_in_vrms", "snr_db", "enob_bits"] if has_noise() else []))
+            + (["noise_out_vrms", "noise_in_vrms", "snr_db", "enob_bits"] if has_noise() else [])
+            + dynamics_names(chain))
+
+
+def dynamics_names(chain: Chain) -> list:
+    """The keys :func:`dynamics_metrics` returns for this chain (the nominal chain decides)."""
+    from ..engine.budget import evaluate
+    with np.errstate(all="ignore"):
+        return list(dynamics_metrics(evaluate(chain)))
 
 
 def chunk_size(chain: Chain) -> int:

@@ -57,6 +57,18 @@ KINDS: dict[str, Kind] = {k.key: k for k in (
     Kind("min_enob", "min_enob_bits", "1", "bits", "min", (), "effective number of bits at the converter"),
     Kind("max_buffer_power", "max_buffer_power_w", "W", "W", "max", ("stages",),
          "total power of the follower stages (or stages:)"),
+    Kind("min_phase_margin", "min_phase_margin_deg", "deg", "°", "min", ("stages",),
+         "phase margin of every op-amp loop as connected (or stages:)"),
+    Kind("max_peaking", "max_peaking_db", "dB", "dB", "max", ("stages",),
+         "closed-loop peaking of every op-amp loop and follower (or stages:)"),
+    Kind("min_slew_margin", "min_slew_margin_db", "dB", "dB", "min", ("stages",),
+         "slew limit over the signal's steepest slope, at every op-amp with slew_rate and class-A follower"),
+    Kind("min_settled_bits", "min_settled_bits_bits", "1", "bits", "min", (),
+         "bits a sampling converter's kickback settles to in its acquisition time"),
+    Kind("max_settling_time", "max_settling_time_s", "s", "s", "max", ("error",),
+         "step response of the chain settled within error: (default 1 %)"),
+    Kind("max_startup_time", "max_startup_time_s", "s", "s", "max", (),
+         "start-up / overload recovery: 5 × the slowest bias or coupling time constant"),
     Kind("min_alias_rejection", "min_alias_rejection_db", "dB", "dB", "min", (),
          "gain drop from f_ref to the first frequency the ADC folds into the band"),
     # DC accuracy (engine/dcerror.py): limits in V, LSB, % (of full scale; of the gain for
@@ -73,6 +85,8 @@ KINDS: dict[str, Kind] = {k.key: k for k in (
 ERROR_KINDS = {"max_offset_error": "offset", "max_gain_error": "gain", "max_drift": "drift",
                "max_total_error": "total"}
 NOISE_KINDS = ("min_snr", "min_enob")
+DYNAMICS_KINDS = ("min_phase_margin", "max_peaking", "min_slew_margin", "min_settled_bits", "max_settling_time",
+                  "max_startup_time")
 
 
 @dataclass(frozen=True)
@@ -89,6 +103,7 @@ class Requirement:
     targets: tuple | None = None       # nodes / interfaces (reading stage) / stages; None = all
     line: int | None = None
     rule: str | None = None            # DC error totals: 'worst_case' (default) or 'rss'
+    error: float | None = None         # max_settling_time: the relative settling error
 
     def describe(self, full: bool = True) -> str:
         """The requirement in words, e.g. '≥ 30.00 dB at 1.00 kHz' (``full=False``: '≥ 30.00 dB')."""
@@ -161,7 +176,7 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
     for key in item:
         if key not in allowed:
             hint = nearest(key, allowed)
-            if key in ("at", "band", "nodes", "interfaces", "stages"):
+            if key in ("at", "band", "nodes", "interfaces", "stages", "error"):
                 hint = f" ('{key}' does not apply to {k.key}; it takes: {', '.join(sorted(allowed - {k.key}))})"
             raise SpecError(f"unknown key '{key}'" + hint, path, item.line_of(key), f"{where}.{key}")
     err = lambda msg, key: SpecError(msg, path, item.line_of(key), f"{where}.{key}")  # noqa: E731
@@ -200,6 +215,15 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
                              ("stages", [s.name for s in chain.stages], "stage")):
         if key in item:
             targets = _names(item, key, names, what, err)
+    error = None
+    if "error" in item:
+        try:
+            error = parse_value(item["error"], "%")
+        except UnitError as exc:
+            raise err(str(exc), "error") from None
+        if not 0 < error < 1:
+            raise err("error is a fraction of the final value between 0 and 100 %, e.g. 1 %", "error")
+    _check_dynamics(chain, k.key, targets, err)
     if k.key == "max_buffer_power" and targets is not None:
         for t in targets:
             if chain.stage(t).role != "two_port":
@@ -217,7 +241,7 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
         raise err("'name' must be text", "name")
     name = name.strip() if name else _default_name(k.key, at, band, targets)
     return Requirement(name, k.key, k.kind, limit, symbol, k.sense, str(raw).strip(), at, band, targets,
-                       item.line, rule)
+                       item.line, rule, error)
 
 
 def _error_limit(raw, chain):
@@ -241,6 +265,35 @@ def _error_limit(raw, chain):
                                   "a sensor unit once accuracy.sensitivity declares one")
         raise UnitError(f"'{text}' is not a DC error limit: give it in {words}, e.g. '2 mV', '4 LSB', "
                         "'0.1 %'") from None
+
+
+def _check_dynamics(chain, key, targets, err) -> None:
+    """A dynamics requirement needs something to judge: op-amp loops, followers, a slew
+    limit, a sampling converter."""
+    from ..engine.loop import FOLLOWER_KINDS, is_loop_stage
+    if key == "min_phase_margin":
+        ok = [s.name for s in chain.stages if is_loop_stage(s)]
+        what = "an op-amp stage"
+    elif key == "max_peaking":
+        ok = [s.name for s in chain.stages if is_loop_stage(s) or s.kind in FOLLOWER_KINDS]
+        what = "an op-amp stage or a follower"
+    elif key == "min_slew_margin":
+        ok = [s.name for s in chain.stages if s.kind in FOLLOWER_KINDS or
+              math.isfinite(float(np.max(s.params.get("slew_rate", math.inf))))]
+        what = "an op-amp with slew_rate or a follower"
+    elif key == "min_settled_bits":
+        from ..engine.sampling import sampling_adc
+        if sampling_adc(chain) is None:
+            raise err("min_settled_bits needs an ADC with c_sample (and t_acq, or t_conv and f_sample) "
+                      "reading the output node", key)
+        return
+    else:
+        return
+    if not ok:
+        raise err(f"{key} needs {what} in the chain", key)
+    for t in targets or ():
+        if t not in ok:
+            raise err(f"'{t}' is not {what} (valid: {', '.join(ok)})", "stages")
 
 
 def _default_name(key, at, band, targets) -> str:
@@ -321,6 +374,11 @@ class _Views:
         return analyse_dc_errors(self.ev.chain)
 
     @functools.cached_property
+    def loops(self):
+        from ..engine.loop import analyse_loops
+        return {r.stage: r for r in analyse_loops(self.ev)}
+
+    @functools.cached_property
     def noise(self):
         from ..engine.noise import noise_powers
         return noise_powers(self.ev)       # SNR and ENOB need the integrated powers only
@@ -395,6 +453,48 @@ def _power(v: _Views, r):
     return total + np.zeros(v.n), None
 
 
+def _stage_rows(v: _Views, r, names, get, pick):
+    rows = np.stack([per_sample(get(n), v.n) for n in names])
+    return _worst(rows, names, pick)
+
+
+def _phase_margin(v: _Views, r):
+    names = list(r.targets or [n for n, x in v.loops.items() if x.is_loop])
+    return _stage_rows(v, r, names, lambda n: v.loops[n].pm_deg, np.argmin)
+
+
+def _peaking(v: _Views, r):
+    names = list(r.targets or v.loops)
+    return _stage_rows(v, r, names, lambda n: v.loops[n].peaking_db, np.argmax)
+
+
+def _slew(v: _Views, r):
+    from ..engine.slew import analyse_slew
+    rows = {x.stage: x for x in analyse_slew(v.ev) if np.all(np.isfinite(x.limit_v_per_s))}
+    names = [n for n in (r.targets or rows) if n in rows]
+    if not names:
+        return np.full(v.n, np.inf), None
+    return _stage_rows(v, r, names, lambda n: rows[n].margin_db, np.argmin)
+
+
+def _settled_bits(v: _Views, r):
+    from ..engine.sampling import analyse_sampling
+    res = analyse_sampling(v.ev)
+    return (np.full(v.n, np.nan) if res is None else res.settled_bits), None
+
+
+def _settling_time(v: _Views, r):
+    from ..engine.step import DEFAULT_ERROR, analyse_step
+    res = analyse_step(v.ev, error=r.error or DEFAULT_ERROR)
+    return (np.full(v.n, np.nan) if res is None else res.settling_s), None
+
+
+def _startup(v: _Views, r):
+    from ..engine.startup import analyse_startup
+    res = analyse_startup(v.ev)
+    return (np.zeros(v.n) if res is None else res.startup_s), None
+
+
 def _alias(v: _Views, r):
     from ..engine.aliasing import alias_check
     return alias_check(v.ev).value_db, None
@@ -413,7 +513,9 @@ def _dc_error(v: _Views, r):
 _VALUE = {"min_gain": _gain_db, "max_gain": _gain_db, "flatness": _flatness, "min_f_high": _f_high,
           "max_f_low": _f_low, "min_headroom": _headroom, "max_loading_loss": _loading, "min_snr": _snr,
           "min_enob": _enob, "max_buffer_power": _power, "min_alias_rejection": _alias,
-          **{k: _dc_error for k in ERROR_KINDS}}
+          **{k: _dc_error for k in ERROR_KINDS},
+          "min_phase_margin": _phase_margin, "max_peaking": _peaking, "min_slew_margin": _slew,
+          "min_settled_bits": _settled_bits, "max_settling_time": _settling_time, "max_startup_time": _startup}
 
 
 def evaluate_requirements(ev, reqs=None) -> list[ReqResult]:
@@ -487,7 +589,7 @@ def __getattr__(name):
                  at=value("Hz", "frequency (default: f_ref)"),
                  band={"type": "array", "items": value("Hz", "band end"), "minItems": 2, "maxItems": 2},
                  rule={"enum": ["worst_case", "rss"], "description": "DC error total: linear sum or RSS"},
-                 nodes=names, interfaces=names, stages=names)
+                 nodes=names, interfaces=names, stages=names, error=value("%", "settling error (default 1 %)"))
     item = {"type": "object", "properties": props, "additionalProperties": False,
             "oneOf": [{"required": [k]} for k in KINDS]}
     return {"requirements": {"type": "array", "items": item,
