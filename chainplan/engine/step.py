@@ -130,8 +130,9 @@ def analyse_step(ev, node: str | None = None, error: float = DEFAULT_ERROR) -> S
         final = np.abs(href) * np.sign(np.real(href))
         tau_low = 1.0 / (2 * np.pi * f_lo) if np.isfinite(f_lo) else np.inf
         window = min(40.0 / (2 * np.pi * f_hi), error * tau_low)
-        notes.append(f"AC-coupled: settling is to the mid-band gain; the low corner droops {error:.0%} "
-                     f"after {error * tau_low:.3g} s, which ends the window")
+        from ..spec.units import fmt
+        notes.append(f"AC-coupled: settling is to the mid-band gain; the low corner's droop reaches "
+                     f"{error * 100:g} % after {fmt(error * tau_low, 's')}, which ends the window")
     t = np.linspace(0.0, window, TIME_POINTS + 1)[1:]
     w1 = 2 * np.pi * f_hi
     resp = sine_integral_step(f, h, h0, w1, t)
@@ -151,9 +152,10 @@ def analyse_step(ev, node: str | None = None, error: float = DEFAULT_ERROR) -> S
 def summary_rows(r: StepResult) -> list:
     from ..spec.units import fmt
     ts = float(r.settling_s[0])
-    head = (f"settles to {r.error:.1%} in {fmt(ts, 's')}" if np.isfinite(ts)
-            else f"not settled to {r.error:.1%} within {fmt(r.window_s, 's')}")
-    return [("step response", f"{head}; overshoot {float(r.overshoot_pct[0]):.1f} %")] + \
+    err = f"{r.error * 100:g} %"
+    head = (f"within {err} after {fmt(ts, 's')}" if np.isfinite(ts)
+            else f"not within {err} inside {fmt(r.window_s, 's')}")
+    return [("step response", f"{head}, overshoot {float(r.overshoot_pct[0]):.1f} %")] + \
         [("  note step", n) for n in r.notes if not n.startswith("not settled")]
 
 
