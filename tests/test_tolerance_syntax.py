@@ -141,3 +141,28 @@ def test_a_tempco_where_none_makes_sense_is_refused(spec_file):
     """)
     with pytest.raises(SpecError):
         load_chain(path)
+
+
+def test_spice_export_writes_tempco_values_at_the_chain_temperature():
+    """The netlist is at the chain's temperature: a 10 kΩ 100 ppm/K resistor 50 K above t_nom
+    is written as 10.05 kΩ."""
+    from chainplan.render.spice import export
+    text = export(chain_from(RT.replace("{bottom}", ""))).text()
+    assert "10050" in text and "10000" in text
+
+
+def test_tracking_group_shares_the_drawn_coefficient():
+    """'±25ppm/K tracks rnet' on both divider resistors: each unit draws one coefficient for
+    the group, so the divider ratio does not move with temperature in any unit, while
+    untracked ±25ppm/K parts drift apart."""
+    spec = RT.replace("r_top: 10k 100ppm/K", "r_top: 10k ±25ppm/K{t}").replace("{bottom}", "±25ppm/K{t}")
+    tracked = chain_from(spec.replace("{t}", " tracks rnet"))
+    d = draw(tracked, 2000, seed=2)
+    g = np.abs(evaluate(tracked, d.params()).gain()[:, 0])
+    np.testing.assert_allclose(g, 0.5, rtol=1e-12)
+    loose = chain_from(spec.replace("{t}", ""))
+    d = draw(loose, 2000, seed=2)
+    g = np.abs(evaluate(loose, d.params()).gain()[:, 0])
+    assert g.std() > 1e-4
+    with pytest.raises(UnitError, match="tracks"):
+        parse_field_value("10k 25ppm/K tracks rnet", "ohm")

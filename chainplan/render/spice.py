@@ -514,7 +514,10 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
     """The SPICE netlist of a chain at its nominal values (raises SpecError, naming
     the stage, when a stage has no SPICE form)."""
     from ..engine.budget import nominal_params
-    params = nominal_params(chain)
+    from ..stages.base import at_temperature
+    # fields with a temperature coefficient at the chain's temperature (the netlist is at that temperature)
+    params = {name: at_temperature(chain.stage(name).raw.get("__tempco__"), p)
+              for name, p in nominal_params(chain).items()}
     fns = {st.name: _exporter(chain, st) for st in chain.all_stages}   # refuse before building anything
     b = _Builder(chain)
     src = chain.source

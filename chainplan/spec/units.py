@@ -75,8 +75,10 @@ A temperature coefficient may follow (:func:`parse_field_value`):
 ``"10k ±1% 50ppm/K"`` (relative: ``ppm/K``, ``%/K``, also ``/°C``) or
 ``"1.2 V ±5 mV -2mV/K"`` (absolute, in the field's unit per kelvin).  Written
 with ``±`` (``"10k ±1% ±25ppm/K"``) it is a limit like a tolerance: each unit
-has its own coefficient, uniform within it; without ``±`` every unit shares it
-(parts that track).  The value then is ``x(T) = x0·(1 + tc·(T − Tnom))``
+has its own coefficient, uniform within it; without ``±`` every unit shares it.
+``"10k ±0.1% ±25ppm/K tracks rnet"``: every part naming the group ``rnet``
+draws the same coefficient in a unit (the resistors of one network, whose
+ratio then holds over temperature).  The value then is ``x(T) = x0·(1 + tc·(T − Tnom))``
 (relative) or ``x0 + tc·(T − Tnom)`` (absolute), Tnom the spec's ``t_nom``.
 
 :func:`fmt` prints engineering notation with the prefixes f p n µ m k M G T,
@@ -214,6 +216,7 @@ _REL_RE = re.compile(r"(\d+(?:\.\d*)?|\.\d+)((?:[eE][+\-]?\d+)?)\s*(%|ppm)")
 _DISTS = ("uniform", "normal", "sigma")
 _DIST_WORDS = {"uniform": "uniform", "normal": "normal", "σ": "sigma", "sigma": "sigma"}
 _SIGMA_RE = re.compile(r"^(.*?)\s*(?:σ|sigma)\s*=\s*(.+)$", re.DOTALL | re.IGNORECASE)
+_TRACK_RE = re.compile(r"\s+tracks\s+([A-Za-z_][\w\-]*)\s*$")
 _TC_RE = re.compile(r"(?:^|\s)(±|\+/-|\+-)?\s*([+\-\u2212]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+\-]?\d+)?)\s*"
                     r"([^\s/±]*)\s*/\s*(K|°C|degC|\u2103)\s*$")
 
@@ -448,6 +451,7 @@ class Tempco:
     rel: float | None
     abs: float | None
     spread: bool = False
+    group: str | None = None      # 'tracks NAME': every part of the group draws the same coefficient
 
     @property
     def value(self) -> float:
@@ -482,10 +486,19 @@ def parse_field_value(text, unit_id: str) -> tuple[float, Tolerance | None, Temp
     if not isinstance(text, str):
         return _parse(text, unit), None, None
     tc = None
+    group = None
+    g = _TRACK_RE.search(text)
+    if g:
+        group, text = g.group(1), text[:g.start()]
     m = _TC_RE.search(text)
     if m and m.start() > 0 and text[:m.start()].strip() and not unit.id.endswith("/K"):
         tc = _parse_tempco(text, m, unit)
         text = text[:m.start()]
+    if group is not None:
+        if tc is None or not tc.spread:
+            raise UnitError(f"in {text!r}: 'tracks {group}' names a group whose parts share one drawn "
+                            "coefficient; it follows a coefficient limit such as '±25ppm/K'")
+        tc = Tempco(tc.rel, tc.abs, True, group)
     return (*parse_toleranced(text, unit_id), tc)
 
 

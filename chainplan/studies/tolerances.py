@@ -263,9 +263,10 @@ def draw(chain: Chain, samples: int, seed: int) -> Draws:
     for stage in chain.all_stages:
         for fld, tc in (stage.raw.get("__tempco__") or {}).items():
             if tc.spread:
-                name = f"{stage.name}.{fld}.tc"
-                d.inputs[name] = d.assign[(stage.name, f"{fld}@tc")] = \
-                    abs(tc.value) * _stream(seed, name).uniform(-1.0, 1.0, samples)
+                name = f"tracks.{tc.group}" if tc.group else f"{stage.name}.{fld}.tc"
+                u = _stream(seed, name).uniform(-1.0, 1.0, samples)    # one stream per group: shared draws
+                d.inputs[name] = u if tc.group else abs(tc.value) * u
+                d.assign[(stage.name, f"{fld}@tc")] = abs(tc.value) * u
     rails = {}
     for rail, tol in chain.extra.get("rail_tolerances", {}).items():
         name = f"rails.{rail}"
