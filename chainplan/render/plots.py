@@ -318,6 +318,12 @@ def noise_plot(nr, chain, top: int = 6):
 
 # -- Monte Carlo -----------------------------------------------------------------
 
+def _ci(mc, y) -> str:
+    """The 95 % Wilson interval of a yield, e.g. '98.7 … 100.0 %' ('—' without units)."""
+    lo, hi = mc.interval(y) if hasattr(mc, "interval") else (math.nan, math.nan)
+    return "—" if not math.isfinite(lo) else f"{100 * lo:.1f} … {100 * hi:.1f} %"
+
+
 def montecarlo_plot(mc, nominal: dict | None = None, max_panels: int = 9):
     """Histograms of every requirement's value with its limit (the failing side shaded)
     and yield — or, without requirements, of the main metrics — from a
@@ -350,15 +356,15 @@ def montecarlo_plot(mc, nominal: dict | None = None, max_panels: int = 9):
             ax.set_xlim(lo, hi)
         if name in nominal and math.isfinite(nominal[name]):
             ax.axvline(nominal[name], color="black", lw=1.2, gid=f"nominal:{name}")
-        head = label if yld is None else f"{label}: yield {100 * yld:.1f} %"
+        head = label if yld is None else f"{label}: yield {100 * yld:.1f} % ({_ci(mc, yld)})"
         ax.set_title(head, fontsize=8.5, loc="left", color=CLIP if (yld is not None and yld < 1) else "black")
         axis = unit + (f" · limit {show(limit, unit)}" if limit is not None else "")
         ax.set_xlabel(axis + (" · black line: nominal" if name in nominal else ""), fontsize=7.5)
         ax.tick_params(labelsize=7)
     if not panels:
         fig.text(0.5, 0.5, "no finite values to show", ha="center")
-    _title(fig, f"{mc.chain.name}: Monte Carlo, {mc.samples} samples (seed {mc.seed}), "
-                f"all requirements met in {100 * mc.yield_all:.1f} %")
+    _title(fig, f"{mc.chain.name}: Monte Carlo, {mc.samples} units (seed {mc.seed}), production yield "
+                f"{100 * mc.yield_all:.1f} % (95 % interval {_ci(mc, mc.yield_all)})")
     _finish(fig, mc.chain)
     return fig
 
