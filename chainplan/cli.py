@@ -53,32 +53,105 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
+    import warnings
+    from .errors import tidy
+    from .spec.yamlsrc import forget_files_read
+    # A non-finite figure is an error naming the stage (engine.budget.check_finite); numpy's own
+    # floating-point warnings would only add lines with source paths before or instead of it.
+    warnings.filterwarnings("ignore", category=RuntimeWarning)
+    forget_files_read()                  # the inputs of this run, which no output may replace
+    guard = _PipeGuard.install()
     try:
         args = build_parser().parse_args(argv)
         rc = int(args._run(args) or 0)
-        sys.stdout.flush()              # surface a full disk or closed pipe here, not at exit
+        sys.stdout.flush()              # surface a full disk here, not at exit
         return rc
     except SpecError as exc:
         sys.stderr.write(f"chainplan: {exc}\n")
         return 2
     except UsageError as exc:
-        sys.stderr.write(f"chainplan: error: {exc}\n")
+        sys.stderr.write(f"chainplan: error: {tidy(exc)}\n")
         return 2
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:
         sys.stderr.write("chainplan: interrupted\n")
-        return 130
-    except BrokenPipeError:
-        return 0
+        return 143 if type(exc).__name__ == "Interrupted" else 130
+    except BrokenPipeError:             # the reader went away before the verdict was known
+        _PipeGuard.silence()
+        return 141
     except OSError as exc:              # the machine, not chainplan: full disk, unreadable file
-        sys.stderr.write(f"chainplan: error: {exc.strerror or exc}" + (f": '{exc.filename}'" if exc.filename else "")
-                         + "\n")
+        sys.stderr.write(tidy(f"chainplan: error: {exc.strerror or exc}" + (f": '{exc.filename}'" if exc.filename
+                                                                           else "")) + "\n")
         return 2
     except Exception as exc:  # a bug in chainplan, not in the user's input
         if os.environ.get("CHAINPLAN_DEBUG"):
             raise
-        sys.stderr.write(f"chainplan: internal error: {type(exc).__name__}: {exc}\n"
+        sys.stderr.write(tidy(f"chainplan: internal error: {type(exc).__name__}: {exc}") + "\n"
                          "(set CHAINPLAN_DEBUG=1 to see where; please report it with the spec file)\n")
         return 70
+    finally:
+        if guard is not None:
+            guard.uninstall()
+
+
+class _PipeGuard:
+    """Standard output that a closed pipe (``chainplan check … | head -1``) cannot break:
+    once the reader is gone, the rest of the output is dropped quietly and the command
+    finishes with its own exit code (1 still means a requirement failed)."""
+
+    broken = False
+
+    def __init__(self, stream):
+        self._stream = stream
+
+    @classmethod
+    def install(cls):
+        if isinstance(sys.stdout, cls) or sys.stdout is None:
+            return None
+        cls.broken = False
+        guard = cls(sys.stdout)
+        sys.stdout = guard
+        return guard
+
+    def uninstall(self):
+        if sys.stdout is self:
+            sys.stdout = self._stream
+
+    @staticmethod
+    def silence():
+        """Point the standard output descriptor at /dev/null so the exit's flush stays quiet."""
+        _PipeGuard.broken = True
+        try:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.__stdout__.fileno())
+            os.close(devnull)
+        except (OSError, ValueError, AttributeError):
+            pass
+
+    def write(self, text):
+        if _PipeGuard.broken:
+            return len(text)
+        try:
+            return self._stream.write(text)
+        except BrokenPipeError:
+            self.silence()
+            return len(text)
+
+    def flush(self):
+        if _PipeGuard.broken:
+            return None
+        try:
+            return self._stream.flush()
+        except BrokenPipeError:
+            self.silence()
+            return None
+
+    @property
+    def buffer(self):
+        inner = getattr(self._stream, "buffer", None)
+        return None if inner is None else _PipeGuard(inner)
+
+    def __getattr__(self, name):
+        return getattr(self._stream, name)
 
 
 if __name__ == "__main__":

@@ -3,6 +3,7 @@ line and field, with a hint at what would be valid."""
 from __future__ import annotations
 
 import difflib
+import re
 
 
 class SpecError(Exception):
@@ -16,7 +17,21 @@ class SpecError(Exception):
         if self.line is not None:
             where += f":{self.line}"
         head = f"{where}: " + (f"{self.field}: " if self.field else "")
-        return head + self.message
+        return tidy(head + self.message)
+
+
+#: longest quoted value a message echoes, and longest message
+ECHO_CHARS, MESSAGE_CHARS = 80, 1000
+
+
+def tidy(text: str) -> str:
+    """A message on one line: control characters escaped (a value with a newline
+    cannot split it), quoted values over ECHO_CHARS shortened with '…', the whole
+    cut at MESSAGE_CHARS."""
+    text = re.sub(r"[\x00-\x1f\x7f]", lambda m: repr(m.group())[1:-1], str(text))
+    text = re.sub(r"(?<![\w'])'(?=\S)([^']{%d,}?)(?<=\S)'(?![\w'])" % (ECHO_CHARS + 1),
+                  lambda m: f"'{m.group(1)[:ECHO_CHARS - 1]}…'", text)
+    return text if len(text) <= MESSAGE_CHARS else text[:MESSAGE_CHARS - 1] + "…"
 
 
 class UsageError(Exception):

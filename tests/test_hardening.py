@@ -216,3 +216,183 @@ def test_stages_times_points_is_bounded(cli, spec_file):
                      "analysis:\n  points: 100000\n")
     rc, _, err = cli("budget", path)
     assert rc == 2 and ":1004: analysis.points:" in err and "exceeds the limit" in err
+
+
+# -- the output writer: no command destroys a file -----------------------------------
+
+import os          # noqa: E402
+import stat        # noqa: E402
+import subprocess  # noqa: E402
+import sys         # noqa: E402
+
+
+@pytest.mark.parametrize("args", [
+    ("netlist", "{spec}", "-o", "{spec}"),
+    ("report", "{spec}", "-o", "{spec}"),
+    ("check", "{spec}", "--junit", "{spec}"),
+    ("netlist", "{spec}", "-o", "{link}"),
+    ("netlist", "{spec}", "-o", "{parts}"),
+    ("buffers", "{spec}", "--min-gain", "20 dB", "--write", "{parts}"),
+])
+def test_no_command_writes_over_an_input_of_its_run(cli, project, args):
+    spec = project / "hydrophone_direct.yaml"
+    link = project / "link.yaml"
+    os.symlink(spec, link)
+    parts = project / "parts" / "followers.yaml"
+    before = {p: p.read_bytes() for p in (spec, parts)}
+    argv = [a.format(spec=spec, link=link, parts=parts) for a in args]
+    rc, out, err = cli(*argv)
+    assert rc == 2 and "input of this run" in err and err.count("\n") == 1, err
+    assert all(p.read_bytes() == data for p, data in before.items())
+    assert os.path.islink(link) and not any(p.name.startswith(".chainplan-") for p in project.rglob("*"))
+
+
+def test_an_output_keeps_its_mode_and_a_new_one_gets_the_umask(cli, project):
+    out = project / "net.cir"
+    out.write_text("old")
+    os.chmod(out, 0o600)
+    rc, _, err = cli("netlist", str(project / "hydrophone_direct.yaml"), "-o", str(out))
+    assert rc == 0 and stat.S_IMODE(os.stat(out).st_mode) == 0o600 and "old" not in out.read_text()
+    fresh = project / "fresh.cir"
+    mask = os.umask(0o022)
+    try:
+        rc, _, _ = cli("netlist", str(project / "hydrophone_direct.yaml"), "-o", str(fresh))
+    finally:
+        os.umask(mask)
+    assert rc == 0 and stat.S_IMODE(os.stat(fresh).st_mode) == 0o644
+
+
+@pytest.mark.parametrize("how", ["read-only", "hard link"])
+def test_a_read_only_or_hard_linked_output_is_refused(cli, project, how):
+    out = project / "net.cir"
+    out.write_text("old")
+    if how == "read-only":
+        os.chmod(out, 0o444)
+    else:
+        os.link(out, project / "other.cir")
+    rc, _, err = cli("netlist", str(project / "hydrophone_direct.yaml"), "-o", str(out))
+    assert rc == 2 and out.read_text() == "old" and err.count("\n") == 1
+    assert ("read-only" if how == "read-only" else "hard links") in err
+
+
+@pytest.mark.skipif(os.geteuid() != 0, reason="changing the owner needs the superuser")
+def test_a_foreign_owned_output_keeps_its_owner(cli, project):
+    out = project / "net.cir"
+    out.write_text("old")
+    os.chown(out, 12345, 12345)
+    rc, _, err = cli("netlist", str(project / "hydrophone_direct.yaml"), "-o", str(out))
+    st = os.stat(out)
+    assert rc == 0 and (st.st_uid, st.st_gid) == (12345, 12345) and "old" not in out.read_text()
+
+
+def _in_place(cli, spec, *more):
+    return cli("buffers", str(spec), "--min-gain", "20 dB", *more)
+
+
+def test_buffers_in_place_keeps_mode_line_endings_and_links(cli, project):
+    """--in-place wrote 0600 files, turned CRLF into LF and replaced a linked spec by a
+    regular file (leaving the real spec unchanged)."""
+    real = project / "hydrophone_direct.yaml"
+    real.write_bytes(real.read_bytes().replace(b"\n", b"\r\n"))
+    os.chmod(real, 0o640)
+    link = project / "latest.yaml"
+    os.symlink(real.name, link)
+    rc, out, err = _in_place(cli, link, "--in-place")
+    assert rc == 0, err
+    data = real.read_bytes()
+    assert os.path.islink(link) and b"buf_" in data
+    assert data.count(b"\r\n") == data.count(b"\n")                  # every line still CRLF
+    assert stat.S_IMODE(os.stat(real).st_mode) == 0o640
+
+
+def test_buffers_write_onto_a_fifo_writes_through_it(project):
+    """A FIFO (or a link to a descriptor) stays what it is: the spec is written into it."""
+    fifo = project / "pipe.yaml"
+    os.mkfifo(fifo)
+    env = {**os.environ, "PYTHONPATH": str(REPO)}
+    reader = subprocess.Popen(["cat", str(fifo)], stdout=subprocess.PIPE)
+    p = subprocess.run([sys.executable, "-c", "import sys; from chainplan.cli import main; sys.exit(main())",
+                        "buffers", str(project / "hydrophone_direct.yaml"), "--min-gain", "20 dB",
+                        "--write", str(fifo)], capture_output=True, text=True, env=env, timeout=120)
+    text = reader.communicate(timeout=60)[0].decode()
+    assert p.returncode == 0, p.stderr
+    assert stat.S_ISFIFO(os.lstat(fifo).st_mode) and "buf_" in text
+
+
+def test_a_read_only_folder_is_named_not_the_include(cli, project):
+    folder = project / "ro"
+    folder.mkdir()
+    os.chmod(folder, 0o555)
+    try:
+        if os.access(folder, os.W_OK):
+            pytest.skip("the superuser writes into read-only folders")
+        rc, _, err = _in_place(cli, project / "hydrophone_direct.yaml", "--write", str(folder / "new.yaml"))
+    finally:
+        os.chmod(folder, 0o755)
+    assert rc == 2 and "not writable" in err and "include" not in err
+
+
+def test_plot_publishes_all_figures_or_none(cli, project, monkeypatch):
+    """An interruption between two renames used to leave old and new figures mixed; now
+    the renames wait for them, and an interruption while writing leaves the old set and
+    no temporary files."""
+    from chainplan.render import files
+    out = project / "figs"
+    rc, _, err = cli("plot", str(project / "hydrophone_direct.yaml"), "-o", str(out), "--only", "levels,gain")
+    assert rc == 0, err
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    real_open = open
+    calls = []
+
+    def interrupted_open(path, mode="r", *a, **k):
+        if "x" in mode:
+            calls.append(path)
+            if len(calls) == 3:
+                raise KeyboardInterrupt
+        return real_open(path, mode, *a, **k)
+
+    monkeypatch.setattr("builtins.open", interrupted_open)
+    rc, _, err = cli("plot", str(project / "hydrophone_buffered.yaml").replace("buffered", "direct"),
+                     "-o", str(out), "--only", "levels,gain", "--at", "2 kHz")
+    monkeypatch.undo()
+    assert rc == 130 and len(calls) == 3
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+
+
+def test_sigterm_while_writing_leaves_no_temporary_files(tmp_path):
+    """SIGTERM used to leave .part files behind: now it removes them and exits 143."""
+    script = (
+        "import os, signal, sys\n"
+        "from chainplan.render import files\n"
+        "real = files._keep_mode_and_owner\n"
+        "def slow(tmp, target, old):\n"
+        "    real(tmp, target, old)\n"
+        "    if target.endswith('b.txt'):\n"
+        "        os.kill(os.getpid(), signal.SIGTERM)\n"
+        "files._keep_mode_and_owner = slow\n"
+        "from chainplan.cli import main\n"
+        "from chainplan.errors import UsageError\n"
+        f"try:\n    files.write_atomic({{'{tmp_path}/a.txt': 'a', '{tmp_path}/b.txt': 'b'}})\n"
+        "except KeyboardInterrupt as exc:\n    sys.exit(143 if type(exc).__name__ == 'Interrupted' else 1)\n")
+    p = subprocess.run([sys.executable, "-c", script], env={**os.environ, "PYTHONPATH": str(REPO)},
+                       capture_output=True, text=True, timeout=60)
+    assert p.returncode == 143, p.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_a_closed_pipe_exits_quietly_with_the_verdict(tmp_path):
+    """`chainplan check … | head -1` exited 1 ("a requirement failed") for a passing chain."""
+    for demo, verdict in (("hydrophone_buffered.yaml", 0), ("hydrophone_direct.yaml", 1)):
+        p = subprocess.run(f"'{sys.executable}' -c 'import sys; from chainplan.cli import main; sys.exit(main())' "
+                           f"check '{REPO / 'chains' / demo}' | head -c 10 >/dev/null; "
+                           "echo ${PIPESTATUS[0]}", shell=True, executable="/bin/bash", capture_output=True,
+                           text=True, env={**os.environ, "PYTHONPATH": str(REPO)}, timeout=120)
+        assert p.stdout.strip() == str(verdict) and p.stderr == "", (demo, p.stdout, p.stderr)
+
+
+@pytest.mark.parametrize("value", ['"4.7q\\nbad"', "x" * 20000])
+def test_an_echoed_value_stays_on_one_short_line(cli, spec_file, value):
+    path = spec_file(f"name: t\nsource: {{kind: sensor, amplitude: 1 mV}}\nstages:\n"
+                     f"  - {{name: r, kind: series_r, r: {value}}}\n")
+    rc, _, err = cli("budget", path)
+    assert rc == 2 and err.count("\n") == 1 and len(err) < 400, err

@@ -49,6 +49,9 @@ def run(args) -> int:
         raise UsageError("give either --write NEW.yaml or --in-place, not both")
     if args.write and os.path.exists(args.write) and os.path.samefile(args.write, args.file):
         raise UsageError(f"--write {args.write} names the input spec itself; to rewrite it, use --in-place")
+    if args.write or args.in_place:
+        from ..render.files import check_target
+        check_target(args.write or args.file, replaces=args.file if args.in_place else None)
     place = args.place or args.write or args.in_place or any(
         x is not None for x in (args.min_gain, args.min_headroom, args.min_bandwidth, args.max_power))
     if args.headroom_nodes and args.min_headroom is None:
@@ -121,9 +124,11 @@ def _place(chain, args) -> int:
     if args.write or args.in_place:
         if not plan.feasible:
             raise UsageError("nothing written: no placement meets the targets (see the table without --write)")
-        from ..spec.writer import write_buffered
+        from ..render.files import write_atomic
+        from ..spec.writer import buffered_file
         written = args.file if args.in_place else args.write
-        write_buffered(chain, {p.reader: _cand(chain, p.candidate) for p in plan.placements}, written)
+        data = buffered_file(chain, {p.reader: _cand(chain, p.candidate) for p in plan.placements}, written)
+        write_atomic({written: data}, replaces=args.file if args.in_place else None)
     if args.json:
         from ..render.advisor_tables import plan_dict
         from ..render.json_out import dumps

@@ -17,6 +17,9 @@ def run(args) -> int:
     from ..studies.requirements import check_chain
     from ..spec.loader import load_chain
     checked = []
+    if args.junit:
+        from ..render.files import check_target
+        check_target(args.junit)                 # a bad target is refused before any work
     for path in args.files:                      # every spec is read and checked before anything is written
         chain = apply_analysis_options(load_chain(path), args)
         checked.append((chain, check_chain(chain)))

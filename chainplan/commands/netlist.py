@@ -15,7 +15,11 @@ def run(args) -> int:
     from ..render.spice import export
     if not 1 <= args.per_decade <= 10000:
         raise UsageError("--per-decade takes a whole number from 1 to 10000")
-    text = export(load_chain(args.file), points_per_decade=args.per_decade).text()
+    chain = load_chain(args.file)
+    if args.output:
+        from ..render.files import check_target
+        check_target(args.output)                # refuse a bad target (or the spec itself) before any work
+    text = export(chain, points_per_decade=args.per_decade).text()
     if args.output:
         from ..render.files import write_atomic
         write_atomic({args.output: text})

@@ -18,10 +18,11 @@ def add_arguments(p):
 
 def run(args) -> int:
     from ..errors import UsageError
-    from ..render.files import check_folder, write_atomic
+    from ..render.files import check_target, write_atomic
     path = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-report.html"
-    check_folder(os.path.dirname(path))          # refuse a bad folder before any work
+    check_target(path)                           # refuse a bad target before any work
     b, noise, mc = analyse_for_pictures(args)
+    check_target(path)                           # ...and one of the files the analysis read
     from ..render.plots import figures
     from ..render.report import report_html
     figs = figures(b, noise, mc)

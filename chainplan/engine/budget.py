@@ -190,6 +190,7 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
              ws: Workspace | None = None) -> Evaluation:
     """DC and AC analysis; with a :class:`Workspace` (a Monte Carlo chunk) the AC arrays
     live in its recycled memory, valid until it is recycled."""
+    nominal = params is None and ws is None
     params = params if params is not None else nominal_params(chain)
     params = {st.name: at_temperature(st.raw.get("__tempco__"), params[st.name]) for st in chain.all_stages}
     f_hz = frequency_grid(chain) if f_hz is None else f_hz
@@ -199,7 +200,30 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
         dc = solve_dc(chain, params)
         ac = run_ac(chain, params, dc.ops, f_hz, ws)
         class_a_limits(chain, params, dc, ac, band_columns(chain, f_hz))
-    return Evaluation(chain, params, f_hz, dc, ac, chain.output_node(), ws)
+    ev = Evaluation(chain, params, f_hz, dc, ac, chain.output_node(), ws)
+    if nominal:
+        check_finite(ev)
+    return ev
+
+
+def check_finite(ev: Evaluation) -> None:
+    """A nominal analysis whose small-signal figures are not finite (values the models
+    cannot carry through float64) is a spec error naming the first stage where it shows,
+    never a 'nan dB' in a table.  Floating nodes and impossible bias points are left to
+    :func:`check_operating_points`, which names them better."""
+    chain = ev.chain
+    if not all(np.all(np.isfinite(v)) for v in ev.dc.node_v.values()) or \
+            any(np.any(op.bad) for op in ev.dc.ops.values()):
+        return
+    with np.errstate(all="ignore"):
+        for st in chain.stages:
+            arrays = [ev.ac.y_in[st.name], ev.ac.node_h[st.name] if st.role == "two_port" else 0.0]
+            bad = [i for i, a in enumerate(arrays) if not np.all(np.isfinite(a))]
+            if bad:
+                what = "its input admittance" if bad[0] == 0 else "the gain to its output"
+                raise SpecError(f"{what} is not a finite number over the analysis span: the values of this "
+                                "stage (or the stages it drives) are beyond what the models carry; "
+                                "bring them nearer to real parts", chain.path, st.line, st.name)
 
 
 # -- the nominal budget --------------------------------------------------------

@@ -10,14 +10,13 @@ buffer gets ``from: <node>`` and the stage it feeds is re-pointed to the
 buffer; where it relies on list order, inserting right before the reader is
 enough.  ``include:`` paths are rewritten relative to the new file when it
 lives in another folder.  The result is parsed again before anything is
-written, and written through a temporary file in the same folder and
-``os.replace``, so a failure leaves no partial file.
+written; the command writes it with the one output writer (render/files.py),
+so a failure leaves no partial file and the file keeps its mode.
 """
 from __future__ import annotations
 
 import os
 import re
-import tempfile
 
 import yaml
 
@@ -105,17 +104,19 @@ def _move_includes(text: str, old_path: str, new_path: str) -> str:
     return "".join(lines)
 
 
-def write_buffered(chain: Chain, placement: dict, out_path: str) -> str:
-    """Write the buffered spec to ``out_path`` atomically; returns the text written."""
+def buffered_file(chain: Chain, placement: dict, out_path: str) -> bytes:
+    """The bytes of the buffered spec for ``out_path``, checked to read back with every
+    buffer in it.  The original's line endings (CRLF stays CRLF) and a UTF-8 byte-order
+    mark are kept; the caller writes it (render/files.py: atomically, mode kept)."""
     from .loader import load_chain_text
+    from .yamlsrc import read_text
     if chain.path is None or not os.path.isfile(chain.path):
         raise UsageError("the chain was not read from a file; there is no text to rewrite")
-    with open(chain.path, encoding="utf-8") as fh:
-        text = fh.read()
+    raw = read_text(chain.path)
+    bom = raw.startswith("\ufeff")
+    crlf = "\r\n" in raw
+    text = raw.removeprefix("\ufeff").replace("\r\n", "\n")
     new = buffered_text(chain, placement, text, out_path)
-    folder = os.path.dirname(os.path.abspath(out_path))
-    if not os.path.isdir(folder):
-        raise UsageError(f"cannot write {out_path}: folder {folder} does not exist")
     try:
         back = load_chain_text(new, os.path.abspath(out_path))
     except SpecError as exc:
@@ -126,16 +127,6 @@ def write_buffered(chain: Chain, placement: dict, out_path: str) -> str:
     missing = [n for n in want if n not in [s.name for s in back.stages]]
     if missing:
         raise UsageError(f"internal check failed: buffers {', '.join(missing)} missing from the written spec")
-    tmp = None
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=".chainplan-", suffix=".yaml", dir=folder)
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(new)
-        os.replace(tmp, out_path)
-        tmp = None
-    except OSError as exc:
-        raise UsageError(f"cannot write {out_path}: {exc.strerror or exc}") from None
-    finally:
-        if tmp is not None and os.path.exists(tmp):
-            os.unlink(tmp)
-    return new
+    if crlf:
+        new = new.replace("\n", "\r\n")
+    return (("\ufeff" if bom else "") + new).encode("utf-8")

@@ -5,6 +5,8 @@ dicts and lists whose subclasses carry the line of each key and item, so spec
 errors can name file, line and field."""
 from __future__ import annotations
 
+import os
+
 import yaml
 
 from ..errors import SpecError
@@ -158,6 +160,21 @@ def load_text(text: str, path: str):
             loader.dispose()
 
 
+#: (device, inode) of every file this process read as a spec or parts file: the inputs
+#: of the run, which the output writer (render/files.py) never writes over.
+_READ: set = set()
+
+
+def forget_files_read() -> None:
+    """Start a new run (the command line calls it first)."""
+    _READ.clear()
+
+
+def files_read() -> frozenset:
+    """The files read so far in this process, as (device, inode) pairs."""
+    return frozenset(_READ)
+
+
 def read_text(path: str) -> str:
     """A spec or parts file's text: at most MAX_SPEC_BYTES read (``/dev/zero`` is refused
     after 1 MiB, not read until memory runs out), folders and unreadable files refused,
@@ -166,6 +183,8 @@ def read_text(path: str) -> str:
         raise SpecError("a file name cannot contain a NUL byte", short(path))
     try:
         with open(path, "rb") as fh:
+            st = os.fstat(fh.fileno())
+            _READ.add((st.st_dev, st.st_ino))
             data = fh.read(MAX_SPEC_BYTES + 1)
     except FileNotFoundError:
         raise SpecError("no such file", path) from None
