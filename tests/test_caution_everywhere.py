@@ -46,7 +46,7 @@ FORMATS = [
     ("compare", "{f}"), ("compare", "{f}", "--json"), ("compare", "{f}", "--markdown"),
     ("buffers",), ("buffers", "--json"), ("buffers", "--interface", "lead"),
     ("buffers", "--place"), ("buffers", "--place", "--json"),
-    ("netlist",),
+    ("netlist",), ("accuracy",), ("accuracy", "--json"), ("temperature",), ("temperature", "--json"),
 ]
 
 

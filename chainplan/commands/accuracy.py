@@ -29,8 +29,10 @@ def run(args) -> int:
     if args.json:
         from ..engine.dcerror import dc_error_json
         from ..render.json_out import clean, dumps
+        from ..spec.safety import safety_notice
         from ..studies.requirements import result_dict
-        print(dumps(clean({"chain": chain.name, "file": chain.path, **dc_error_json(res),
+        print(dumps(clean({"chain": chain.name, "file": chain.path, "hazards": chain.hazards,
+                           "caution": safety_notice(chain.hazards), **dc_error_json(res),
                            "requirements": [result_dict(q) for q in results]})))
     else:
         from ..render.accuracy_tables import accuracy_tables
