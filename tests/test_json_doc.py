@@ -14,7 +14,7 @@ from conftest import DEMO_CHAINS, REPO
 
 DOC = REPO / "docs" / "json.md"
 #: maps whose keys are names (metric keys, node names, target kinds, DC values)
-NAME_MAPS = {"metrics", "figures", "operating_point", "node_headroom_v", "from", "margins"}
+NAME_MAPS = {"metrics", "figures", "operating_point", "node_headroom_v", "from", "margins", "nodes"}
 COMMANDS = {
     "chainplan budget --json": ["budget"],
     "chainplan noise --json": ["noise"],
@@ -42,14 +42,14 @@ def _sections() -> dict:
 def _keys(x, out: set, parent: str = "") -> None:
     if isinstance(x, dict):
         for k, v in x.items():
-            if parent in NAME_MAPS:
+            if parent in NAME_MAPS:             # a mapping keyed by names (a list under such a key is not)
                 _keys(v, out, "")               # a name, not a key: look inside its value
                 continue
             out.add(k)
             _keys(v, out, k)
     elif isinstance(x, list):
         for v in x:
-            _keys(v, out, parent)
+            _keys(v, out, "")                   # a list of objects: their keys are keys
 
 
 @pytest.mark.parametrize("title", list(COMMANDS))
