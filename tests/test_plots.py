@@ -167,3 +167,17 @@ def test_cli_plot_bad_spec_writes_nothing(cli, spec_file, tmp_path):
     rc, out, err = cli("plot", path, "-o", str(tmp_path / "figs"))
     assert rc == 2 and "4.7q" in err and err.count("\n") == 1
     assert not (tmp_path / "figs").exists()
+
+
+def test_dynamics_figure_marks_the_phase_margin_and_settling():
+    """The photodiode demo's loop gain with its 38° margin drawn at the crossover, and the
+    step response with its settling time (ids in the SVG)."""
+    from chainplan.api import budget_for
+    from chainplan.render.plots import dynamics_plot, figure_bytes
+    from chainplan.spec.loader import load_chain
+    from conftest import REPO
+    fig = dynamics_plot(budget_for(load_chain(str(REPO / "chains" / "photodiode_tia.yaml"))))
+    svg = figure_bytes(fig, "svg").decode()
+    for gid in ("loop:tia", "loop-phase:tia", "margin:tia", "step", "settling"):
+        assert f'id="{gid}' in svg, gid
+    assert "PM 38°" in svg

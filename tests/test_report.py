@@ -77,7 +77,7 @@ def test_report_is_well_formed_and_self_contained(ecg_report):
     doc.feed(text)
     assert not doc.errors and not doc.stack
     assert doc.refs == []                               # nothing fetched: no src/href to files or sites
-    assert doc.tags.count("svg") == 4                   # levels, gain, noise, Monte Carlo
+    assert doc.tags.count("svg") == 5                   # levels, gain, dynamics (loop gain, step), noise, Monte Carlo
 
 
 def test_caution_comes_first_and_last(ecg_report):

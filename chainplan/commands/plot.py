@@ -1,4 +1,4 @@
-"""``chainplan plot FILE``: the level diagram, gain, noise and (with --mc) Monte Carlo
+"""``chainplan plot FILE``: the level diagram, gain, loop gain and step response, noise and (with --mc) Monte Carlo
 figures of a chain, as PNG and SVG files."""
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import os
 
 from .common import add_analysis_options, apply_analysis_options
 
-WHICH = ("levels", "gain", "noise", "montecarlo", "compare")
+WHICH = ("levels", "gain", "dynamics", "noise", "montecarlo", "compare")
 
 
 def add_arguments(p):

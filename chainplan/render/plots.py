@@ -1,5 +1,5 @@
-"""Figures of a budget: the level diagram, gain over frequency, noise, and Monte
-Carlo histograms.  Each function reads only result objects (``Budget``,
+"""Figures of a budget: the level diagram, gain over frequency, the loop gains and
+the step response, noise, and Monte Carlo histograms.  Each function reads only result objects (``Budget``,
 ``NoiseResult``, ``McResult``) and returns a matplotlib ``Figure``;
 :func:`save` writes PNG and SVG all-or-nothing.  matplotlib is imported inside
 the functions (never at CLI start-up) and drawn with the Agg canvas.
@@ -277,6 +277,85 @@ def gain_plot(b: Budget):
     return fig
 
 
+# -- dynamics: loop gain and step response ----------------------------------------
+
+def dynamics_plot(b: Budget, loops=None, step=None):
+    """Left: the loop gain |T| and ∠T of every op-amp stage as connected, the crossover
+    and the phase margin marked; right: the chain's step response at the output with
+    its settling band and time.  None when there is neither a loop nor a step response."""
+    from ..engine.loop import analyse_loops
+    from ..engine.step import analyse_step
+    chain = b.chain
+    loops = [r for r in (analyse_loops(b.ev) if loops is None else loops) if r.is_loop]
+    step = analyse_step(b.ev) if step is None else step
+    if not loops and step is None:
+        return None
+    fig = _figure(11.0, 5.6)
+    margin = _caution_margin(fig, chain)
+    gs = fig.add_gridspec(2, 2, height_ratios=[2, 1.2], width_ratios=[1.25, 1], hspace=0.1, wspace=0.28,
+                          left=0.075, right=0.98, top=0.86, bottom=0.1 + margin)
+    ax, axp = fig.add_subplot(gs[0, 0]), fig.add_subplot(gs[1, 0])
+    if loops:
+        for r in loops:
+            t = r.t[0]
+            mag = 20 * np.log10(np.maximum(np.abs(t), 1e-300))
+            ph = np.degrees(np.unwrap(np.angle(t)))
+            ph = ph - 360.0 * np.round(ph[0] / 360.0)
+            line, = ax.semilogx(r.f_hz, mag, lw=1.4, label=r.stage, gid=f"loop:{r.stage}")
+            axp.semilogx(r.f_hz, ph, lw=1.2, color=line.get_color(), gid=f"loop-phase:{r.stage}")
+            fc, pm = float(r.f_cross_hz[0]), float(r.pm_deg[0])
+            if math.isfinite(fc) and math.isfinite(pm):
+                ax.axvline(fc, color=line.get_color(), ls=":", lw=0.9)
+                axp.vlines(fc, -180.0, pm - 180.0, color=CLIP if pm < 45 else line.get_color(), lw=2.2,
+                           gid=f"margin:{r.stage}")
+                axp.text(fc * 1.1, pm - 180.0 - 4, f"PM {pm:.0f}°", fontsize=7.5, va="top",
+                         color=CLIP if pm < 45 else line.get_color())
+        ax.axhline(0.0, color=QUIET, lw=0.8)
+        axp.axhline(-180.0, color=CLIP, ls="--", lw=0.8)
+        f_lo = min(r.f_hz[0] for r in loops)
+        f_hi = max(r.f_hz[-1] for r in loops)
+        ax.set_xlim(f_lo, f_hi)
+        axp.set_xlim(f_lo, f_hi)
+        top = max(float(np.max(20 * np.log10(np.abs(r.t[0])))) for r in loops)
+        ax.set_ylim(-40, max(top, 20) + 5)
+        ax.legend(loc="upper right", fontsize=8, frameon=False)
+        ax.set_ylabel("loop gain |T|, dB")
+        axp.set_ylabel("∠T, °")
+        axp.set_xlabel("frequency, Hz")
+        ax.tick_params(labelbottom=False)
+        for a in (ax, axp):
+            a.grid(which="both", color="#e6e6e6", lw=0.6)
+    else:
+        ax.text(0.5, 0.5, "no op-amp loop in this chain", ha="center", va="center", transform=ax.transAxes,
+                color=QUIET)
+        ax.set_axis_off()
+        axp.set_axis_off()
+    axs = fig.add_subplot(gs[:, 1])
+    if step is not None:
+        t, y = np.concatenate([[0.0], step.t_s]), np.concatenate([[0.0], step.response[0]])
+        fin = float(step.final[0])
+        unit = "s"
+        axs.plot(t * 1e6, y / fin if fin else y, color="black", lw=1.5, gid="step")
+        axs.axhspan(1 - step.error, 1 + step.error, color=ROOM, lw=0)
+        ts = float(step.settling_s[0])
+        if math.isfinite(ts):
+            axs.axvline(ts * 1e6, color=LIMIT, ls="--", lw=1, gid="settling")
+            axs.text(ts * 1e6, 0.5, f" within {step.error * 100:g} %\n after {fmt(ts, unit)}", fontsize=7.5,
+                     color=LIMIT, va="center", ha="left")
+        axs.set_xlabel("time after a step of the source, µs")
+        axs.set_ylabel("output / final value" + ("" if step.dc_coupled else " (mid-band gain)"))
+        axs.grid(color="#e6e6e6", lw=0.6)
+        axs.set_xlim(0, t[-1] * 1e6)
+    else:
+        axs.text(0.5, 0.5, "no upper band edge in the span: no step time scale", ha="center", va="center",
+                 transform=axs.transAxes, color=QUIET)
+        axs.set_axis_off()
+    _title(fig, f"{chain.name}: loop gain of every op-amp stage as connected, and the step response at "
+                f"'{b.output}'")
+    _finish(fig, chain)
+    return fig
+
+
 # -- noise ---------------------------------------------------------------------
 
 def noise_plot(nr, chain, top: int = 6):
@@ -421,6 +500,9 @@ def figure_bytes(fig, fmt_: str) -> bytes:
 def figures(b: Budget, noise=None, mc=None) -> dict:
     """Every figure there is data for: name -> Figure."""
     out = {"levels": level_diagram(b), "gain": gain_plot(b)}
+    dyn = dynamics_plot(b)
+    if dyn is not None:
+        out["dynamics"] = dyn
     if noise is not None:
         out["noise"] = noise_plot(noise, b.chain)
     if mc is not None:

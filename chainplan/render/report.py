@@ -92,6 +92,9 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
     captions = {"levels": "Level diagram: DC level, signal band, limits and headroom at every node; loading loss "
                           "at every interface.",
                 "gain": "Gain V(node)/Vs over frequency at every node; the output in black with its −3 dB edges.",
+                "dynamics": "Loop gain |T| and phase of every op-amp stage as connected, the phase margin marked "
+                            "at the crossover; beside it the chain's step response at the output with its settling "
+                            "band.",
                 "noise": "Output noise density and each contributor's share of the output noise power.",
                 "montecarlo": "Monte Carlo: every requirement's spread, its limit (failing side shaded) and yield.",
                 "compare": "Before (dashed) and after (solid): the gain to the output and the output noise density."}
