@@ -130,5 +130,5 @@ def attach_to_budget(b) -> None:
     b.extra_summary.extend(summary_rows(res))
     b.extra_json["startup"] = {
         "worst_node": res.worst_node, "tau_s": float(res.worst_tau_s[0]), "startup_s": float(res.startup_s[0]),
-        "nodes": {n: (None if not np.isfinite(float(np.ravel(t)[0])) else float(np.ravel(t)[0]))
-                  for n, t in res.tau_s.items()}}
+        "nodes": [{"node": n, "tau_s": None if not np.isfinite(float(np.ravel(t)[0])) else float(np.ravel(t)[0])}
+                  for n, t in res.tau_s.items()]}
