@@ -32,13 +32,13 @@ def _screens():
         rel, name = f"chains/{path.name}", path.stem
         out += [(f"{name}.budget", ["budget", rel]), (f"{name}.noise", ["noise", rel]),
                 (f"{name}.check", ["check", rel]), (f"{name}.spread", ["spread", "-n", "300", rel]),
-                (f"{name}.compare", ["compare", rel, rel])]
+                (f"{name}.compare", ["compare", rel, rel]), (f"{name}.accuracy", ["accuracy", rel]),
+                (f"{name}.temperature", ["temperature", rel])]
         if name in CANDIDATES:
             out.append((f"{name}.buffers", ["buffers", rel]))
     out += [("hydrophone.compare", ["compare", "chains/hydrophone_direct.yaml", "chains/hydrophone_buffered.yaml"]),
             ("hydrophone_direct.place", ["buffers", "--place", "chains/hydrophone_direct.yaml"]),
-            ("ph_probe_dc.budget-wide", ["budget", "--wide", "chains/ph_probe_dc.yaml"]),
-            ("ph_dosing_precision.accuracy", ["accuracy", "chains/ph_dosing_precision.yaml"])]
+            ("ph_probe_dc.budget-wide", ["budget", "--wide", "chains/ph_probe_dc.yaml"])]
     return out
 
 

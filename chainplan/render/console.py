@@ -56,8 +56,18 @@ def stage_gain(s) -> tuple[str, str]:
 def end_gain(b, f_ref: str) -> tuple[str, str]:
     """Summary row of the end-to-end figure: a gain in dB, or for a current sensor a
     transimpedance in Ω and dBΩ (20·log10 of |V/I| re 1 Ω)."""
+    adc = converter_of(b.chain, b.output)
+    where = f"'{adc or b.output}'"         # where the signal ends: the converter, if one reads the output
     if b.gain_unit == "dBΩ":
-        return (f"end-to-end transimpedance to '{b.output}' at {f_ref}",
+        return (f"end-to-end transimpedance to {where} at {f_ref}",
                 f"{eng(10 ** (b.gain_db / 20), 'Ω')} ({db(b.gain_db)}Ω)")
-    return f"end-to-end gain to '{b.output}' at {f_ref}", db(b.gain_db)
+    return f"end-to-end gain to {where} at {f_ref}", db(b.gain_db)
+
+
+def converter_of(chain, node: str) -> str | None:
+    """The ADC stage reading ``node`` (where the signal ends), if any."""
+    for st in chain.stages:
+        if st.parent == node and st.kind == "adc":
+            return st.name
+    return None
 

@@ -9,7 +9,7 @@ import math
 from ..engine.budget import Budget
 from ..spec.safety import safety_notice
 from ..spec.numbers import figures, loss
-from .console import db, end_gain, eng, stage_gain
+from .console import converter_of, db, end_gain, eng, stage_gain
 from .layout import Col, print_table
 
 def chain_heading(chain, console) -> None:
@@ -108,14 +108,6 @@ def _converter(b: Budget) -> str:
     """' (adc)': the converter where the signal ends, when one reads the output."""
     adc = converter_of(b.chain, b.output)
     return f" '{adc}'" if adc else ""
-
-
-def converter_of(chain, node: str) -> str | None:
-    """The ADC stage reading ``node`` (where the signal ends), if any."""
-    for st in chain.stages:
-        if st.parent == node and st.kind == "adc":
-            return st.name
-    return None
 
 
 def _set_by(n) -> str:
