@@ -17,6 +17,7 @@ COMMANDS = {
     "noise": ("chainplan.commands.noise", "noise contributors, SNR, dynamic range and ENOB at the converter"),
     "accuracy": ("chainplan.commands.accuracy", "DC error budget: offset, bias current, gain error and drift, "
                  "before and after calibration"),
+    "power": ("chainplan.commands.power", "quiescent current per rail and stage, the power and battery life"),
     "check": ("chainplan.commands.check", "check the requirements of one or more chains (exit 1 if any fails)"),
     "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, production yield over the "
                "corners, what drives the spread"),

@@ -117,6 +117,7 @@ def test_every_kind_accepts_its_spec_form():
   - max_drift: 2 mV
     rule: rss
   - max_total_error: 1 %
+  - max_rail_current: 10 mA
 """
     reqs = rc_with(text).extra["requirements"]
     assert {r.key for r in reqs} == (set(KINDS) - set(NOISE_KINDS) - {"min_alias_rejection"}  # tests/test_aliasing.py

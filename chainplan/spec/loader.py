@@ -21,7 +21,7 @@ from .yamlsrc import LDict, LList, load_file, load_text
 
 HAZARDS = ("mains", "high_voltage", "patient")
 TOP_KEYS = ("name", "description", "hazards", "temperature", "t_nom", "rails", "source", "stages", "analysis",
-            "requirements", "include", "candidates", "corners", "accuracy")
+            "requirements", "include", "candidates", "corners", "accuracy", "power")
 ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None,
                  "noise_band": "Hz", "signal_band": "Hz", "mid_band": "Hz"}
 NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
@@ -38,6 +38,7 @@ MAX_REL_TOLERANCE = 10.0
 #: Sections owned by feature modules: key -> "module:function(chain, node, path)".
 SECTION_PARSERS: dict[str, str] = {
     "accuracy": "chainplan.engine.dcerror:parse_section",      # before requirements: they use its sensor unit
+    "power": "chainplan.engine.power:parse_section",
     "requirements": "chainplan.studies.requirements:parse_section",
     "corners": "chainplan.studies.tolerances:parse_corners",
     "include": "chainplan.spec.parts:parse_include",

@@ -71,6 +71,8 @@ KINDS: dict[str, Kind] = {k.key: k for k in (
          "start-up / overload recovery: 5 × the slowest bias or coupling time constant"),
     Kind("min_alias_rejection", "min_alias_rejection_db", "dB", "dB", "min", (),
          "gain drop from f_ref to the first frequency the ADC folds into the band"),
+    Kind("max_rail_current", "max_rail_current_a", "A", "A", "max", ("rails",),
+         "current drawn from each rail (or rails:), engine/power.py"),
     # DC accuracy (engine/dcerror.py): limits in V, LSB, % (of full scale; of the gain for
     # max_gain_error) or the sensor unit of accuracy.sensitivity; 'rule: rss' for the RSS total
     Kind("max_offset_error", "max_offset_error", "error", "", "max", ("rule",),
@@ -176,7 +178,7 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
     for key in item:
         if key not in allowed:
             hint = nearest(key, allowed)
-            if key in ("at", "band", "nodes", "interfaces", "stages", "error"):
+            if key in ("at", "band", "nodes", "interfaces", "stages", "error", "rails", "rule"):
                 hint = f" ('{key}' does not apply to {k.key}; it takes: {', '.join(sorted(allowed - {k.key}))})"
             raise SpecError(f"unknown key '{key}'" + hint, path, item.line_of(key), f"{where}.{key}")
     err = lambda msg, key: SpecError(msg, path, item.line_of(key), f"{where}.{key}")  # noqa: E731
@@ -212,7 +214,8 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
     targets = None
     for key, names, what in (("nodes", chain.nodes, "node"),
                              ("interfaces", [s.name for s in chain.stages], "interface (name the stage that reads it)"),
-                             ("stages", [s.name for s in chain.stages], "stage")):
+                             ("stages", [s.name for s in chain.stages], "stage"),
+                             ("rails", list(chain.rails), "rail")):
         if key in item:
             targets = _names(item, key, names, what, err)
     error = None
@@ -500,6 +503,17 @@ def _alias(v: _Views, r):
     return alias_check(v.ev).value_db, None
 
 
+def _rail_current(v: _Views, r):
+    """The largest current drawn over the rails (or the listed ones), per sample."""
+    from ..engine.power import analyse_power
+    res = analyse_power(v.ev.chain, v.ev)
+    names = [n for n in (r.targets or res.rails) if n in res.rails]
+    if not names:
+        return np.zeros(v.n), None
+    rows = np.stack([per_sample(res.rails[n][1], v.n) for n in names])
+    return _worst(rows, names, np.argmax)
+
+
 def _dc_error(v: _Views, r):
     """The budget's figure (engine/dcerror.py) in the requirement's unit: the nominal chain's
     worst case (or RSS), the same for every sample of a run."""
@@ -513,6 +527,7 @@ def _dc_error(v: _Views, r):
 _VALUE = {"min_gain": _gain_db, "max_gain": _gain_db, "flatness": _flatness, "min_f_high": _f_high,
           "max_f_low": _f_low, "min_headroom": _headroom, "max_loading_loss": _loading, "min_snr": _snr,
           "min_enob": _enob, "max_buffer_power": _power, "min_alias_rejection": _alias,
+          "max_rail_current": _rail_current,
           **{k: _dc_error for k in ERROR_KINDS},
           "min_phase_margin": _phase_margin, "max_peaking": _peaking, "min_slew_margin": _slew,
           "min_settled_bits": _settled_bits, "max_settling_time": _settling_time, "max_startup_time": _startup}
@@ -589,7 +604,8 @@ def __getattr__(name):
                  at=value("Hz", "frequency (default: f_ref)"),
                  band={"type": "array", "items": value("Hz", "band end"), "minItems": 2, "maxItems": 2},
                  rule={"enum": ["worst_case", "rss"], "description": "DC error total: linear sum or RSS"},
-                 nodes=names, interfaces=names, stages=names, error=value("%", "settling error (default 1 %)"))
+                 nodes=names, interfaces=names, stages=names, rails=names,
+                 error=value("%", "settling error (default 1 %)"))
     item = {"type": "object", "properties": props, "additionalProperties": False,
             "oneOf": [{"required": [k]} for k in KINDS]}
     return {"requirements": {"type": "array", "items": item,
