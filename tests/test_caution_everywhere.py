@@ -46,7 +46,7 @@ FORMATS = [
     ("compare", "{f}"), ("compare", "{f}", "--json"), ("compare", "{f}", "--markdown"),
     ("buffers",), ("buffers", "--json"), ("buffers", "--interface", "lead"),
     ("buffers", "--place"), ("buffers", "--place", "--json"),
-    ("netlist",), ("accuracy",), ("accuracy", "--json"), ("temperature",), ("temperature", "--json"),
+    ("netlist",), ("accuracy",), ("accuracy", "--json"), ("temperature",), ("temperature", "--json"), ("power",), ("power", "--json"),
 ]
 
 

@@ -18,7 +18,9 @@ def run(args) -> int:
     res = analyse_power(chain, ev)
     if args.json:
         from ..render.json_out import clean, dumps
-        print(dumps(clean({"chain": chain.name, "file": chain.path, **power_json(res)})))
+        from ..spec.safety import safety_notice
+        print(dumps(clean({"chain": chain.name, "file": chain.path, "hazards": chain.hazards,
+                           "caution": safety_notice(chain.hazards), **power_json(res)})))
     else:
         from ..render.console import make_console
         from ..render.power_tables import power_tables
