@@ -24,6 +24,7 @@ COMMANDS = {
     "chainplan buffers --json": ["buffers"],
     "chainplan buffers --place --json": ["buffers", "--place"],
     "chainplan accuracy --json": ["accuracy"],
+    "chainplan power --json": ["power"],
     "chainplan temperature --json": ["temperature"],
 }
 SHARED = "Requirement results"
