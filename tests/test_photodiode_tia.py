@@ -157,7 +157,7 @@ def test_demo_budget_reports_a_transimpedance(cli):
 
 
 @pytest.mark.parametrize("field, bad, words", [
-    ("amplitude", "-1 µA", "at least 0"),
+    ("amplitude", "-1 µA", "greater than zero"),
     ("r", "0 Ω", "greater than zero"),
     ("c", "-5 pF", "at least 0"),
     ("amplitude", "1 V", "A"),

@@ -31,7 +31,7 @@ class Sensor(StageKind):
     kind, title, role = "sensor", "sensor (Thevenin source, R ‖ C)", "source"
     signal_unit = "V"        # unit of the source signal X every transfer refers to
     FIELDS = {
-        "amplitude": Field("V", "signal amplitude of the open-circuit EMF, a peak (or rms or peak-to-peak: '14 mV rms', '40 mVpp')", required=True, minimum=0.0),
+        "amplitude": Field("V", "signal amplitude of the open-circuit EMF, a peak (or rms or peak-to-peak: '14 mV rms', '40 mVpp')", required=True, positive=True),
         "dc": Field("V", "DC level of the open-circuit EMF", default="0 V", rail_ok=True),
         "r": Field("ohm", "source resistance", default="0 Ω", minimum=0.0, allow_inf=True),
         "c": Field("F", "capacitance across the source (sensor or lead capacitance)", default="0 F", minimum=0.0),
@@ -79,7 +79,7 @@ class CurrentSensor(StageKind):
     kind, title, role = "current_sensor", "current-output sensor (Norton source, I ‖ R ‖ C)", "source"
     signal_unit = "A"
     FIELDS = {
-        "amplitude": Field("A", "signal current amplitude, a peak (or rms or peak-to-peak: '2 µA rms'), e.g. a photocurrent", required=True, minimum=0.0),
+        "amplitude": Field("A", "signal current amplitude, a peak (or rms or peak-to-peak: '2 µA rms'), e.g. a photocurrent", required=True, positive=True),
         "dc": Field("A", "DC current (photocurrent plus dark current); it flows out of the sensor into its node "
                     "and sets the shot noise 2q·|I|", default="0 A"),
         "r": Field("ohm", "shunt resistance across the current source", default="inf", positive=True,
