@@ -147,6 +147,15 @@ def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):
 
 # -- carrying the generators to the output ---------------------------------------
 
+def generators(chain, st, p, s, op) -> list:
+    """A stage's noise generators plus the rail ripple that enters there (engine/ripple.py)."""
+    gens = st.model.noise(p, s, op, p["temp_k"])
+    if "power" not in chain.extra:
+        return gens
+    from .ripple import ripple_generators
+    return gens + ripple_generators(chain, st, p, s, gens)
+
+
 def output_psds(ev: Evaluation, bandwidth: float) -> list:
     """Every generator's PSD at the output over ev.f_hz: [(stage, name, (S, F+1)
     V²/Hz, power (S,) or None)].  Converter powers come with a flat PSD power/bandwidth;
@@ -168,7 +177,7 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
         if st.name not in on_path and st.parent not in on_path:
             continue
         p = ev.params[st.name]
-        for g in st.model.noise(p, s, ev.dc.ops[st.name], p["temp_k"]):
+        for g in generators(ev.chain, st, p, s, ev.dc.ops[st.name]):
             name = f"{st.name}: {g.label}"
             if g.power_v2 is not None:
                 if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
@@ -210,7 +219,7 @@ def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
         if st.name not in on_path and st.parent not in on_path:
             continue
         p = ev.params[st.name]
-        for g in st.model.noise(p, s, ev.dc.ops[st.name], p["temp_k"]):
+        for g in generators(ev.chain, st, p, s, ev.dc.ops[st.name]):
             name = f"{st.name}: {g.label}"
             if g.power_v2 is not None:
                 if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
@@ -286,6 +295,9 @@ def noise_notes(ev: Evaluation) -> list:
         if st.name in on_path and "en" in p and not np.any(p["en"]) and not np.any(p["in"]):
             notes.append(f"'{st.name}' has no en/in given: its {st.kind} counts as noiseless "
                          "(only its resistors add noise)")
+    if "power" in ev.chain.extra:
+        from .ripple import ripple_notes
+        notes += ripple_notes(ev.chain)
     return notes
 
 

@@ -32,7 +32,7 @@ from ..spec.model import Chain
 from ..spec.units import UnitError, parse_value
 from ..spec.yamlsrc import LDict, LList
 
-POWER_KEYS = ("battery", "battery_rails")
+POWER_KEYS = ("battery", "battery_rails", "ripple")
 HOURS_S = 3600.0
 
 
@@ -40,6 +40,7 @@ HOURS_S = 3600.0
 class PowerSpec:
     battery_c: float | None = None         # capacity in coulomb (A·s)
     battery_rails: tuple | None = None     # rails the battery feeds; None: every rail above 0 V
+    ripple: dict = field(default_factory=dict)   # rail -> (density V/√Hz, 1/f corner Hz): engine/ripple.py
 
 
 @dataclass
@@ -107,7 +108,11 @@ def parse_section(chain: Chain, node, line, path) -> None:
             if r not in chain.rails:
                 raise err(f"'{r}' is not a declared rail" + nearest(str(r), chain.rails), "battery_rails")
         rails = tuple(raw)
-    chain.extra["power"] = PowerSpec(cap, rails)
+    ripple = {}
+    if "ripple" in node:
+        from .ripple import parse_ripple
+        ripple = parse_ripple(chain, node["ripple"], path)
+    chain.extra["power"] = PowerSpec(cap, rails, ripple)
 
 
 def _rail(st, fld: str, p: dict):
