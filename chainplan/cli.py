@@ -38,7 +38,11 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(2)
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The argument parser.  With ``command`` (the command word of the line being
+    run) only that command's module is imported and given its options — start-up
+    pays for the command it runs; the others are listed by name and help line.
+    Without one, every command is complete (for documentation and tests)."""
     from . import __version__
     ap = _Parser(prog="chainplan", description="Signal budgets of sensor readout chains: loading, gain, "
                  "headroom, noise and where a buffer pays off.")
@@ -47,10 +51,16 @@ def build_parser() -> argparse.ArgumentParser:
     sub.required = True
     for name, (mod, help_) in COMMANDS.items():
         p = sub.add_parser(name, help=help_, description=help_)
-        m = importlib.import_module(mod)
-        m.add_arguments(p)
-        p.set_defaults(_run=m.run)
+        if command is None or name == command:
+            m = importlib.import_module(mod)
+            m.add_arguments(p)
+            p.set_defaults(_run=m.run)
     return ap
+
+
+def command_word(argv) -> str | None:
+    """The command a command line names: its first word that is not an option."""
+    return next((a for a in argv if not a.startswith("-")), None)
 
 
 def main(argv=None) -> int:
@@ -63,7 +73,9 @@ def main(argv=None) -> int:
     forget_files_read()                  # the inputs of this run, which no output may replace
     guard = _PipeGuard.install()
     try:
-        args = build_parser().parse_args(argv)
+        argv = sys.argv[1:] if argv is None else list(argv)
+        word = command_word(argv)
+        args = build_parser(word if word in COMMANDS else None).parse_args(argv)
         rc = int(args._run(args) or 0)
         sys.stdout.flush()              # surface a full disk here, not at exit
         return rc

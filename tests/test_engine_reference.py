@@ -45,7 +45,7 @@ def spread_params(chain, n: int, seed: int) -> dict:
 def reference_ac(chain, params, ops, f_hz):
     """Node gains, input admittances and rows by the straightforward full 2×2 product."""
     s = (2j * np.pi * np.asarray(f_hz, dtype=float))[None, :]
-    n = max(np.shape(v)[0] for p in params.values() for v in p.values() if np.ndim(v) >= 1)
+    n = max((np.shape(v)[0] for p in params.values() for v in p.values() if np.ndim(v) >= 1), default=1)
     shape = (n, s.shape[1])
     full = lambda x: np.broadcast_to(np.asarray(x, dtype=complex) + 0j * s, shape)  # noqa: E731
     mats, y_in = {}, {}

@@ -359,7 +359,8 @@ def analyse(chain: Chain) -> Budget:
         pk = _f(ev.peak(out))
         dbfs = 20 * np.log10(pk / half) if pk > 0 else -np.inf
     nan2none = lambda x: None if not np.isfinite(x) else float(x)  # noqa: E731
-    span_db = 20 * np.log10(np.abs(ev.gain()[0, 1:]))
+    with np.errstate(divide="ignore"):                # a gain that underflows (a long chain) is −inf dB
+        span_db = 20 * np.log10(np.abs(ev.gain()[0, 1:]))
     k = int(np.argmax(span_db))
     return Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs,
                   peak_gain_db=float(span_db[k]), f_peak_hz=float(ev.span[k]),

@@ -85,9 +85,21 @@ def _forward(chain, params, loads):
         st_out, op = st.model.dc_forward(params[st.name], st_in, node_v[st.parent], out_load)
         ops[st.name] = op
         if st.role == "two_port":
-            states[st.name] = st_out
+            states[st.name] = st_out = _normalised(st_out)
             node_v[st.name] = dc_node_voltage(st_out, out_load)
     return node_v, ops
+
+
+def _normalised(st: DcState) -> DcState:
+    """The same source relation with e, a, b scaled by one power of two (exact) when they
+    have left 2^±128: ``e = a·V + b·I`` is homogeneous, and a long passive ladder would
+    otherwise grow a and b past the float range (a chain of 1 000 dividers: 2^1000)."""
+    mag = np.maximum(np.abs(st.a), np.abs(st.b))
+    if not np.any((mag > 2.0 ** 128) | ((mag < 2.0 ** -128) & (mag > 0))):
+        return st
+    _, e = np.frexp(mag)
+    k = np.ldexp(1.0, -e)
+    return DcState(st.e * k, st.a * k, st.b * k)
 
 
 def _limits(chain, ops):

@@ -218,7 +218,8 @@ def _columns(ac, col, f_hz):
     rows = {k: tuple(take(np.asarray(v)) for v in r) for k, r in ac.row.items()}
     ny = {k: take(np.asarray(v)) for k, v in ac.node_y.items()}
     br = {k: tuple(take(np.asarray(v)) for v in r) for k, r in ac.branch_row.items()}
-    return AcResult(f_hz, NodeGains(rows, ny), ny, rows, br, {}, {})
+    ex = {k: take(np.asarray(v)) for k, v in ac.row_exp.items()}
+    return AcResult(f_hz, NodeGains(rows, ny, ex), ny, rows, br, {}, {}, ex)
 
 
 def _local_ac(ev, f_loc):
@@ -241,7 +242,7 @@ def _response(st, ev, ac, s=None):
         with np.errstate(divide="ignore", invalid="ignore"):
             return t / (1.0 + t), t
     with np.errstate(divide="ignore", invalid="ignore"):
-        return ac.node_h[st.name] * ac.branch_row[st.name][0], None
+        return ac.node_h[st.name] * ac.full_branch_row(st.name, st.parent)[0], None
 
 
 def analyse_loops(ev, ac=None, fixes: bool = False, target_pm_deg: float | None = None,

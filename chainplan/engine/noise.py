@@ -166,7 +166,7 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
     chain, ac = ev.chain, ev.ac
     out = ev.output
     s = (2j * np.pi * ev.f_hz)[None, :]
-    h = ev.gain()
+    h = ac.node_h.scaled(out)                 # with rows in the output's scale (long chains)
     shape = (ev.samples, h.shape[1])
     on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
     conv, _ = converter(ev)
@@ -187,10 +187,11 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
             if not np.any(np.asarray(g.psd) != 0):
                 continue
             if st.name in on_path:
-                a, b = ac.branch_row.get(st.name, (0.0, 0.0))
-                dvs = _combine((*ac.row[st.name], a, b), (g.out_v, g.out_i, -g.in_v, -g.in_i))
+                a_k, b_k, a, b = _rows_at(ac, st, out)
+                dvs = _combine((a_k, b_k, a, b), (g.out_v, g.out_i, -g.in_v, -g.in_i))
             else:
-                dvs = ac.row[st.parent][1] * _combine((ac.y_in[st.name], -1.0), (g.in_v, g.in_i))
+                dvs = (ac.row[st.parent][1] * ac.scale_between(st.parent, out)
+                       * _combine((ac.y_in[st.name], -1.0), (g.in_v, g.in_i)))
             t = h * dvs
             res.append((st.name, name, np.broadcast_to(g.psd * (t.real ** 2 + t.imag ** 2), shape), None))
     return res
@@ -206,7 +207,7 @@ def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
     chain, ac, ws = ev.chain, ev.ac, ev.ws
     out = ev.output
     s = (2j * np.pi * ev.f_hz)[None, :]
-    h = ev.gain()[:, 1:]
+    h = ac.node_h.scaled(out)[:, 1:]          # with rows in the output's scale (long chains)
     hw2 = np.repeat((h.real ** 2 + h.imag ** 2) * w, 2, axis=1)      # w·|H|² beside Re and Im
     n = max(h.shape[0], ev.samples)     # the transfer may be one row while a power varies per sample
     on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
@@ -229,14 +230,26 @@ def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
             if not np.any(np.asarray(g.psd) != 0):
                 continue
             if st.name in on_path:
-                a, b = ac.branch_row.get(st.name, (0.0, 0.0))
-                dvs = _terms(((ac.row[st.name][0], g.out_v), (ac.row[st.name][1], g.out_i)), span, ws)
+                a_k, b_k, a, b = _rows_at(ac, st, out)
+                dvs = _terms(((a_k, g.out_v), (b_k, g.out_i)), span, ws)
                 dvs = _sub(dvs, _terms(((a, g.in_v), (b, g.in_i)), span, ws), ws)
             else:
                 dvs = _sub(_terms(((ac.y_in[st.name], g.in_v),), span, ws), _terms(((1.0, g.in_i),), span, ws), ws)
-                dvs = wsa.mul(span(ac.row[st.parent][1]), dvs, ws)
+                dvs = wsa.mul(wsa.mul(span(ac.row[st.parent][1]), ac.scale_between(st.parent, out)), dvs, ws)
             res.append((st.name, name, _weighted_power(dvs, span(np.asarray(g.psd, dtype=float)), hw2, n, ws)))
     return res
+
+
+def _rows_at(ac, st, out):
+    """(A_k, B_k) at a stage's output and (a, b) at its input, carried rows expressed in the
+    scale of the output node's row (the plain rows in short chains)."""
+    k = ac.scale_between(st.name, out)
+    a_k, b_k = (wsa.mul(x, k) for x in ac.row[st.name]) if st.name in ac.row else (0.0, 0.0)
+    if st.name not in ac.branch_row:
+        return a_k, b_k, 0.0, 0.0
+    k = ac.scale_between(st.parent, out)
+    a, b = (wsa.mul(x, k) for x in ac.branch_row[st.name])
+    return a_k, b_k, a, b
 
 
 def _terms(pairs, pick, ws):

@@ -221,7 +221,7 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
         fig = _figures(ev, with_noise)
         out.loss_after_db = sum(_loss_db(ev, n) for n in (bias, buf, reader) if n is not None)
         out.recovered_db = _loss_db(base.ev, reader) - out.loss_after_db
-        open_gain = abs((1.0 / ev.ac.row[buf][0][0, 0]) / ev.ac.node_h[x][0, 0])
+        open_gain = abs((1.0 / ev.ac.full_row(buf)[0][0, 0]) / ev.ac.node_h[x][0, 0])
     out.buffer_gain_db = 20 * math.log10(open_gain) if open_gain > 0 else None
     out.dc_shift_v = float(np.ravel(ev.dc.node_v[buf])[0] - np.ravel(ev.dc.node_v[x])[0])
     out.net_gain_db = fig.gain_db - base.gain_db

@@ -69,13 +69,28 @@ class Chain:
         return [self.source, *self.stages]
 
     def stage(self, name: str) -> Stage:
-        for st in self.all_stages:
-            if st.name == name:
-                return st
-        raise KeyError(name)
+        st = self._index()[0].get(name)
+        if st is None or st.name != name:
+            raise KeyError(name)
+        return st
 
     def readers(self, node: str) -> list[Stage]:
-        return [st for st in self.stages if st.parent == node]
+        return list(self._index()[1].get(node, ()))
+
+    def _index(self):
+        """(name -> stage, node -> readers), built once per list of stages so long
+        chains do not search it per lookup.  Rebuilt when ``stages`` is another list
+        or its length changed; chains are not re-wired in place once built (the
+        optimiser and spec/insert.py make a new Chain)."""
+        key = (id(self.stages), len(self.stages), id(self.source))
+        cache = self.__dict__.get("_lookup")
+        if cache is None or cache[0] != key:
+            by_name = {st.name: st for st in reversed(self.all_stages)}   # the first of a name wins
+            readers: dict = {}
+            for st in self.stages:
+                readers.setdefault(st.parent, []).append(st)
+            cache = self.__dict__["_lookup"] = (key, (by_name, readers))
+        return cache[1]
 
     @property
     def nodes(self) -> list[str]:
