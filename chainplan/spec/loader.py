@@ -30,7 +30,7 @@ RAIL = Field("V", "rail voltage")
 TEMPERATURE = Field("K", "chain temperature", positive=True, tiny=1.0, maximum=1000.0)
 FREQUENCY = Field("Hz", "analysis frequency", positive=True)
 #: bounds on the work of one analysis (docs/spec.md, "Limits")
-MAX_STAGES = 1000
+MAX_STAGES = 10_000
 MAX_STAGE_POINTS = 2_000_000
 #: widest relative tolerance (draws beyond a field's range are invalid samples, studies.tolerances)
 MAX_REL_TOLERANCE = 10.0
