@@ -31,7 +31,7 @@ def _screens():
     for path in DEMO_CHAINS:
         rel, name = f"chains/{path.name}", path.stem
         out += [(f"{name}.budget", ["budget", rel]), (f"{name}.noise", ["noise", rel]),
-                (f"{name}.check", ["check", rel]), (f"{name}.spread", ["spread", "-n", "300", rel]),
+                (f"{name}.check", ["check", rel]), (f"{name}.spread", ["spread", "-n", "40", rel]),
                 (f"{name}.compare", ["compare", rel, rel]), (f"{name}.accuracy", ["accuracy", rel]),
                 (f"{name}.temperature", ["temperature", rel])]
         if name in CANDIDATES:
