@@ -167,18 +167,20 @@ def test_every_stage_kind_has_a_spice_form():
 def test_netlist_uses_level1_models_controlled_sources_and_rails():
     chain = load_chain(str(next(p for p in DEMO_CHAINS if p.stem == "ph_probe_dc")))
     text = export(chain).text()
-    # the demo runs at 298 K, its parts stated at 300 K: the card holds KP and VTO moved to 298 K
-    # (KP·(T/Tnom)^−1.5, VTO + vth_tc·ΔT with the default −2 mV/K) and says so with tnom = 24.85 °C
+    # the demo runs at 298 K, its parts stated at 25 °C (298.15 K): the card holds KP and VTO moved
+    # to 298 K (KP·(T/Tnom)^−1.5, VTO + vth_tc·ΔT with the default −2 mV/K), and says so with tnom = 24.85 °C
     m = re.search(r"^\.model nm_follower nmos level=1 kp=(\S+) vto=(\S+) lambda=0\.05 gamma=0\.5 phi=0\.7 "
                   r"tnom=24\.85$", text, re.M)
     assert m, text
-    assert float(m.group(1)) == pytest.approx(1e-4 * (298 / 300) ** -1.5, rel=1e-12)
-    assert float(m.group(2)) == pytest.approx(0.6 + 2e-3 * 2, rel=1e-12)
+    assert float(m.group(1)) == pytest.approx(1e-4 * (298 / 298.15) ** -1.5, rel=1e-12)
+    assert float(m.group(2)) == pytest.approx(0.6 + 2e-3 * 0.15, rel=1e-12)
     assert re.search(r"^Mfollower vdd electrode follower 0 nm_follower ", text, re.M)   # bulk on gnd = 0
     assert re.search(r"^Ifollower_bias follower 0 DC 1e-05$", text, re.M)
     assert re.search(r"^Vvdd vdd 0 DC 3\.3$", text, re.M)
     assert re.search(r"^Escale_buf ", text, re.M) and re.search(r"^Gscale_gm ", text, re.M)
-    assert re.search(r"^Velectrode electrode_emf 0 DC 1\.2 AC 1 SIN\(1\.2 0\.18 1\)$", text, re.M)
+    m = re.search(r"^Velectrode electrode_emf 0 DC 1\.2 AC 1 SIN\(1\.2 (\S+) 1\)$", text, re.M)
+    # the amplitude carries the Nernst tempco (3354 ppm/K from 25 °C): at 298 K, 180 mV·(1 − 3354e-6·0.15)
+    assert m and float(m.group(1)) == pytest.approx(0.18 * (1 - 3354e-6 * 0.15), rel=1e-9)
     assert ".control" in text and text.rstrip().endswith(".end")
     assert text.isascii()
 

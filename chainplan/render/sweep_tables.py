@@ -4,6 +4,7 @@ from __future__ import annotations
 import math
 
 from ..spec.safety import safety_notice
+from ..spec.units import fmt
 from ..studies.requirements import show
 from ..studies.tempsweep import Sweep
 from .layout import Col, print_table
@@ -20,7 +21,7 @@ def _drift(x: float, unit: str) -> str:
         return "—"
     if unit in ("dB", "bits"):
         return f"{x:+.4f} {unit}/K".replace("-", "−")
-    return show(x, unit) + "/K"
+    return fmt(x, unit) + "/K"          # engineering notation: a drift is small by nature
 
 
 def sweep_tables(res: Sweep, console) -> None:

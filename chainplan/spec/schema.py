@@ -44,7 +44,12 @@ def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool, amplitude: bool
         suffix = rf"{A}?"
     value = rf"{_NUM}\s*{suffix}" + (r"(?:\s*(?:rms|pk|peak|pp|p-p))?" if amplitude else "")
     if tolerable:
-        value += rf"(?:\s*(?:±|\+/-|\+-)\s*{_NUM}\s*(?:%|ppm|{suffix})(?:\s+(?:normal|uniform))?)?"
+        width = rf"{_NUM}\s*(?:%|ppm|{suffix})"
+        value += (rf"(?:\s*(?:±|\+/-|\+-)\s*{width}(?:\s+(?:normal|uniform|σ|sigma))?"
+                  rf"|\s+(?:σ|sigma)\s*=\s*{width})?")
+        if not unit_id.endswith("/K"):      # a temperature coefficient (units.parse_field_value)
+            value += (rf"(?:\s+(?:±|\+/-|\+-)?\s*{_NUM}\s*(?:%|ppm|{suffix})\s*/\s*(?:K|°C|degC|\u2103)"
+                      r"(?:\s+tracks\s+[A-Za-z_][\w\-]*)?)?")
     if allow_inf and u.allow_inf:
         value = rf"(?:{value}|(?:inf|∞)(?:\s*{re.escape(u.symbol)})?)"
     return rf"^\s*{value}\s*$"
