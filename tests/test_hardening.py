@@ -396,3 +396,13 @@ def test_an_echoed_value_stays_on_one_short_line(cli, spec_file, value):
                      f"  - {{name: r, kind: series_r, r: {value}}}\n")
     rc, _, err = cli("budget", path)
     assert rc == 2 and err.count("\n") == 1 and len(err) < 400, err
+
+
+def test_a_fraction_near_the_float_limit_is_refused_with_a_finite_message(cli, project):
+    """Found by the long fuzz run: 'gain_error: 1e308' (a fraction, shown in %) overflowed
+    when the message formatted it (exit 70)."""
+    from chainplan.spec.units import fmt
+    assert "∞" not in fmt(1e308, "%") and "e+308" in fmt(1e308, "%")
+    path, line = mutate(project, "hydrophone_buffered.yaml", "r_f: 39k ±1%", "r_f: 39k ±1e306")
+    rc, _, err = cli("budget", path)
+    assert rc == 2 and err.count("\n") == 1 and f":{line}: gain.r_f:" in err

@@ -605,6 +605,8 @@ def fmt(value: float, unit_symbol: str, digits: int = 3) -> str:
     scale = _FMT_NO_PREFIX.get(unit_symbol)
     if scale:
         v = _scaled(repr(v), scale)
+        if math.isinf(v):                  # a fraction near the float limit, scaled to % or ppm
+            return f"{sign}{abs(float(value)):.{digits - 1}e}×10^{scale}{sep}{unit_symbol}"
     if v == 0:
         return f"0{sep}{unit_symbol}".rstrip()
     mant, _, e = f"{abs(v):.{digits - 1}e}".partition("e")
