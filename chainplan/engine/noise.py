@@ -394,20 +394,20 @@ def band_weights(f_hz, lo, hi) -> np.ndarray:
 
 def attach_to_budget(b: Budget) -> None:
     """Budget hook: noise rows in the summary, noise keys in --json."""
-    from ..spec.units import fmt
+    from ..spec.numbers import figure
     r = analyse_noise(b.ev)
     f = lambda x: float(np.ravel(x)[0])  # noqa: E731
-    rows = [("noise at the output (rms)", fmt(f(r.out_vrms), "V")),
-            ("noise referred to the input (rms)", fmt(f(r.in_vrms), b.ev.signal_unit)),
+    rows = [("noise at the output (rms)", figure(f(r.out_vrms), "V")),
+            ("noise referred to the input (rms)", figure(f(r.in_vrms), b.ev.signal_unit)),
             ("SNR of the signal", _db_text(f(r.snr_db)))]
     if r.converter:
         rows += [("SNR of a full-scale sine", _db_text(f(r.snr_fs_db))),
-                 ("ENOB", f"{f(r.enob_bits):.2f} bits")]
+                 ("ENOB", figure(f(r.enob_bits), "bits"))]
     top = r.ranked[0] if r.ranked else None
     if top is not None and np.isfinite(f(r.shares[top])):
         rows.append(("largest noise contributor", f"{top} ({100 * f(r.shares[top]):.0f} %)"))
     if b.ev.chain.analysis.noise_band_hz is not None:
-        rows.append(("noise band", f"{fmt(r.band_hz[0], 'Hz')} … {fmt(r.band_hz[1], 'Hz')}"))
+        rows.append(("noise band", f"{figure(r.band_hz[0], 'Hz')} … {figure(r.band_hz[1], 'Hz')}"))
     else:
         rows += [("noise note", n) for n in span_notes(b.ev)]
     b.extra_summary.extend(rows)

@@ -42,7 +42,13 @@ _NO_PREFIX = ("dB", "dBΩ", "dBFS", "bits", "%", "ppm", "°", "deg", "", "V/V")
 
 
 def _missing(x) -> bool:
-    return x is None or (isinstance(x, float) and math.isnan(x))
+    """None or NaN (of any float type: Python, numpy)."""
+    if x is None:
+        return True
+    try:
+        return math.isnan(float(x))
+    except (TypeError, ValueError):
+        return False
 
 
 def _minus(s: str) -> str:
