@@ -20,6 +20,12 @@ with 25 toleranced parts, rail tolerances and a supply corner, 200 frequencies:
    compared with chainplan's to show it is the same circuit.
 
 Figures are printed; nothing is asserted.
+
+Issue 17, BEFORE (main at 06:22 UTC 2026-12-02, load average 0.06 → 0.83, 2 cores):
+100 000 samples, one thread, no noise 7.77 s (77.7 µs/sample), two threads 4.59 s,
+with noise 10.30 s (1.33×); row × ABCD floor 0.92 s (full run 8.4× it); ngspice
+1.09 ms/sample → 14× per sample on one thread.  AFTER: see the closing note of
+issue 17 (the machine was loaded by the other sessions; paired runs, medians).
 """
 from __future__ import annotations
 
@@ -148,8 +154,18 @@ def floor_run(samples: int) -> tuple[float, float]:
         return 1.0 / (a + b * y_load)
     t_floor_chunk, h = best_of(cascade)
     assert h.shape == shape
+
+    def full_product():
+        """The whole 2×2 matrix product M1·M2·…·Mn (all four entries), then the gain."""
+        a, b = np.ones(shape, dtype=complex), zs.copy()
+        c, d = np.zeros(shape, dtype=complex), np.ones(shape, dtype=complex)
+        for m in mats:
+            a, b, c, d = a * m[0] + b * m[2], a * m[1] + b * m[3], c * m[0] + d * m[2], c * m[1] + d * m[3]
+        return 1.0 / (a + b * y_load)
+    t_full_chunk, h2 = best_of(full_product)
+    assert np.allclose(h2, h)
     scale = samples / chunk
-    return t_floor_chunk * scale, t_engine_chunk * scale
+    return t_floor_chunk * scale, t_engine_chunk * scale, t_full_chunk * scale
 
 
 # -- ngspice ---------------------------------------------------------------------
@@ -268,10 +284,16 @@ def main():
     per_loop = loop_run(a.loop)
     print(f"Python loop of single analyses ({a.loop} samples, no noise): {1e3 * per_loop:.2f} ms/sample; "
           f"vectorised {1e6 * vec[False]:.1f} µs/sample -> {per_loop / vec[False]:.0f}× faster")
-    t_floor, t_engine = floor_run(a.samples)
-    print(f"floor: bare numpy 2×2 cascade of the same stages over {a.samples} samples: {t_floor:.2f} s; "
+    t_floor, t_engine, t_full = floor_run(a.samples)
+    print(f"floor: bare numpy row × ABCD cascade of the same stages over {a.samples} samples: {t_floor:.2f} s; "
           f"engine evaluate (DC + AC) for the same chunks {t_engine:.2f} s ({t_engine / t_floor:.1f}× the floor); "
           f"full run {vec[False] * a.samples:.2f} s ({vec[False] * a.samples / t_floor:.1f}× the floor)")
+    print(f"full 2×2-matrix floor (M1·M2·…·Mn, all four entries): {t_full:.2f} s; full run "
+          f"{vec[False] * a.samples / t_full:.1f}× it; with noise {vec[True, 1] * a.samples / t_full:.1f}× it"
+          if (True, 1) in vec else f"full 2×2-matrix floor: {t_full:.2f} s")
+    if (True, 1) in vec:
+        print(f"noise on / noise off, one thread: {vec[True, 1] / vec[False, 1]:.2f}")
+    print(f"load average after the run: {os.getloadavg()[0]:.2f}")
     if a.spice and shutil.which("ngspice"):
         t0, _, _ = spice_run(0)
         tn, gains, d = spice_run(a.spice, print_gain=True)

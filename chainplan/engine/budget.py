@@ -53,9 +53,13 @@ class Evaluation:
 
     @property
     def samples(self) -> int:
-        """Number of samples: the longest per-sample parameter array (1 for a nominal analysis)."""
-        return max((np.shape(v)[0] for p in self.params.values() for v in p.values() if np.ndim(v) >= 1),
-                   default=1)
+        """Number of samples: the longest per-sample parameter array (1 for a nominal analysis);
+        found once per evaluation (a search over every parameter, read per stage in long chains)."""
+        n = self.cache.get("samples")
+        if n is None:
+            n = self.cache["samples"] = max((np.shape(v)[0] for p in self.params.values() for v in p.values()
+                                             if np.ndim(v) >= 1), default=1)
+        return n
 
     @property
     def valid(self) -> np.ndarray:
