@@ -199,7 +199,9 @@ def _coarse_ac(ev):
     pass on the loop grid."""
     span = ev.f_hz[1:]
     if span.size > 8 and np.all(np.diff(span) > 0):
-        ac = _columns(ev.ac, slice(1, None), span)
+        step = max(1, int(span.size / math.log10(span[-1] / span[0]) // COARSE_PER_DECADE))   # thin it out
+        span = span[::step]
+        ac = _columns(ev.ac, slice(1, None, step), span)
         ts, ok = {}, True
         for st in ev.chain.stages:
             if is_loop_stage(st):

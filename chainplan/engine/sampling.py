@@ -15,8 +15,9 @@ converter, whose filter capacitor Cf shares charge with it:
 
 Cf and G come from the cascade: the admittance of the driving side at the
 converter's node, ``Y_th = a/b`` of its row (driver's closed-loop output
-impedance, the filter, any sibling loads), at the frequency of the settling,
-1/(2π·t_acq): Cf = Im Y_th/ω, G = Re Y_th.  The filter capacitor recommended is
+impedance, the filter, any sibling loads): G = Re Y_th at the frequency of the
+settling, 1/(2π·t_acq), and Cf = Im Y_th/ω a thousand times higher, where only
+the capacitance right at the node is left (what the charge sharing sees).  The filter capacitor recommended is
 at least 20·Cs (common practice), so the kickback is under 5 % of the step.
 Sources, from memory: the SAR-converter input sections of the *Data Conversion
 Handbook* (W. Kester, ed., Analog Devices, 2005) and of the converter makers'
@@ -100,12 +101,13 @@ def analyse_sampling(ev) -> SamplingResult | None:
     per = lambda x: np.broadcast_to(np.ravel(np.asarray(x, dtype=float)), (n,)).astype(float)  # noqa: E731
     t_acq = per(t_acq)
     f_k = 1.0 / (2 * np.pi * float(np.median(t_acq)))
+    f_inst = 1e3 * f_k                  # the charge sharing itself: only the capacitance at the node counts
     with np.errstate(divide="ignore", invalid="ignore"):
-        ac = run_ac(chain, ev.params, ev.dc.ops, np.array([f_k]))
+        ac = run_ac(chain, ev.params, ev.dc.ops, np.array([f_k, f_inst]))
         a, b = ac.branch_row[adc.name]
-        y_th = (a / b)[:, 0]
-    cf = per(np.maximum(np.imag(y_th) / (2 * np.pi * f_k), 0.0))
-    g = per(np.real(y_th))
+        y_th = a / b
+    cf = per(np.maximum(np.imag(y_th[:, 1]) / (2 * np.pi * f_inst), 0.0))
+    g = per(np.real(y_th[:, 0]))
     cs = per(p["c_sample"])
     fs = per(np.abs(p["fs_high"] - p["fs_low"]))
     bits = int(np.ravel(p["bits"])[0])
