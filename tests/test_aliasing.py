@@ -12,7 +12,8 @@ from chainplan.engine.budget import evaluate
 from chainplan.engine.noise import analyse_noise
 from conftest import chain_from
 
-# A 1 kΩ source, an ideal follower, an RC low-pass (1 kΩ, 10 nF) into an ADC.
+# A 1 kΩ source, an ideal follower, an RC low-pass (1 kΩ, 10 nF) into an ADC with 1 mV rms
+# of dither (more than ½ LSB, so the quantisation error is white and spreads over 0…fs/2).
 CHAIN = """
 name: sampled
 rails: {vdd: 3.3 V}
@@ -20,7 +21,7 @@ source: {name: src, kind: sensor, amplitude: 100 mV, dc: 1 V, r: 1k}
 stages:
   - {name: buf, kind: opamp_follower, gbw: 1 GHz, a0: 200 dB, swing_low: 0 V, swing_high: 0 V}
   - {name: lp, kind: rc_lowpass, r: 1k, c: 10 nF}
-  - {name: adc, kind: adc, bits: 12, fs_low: 0 V, fs_high: vdd, f_sample: 48 kHz}
+  - {name: adc, kind: adc, bits: 12, fs_low: 0 V, fs_high: vdd, dither: 1 mV, f_sample: 48 kHz}
 analysis: {f_ref: 10 Hz, f_start: 1 Hz, f_stop: 10 MHz, points: 301}
 """
 FC_HZ = 1 / (2 * math.pi * 1e3 * 10e-9)        # RC corner 1/(2πRC), 15.9 kHz (common practice)
@@ -47,6 +48,10 @@ def test_quantisation_noise_spreads_over_nyquist():
     assert 10 * math.log10(full / p) == pytest.approx(10 * math.log10(FS_HZ / (2 * 4900)), abs=1e-9)
     # a band reaching past fs/2 holds all of it, never more
     assert quant_power(CHAIN) == pytest.approx(Q2_12, rel=1e-9)
+    # without the dither the analog noise (under 1 µV) is far below ½ LSB: the error is not
+    # white, no oversampling gain (Widrow & Kollár, from memory)
+    assert quant_power(with_band(CHAIN.replace("dither: 1 mV, ", ""), "[100 Hz, 5 kHz]")) == \
+        pytest.approx(Q2_12, rel=1e-9)
 
 
 def test_noise_band_equals_the_bandwidth_option(spec_file, cli):

@@ -271,7 +271,7 @@ def test_shares_sum_to_one_and_rank():
     shares = [res.shares[n][0] for n in res.ranked]
     assert shares == sorted(shares, reverse=True)
     assert res.out_vrms[0] ** 2 == pytest.approx(sum(v[0] ** 2 for v in res.vrms.values()), rel=1e-12)
-    assert res.in_vrms[0] == pytest.approx(res.out_vrms[0] / res.gain_ref[0])
+    assert res.out_over_gain_ref_vrms[0] == pytest.approx(res.out_vrms[0] / res.gain_ref[0])
 
 
 def test_samples_run_through_the_same_path():

@@ -51,7 +51,7 @@ class NoiseResult:
     contributors: list            # [(name, out_psd (S, F) V²/Hz)], in chain order
     shares: dict                  # name -> (S,) fraction of the total output noise power
     out_vrms: np.ndarray          # (S,) integrated output noise, converter noise included
-    in_vrms: np.ndarray           # (S,) out_vrms / |gain at f_ref|
+    in_vrms: np.ndarray           # (S,) √(∫ S_out/|H|² df): each frequency referred by its own gain
     snr_fs_db: np.ndarray         # (S,) full-scale sine vs noise (nan without a converter)
     snr_db: np.ndarray            # (S,) the spec's signal vs noise
     dynamic_range_db: np.ndarray  # (S,) largest sine the output node carries vs noise
@@ -64,6 +64,9 @@ class NoiseResult:
     stage_of: dict = field(default_factory=dict)   # name -> stage name
     neglected: list = field(default_factory=list)  # stages whose noise is not carried to the output
     notes: list = field(default_factory=list)      # e.g. stages given no noise data
+    out_over_gain_ref_vrms: np.ndarray | None = None   # (S,) the output noise ÷ |H(f_ref)| (the old figure)
+    folded_vrms: np.ndarray | None = None   # (S,) analog noise folded into the band from above f_sample/2
+    enob_capped: np.ndarray | None = None   # (S,) ENOB held at the converter's bits (quantisation not white)
 
     @property
     def ranked(self) -> list:
@@ -77,42 +80,130 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None, powers_only: bool = False) 
     number ``B`` integrates from the span's start to ``B``; a pair ``(low, high)``
     integrates between them (brick-wall edges).  ``powers_only`` (tolerance runs):
     each generator's integrated power straight from |transfer|² (:func:`output_powers`),
-    no densities kept (``out_density`` None, ``contributors`` empty) and no notes."""
+    no densities kept (``out_density`` None, ``contributors`` empty) and no notes.
+
+    Input-referred noise is ``√(∫ S_out(f)/|H(f)|² df)`` over the band, each
+    frequency referred by its own gain (Motchenbacher & Connelly, *Low-Noise
+    Electronic System Design*, ch. 1, from memory); noise spread flat over the band
+    (converter noise, folded noise) is referred by the band average of 1/|H|².
+    The old figure, the output noise over the gain at f_ref, is kept as
+    ``out_over_gain_ref_vrms``.
+
+    At a sampling converter (``f_sample``): analog noise from the images of the band
+    above f_sample/2 folds into it and is added ('aliased noise', ``folded_vrms``);
+    the quantisation error counts as white q²/12 spread over 0…f_sample/2, so that
+    only the band's share of it counts, only when the noise at the converter (analog,
+    every frequency of the span, plus a declared dither) is at least ½ LSB rms
+    (Widrow & Kollár, *Quantization Noise*, ch. 4–5, from memory); below that the
+    error is a deterministic function of the signal: no oversampling gain, and ENOB
+    no better than the converter's bits (``enob_capped``)."""
     whole_span = bandwidth_hz is None and ev.chain.analysis.noise_band_hz is None
     bandwidth_hz = ev.chain.analysis.noise_band_hz if bandwidth_hz is None else bandwidth_hz
     band = integration_band(ev.span, bandwidth_hz)
     w = band_weights(ev.span, *band)
+    bw = float(np.sum(w))
     n = ev.samples                              # the gain may not vary with every varied input (temperature)
-    contributors, powers, stage_of, total = [], {}, {}, None
+    conv, fs = converter(ev)
+    f_sample = sample_rate(ev.chain, conv)
+    in_band = 1.0 if f_sample is None else min(1.0, bw / (f_sample / 2.0))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        h = np.abs(np.broadcast_to(ev.gain()[:, 1:], (n, len(ev.span))))
+        inv_h2 = 1.0 / (h * h)
+    w_ref, ref_note = _referral_weights(ev, w, whole_span)
+    mean_inv_h2 = np.sum(inv_h2 * w_ref, axis=1) / np.sum(w_ref, axis=1)   # band average of 1/|H|²
+    is_power = lambda stage, name: stage == conv and name.endswith(CONVERTER_POWERS)  # noqa: E731
+    w_all = band_weights(ev.span, ev.span[0], ev.span[-1])
+    w_fold = alias_weights(ev.span, band, f_sample) if f_sample is not None and band[1] <= f_sample / 2 else None
+    need_white = conv is not None
+    contributors, powers, in_powers, stage_of, total = [], {}, {}, {}, None
     if powers_only:
-        for stage, name, power in output_powers(ev, w, float(np.sum(w))):
+        gens = output_powers(ev, w, bw)
+        referred = dict((nm, p) for _, nm, p in output_powers(ev, w_ref * inv_h2, bw))
+        analog_all = sum((p for st, nm, p in output_powers(ev, w_all, bw) if not is_power(st, nm)), np.zeros(n)) \
+            if need_white else np.zeros(n)
+        folded = sum((p for st, nm, p in output_powers(ev, w_fold, bw) if not is_power(st, nm)), np.zeros(n)) \
+            if w_fold is not None else np.zeros(n)
+        for stage, name, power in gens:
             powers[name], stage_of[name] = np.broadcast_to(power, (n,)), stage
+            if not is_power(stage, name):
+                in_powers[name] = np.broadcast_to(referred[name], (n,))
     else:
         total = np.zeros((n, len(ev.f_hz)))
-        for stage, name, psd, power in output_psds(ev, float(np.sum(w))):
-            powers[name] = np.broadcast_to(psd[:, 1:] @ w if power is None else power, (n,))
+        analog = np.zeros((n, len(ev.f_hz)))
+        gens = output_psds(ev, bw)
+        for stage, name, psd, power in gens:
+            if power is None:
+                powers[name] = np.broadcast_to(psd[:, 1:] @ w, (n,))
+                in_powers[name] = np.sum(psd[:, 1:] * inv_h2 * w_ref, axis=1)
+                analog = analog + psd
+            else:
+                powers[name] = np.broadcast_to(power, (n,))
             contributors.append((name, psd[:, 1:]))
             stage_of[name] = stage
             total = total + psd
+        analog_all = analog[:, 1:] @ w_all
+        folded = analog[:, 1:] @ w_fold if w_fold is not None else np.zeros(n)
+    white, sigma_conv, lsb = _quantisation_white(ev, conv, analog_all)
+    for name in list(powers):
+        if is_power(stage_of[name], name):
+            if name.endswith(": quantisation") and in_band < 1.0 and not np.all(white):
+                powers[name] = np.where(white, powers[name], powers[name] / in_band)  # no oversampling gain
+                if total is not None:
+                    k = next(i for i, (nm, _) in enumerate(contributors) if nm == name)
+                    old = contributors[k][1]
+                    new = np.broadcast_to(powers[name][:, None] / bw, old.shape)
+                    total[:, 1:] += new - old
+                    contributors[k] = (name, new)
+            in_powers[name] = powers[name] * mean_inv_h2      # a power spread flat: referred by the band average
+    if np.any(folded > 0):
+        name = f"{conv}: aliased noise (folded from above f_sample/2)"
+        powers[name], stage_of[name], in_powers[name] = folded, conv, folded * mean_inv_h2
+        if total is not None:
+            flat = np.broadcast_to(folded[:, None] / bw, (n, len(ev.span)))
+            contributors.append((name, flat))
+            total[:, 1:] += flat
     p_tot = sum(powers.values(), np.zeros(n))
     with np.errstate(divide="ignore", invalid="ignore"):
         shares = {k: p / p_tot for k, p in powers.items()}
         out_vrms = np.sqrt(p_tot)
         gain_ref = np.abs(ev.gain()[:, 0])
-        in_vrms = out_vrms / gain_ref
-        conv, fs = converter(ev)
+        in_vrms = np.sqrt(sum(in_powers.values(), np.zeros(n)))
         amp = np.ravel(np.asarray(ev.params[ev.chain.source.name]["amplitude"], dtype=float))
         snr_fs = _db(fs / (2 * SQRT2), out_vrms) if conv else np.full(n, np.nan)
         snr = _db(amp * gain_ref / SQRT2, out_vrms)
         dr = _db(_largest_sine(ev) / SQRT2, out_vrms)
-    notes = [] if powers_only else (noise_notes(ev) + (span_notes(ev) if whole_span else []) + _clip_note(
-        ev.chain.analysis.noise_band_hz if bandwidth_hz is ev.chain.analysis.noise_band_hz else None, band))
+    enob = (snr_fs - ENOB_OFFSET_DB) / DB_PER_BIT
+    capped = np.zeros(n, dtype=bool)
+    notes = []
+    if conv:
+        bits = float(ev.chain.stage(conv).params["bits"])
+        capped = ~white & (enob > bits)
+        enob = np.where(capped, bits, enob)
+        if np.any(~white) and in_band < 1.0:
+            notes.append(f"the noise at the converter ({_fmt_v(np.min(sigma_conv))} rms, analog over the span plus "
+                         f"dither) is below ½ LSB ({_fmt_v(np.min(lsb) / 2)}): the quantisation error is not white "
+                         "noise, so no oversampling gain is credited and ENOB is at most the converter's "
+                         f"{bits:g} bits (declare the adc's dither to credit it)")
+        if np.any(folded > 0):
+            share = float(np.max(folded / p_tot))
+            notes.append(f"analog noise from above f_sample/2 folds into the band: {_fmt_v(np.sqrt(folded[0]))} rms, "
+                         f"{100 * share:.1f} % of the noise power" + (" (negligible)" if share < 0.01 else ""))
+    if not powers_only:
+        notes = noise_notes(ev) + notes + ref_note + (span_notes(ev) if whole_span else []) + _clip_note(
+            ev.chain.analysis.noise_band_hz if bandwidth_hz is ev.chain.analysis.noise_band_hz else None, band)
+    else:
+        notes = []
     return NoiseResult(
         f_hz=ev.span, out_density=None if total is None else np.sqrt(total[:, 1:]), contributors=contributors,
         shares=shares, out_vrms=out_vrms, in_vrms=in_vrms, snr_fs_db=snr_fs, snr_db=snr, dynamic_range_db=dr,
-        enob_bits=(snr_fs - ENOB_OFFSET_DB) / DB_PER_BIT, output=ev.output, converter=conv, band_hz=band,
+        enob_bits=enob, output=ev.output, converter=conv, band_hz=band,
         gain_ref=gain_ref, vrms={k: np.sqrt(p) for k, p in powers.items()}, stage_of=stage_of,
-        neglected=neglected_stages(ev), notes=notes)
+        neglected=neglected_stages(ev), notes=notes,
+        out_over_gain_ref_vrms=out_vrms / gain_ref, folded_vrms=np.sqrt(folded), enob_capped=capped)
+
+
+#: Labels of the converter's noise powers (not densities): spread flat, referred by the band average.
+CONVERTER_POWERS = (": quantisation", ": converter noise", ": dither")
 
 
 def noise_powers(ev: Evaluation) -> NoiseResult:
@@ -124,6 +215,53 @@ def noise_powers(ev: Evaluation) -> NoiseResult:
     return res
 
 
+def _referral_weights(ev: Evaluation, w, whole_span: bool):
+    """Weights (S, F) of the input referral: the integration band's, or, when the
+    noise is integrated over the whole span (no band declared), each sample's −3 dB
+    band (span ends where an edge is missing) — over a span reaching where |H| → 0
+    the referred noise has no meaning — and a note saying so."""
+    if not whole_span:
+        return np.broadcast_to(w, (ev.samples, w.size)), []
+    lo, hi = (np.ravel(x) for x in ev.band_edges())
+    lo = np.where(np.isfinite(lo), lo, ev.span[0])[:, None]
+    hi = np.where(np.isfinite(hi), hi, ev.span[-1])[:, None]
+    wr = band_weights(ev.span, lo, hi)
+    from ..spec.units import fmt
+    return wr, [f"no noise band declared: the input-referred noise is taken over the −3 dB band "
+                f"{fmt(float(lo[0, 0]), 'Hz')} … {fmt(float(hi[0, 0]), 'Hz')}"]
+
+
+def _fmt_v(x) -> str:
+    from ..spec.units import fmt
+    return fmt(float(x), "V")
+
+
+def _quantisation_white(ev: Evaluation, conv, analog_power):
+    """(white (S,) bool, noise at the converter (S,) V rms, LSB (S,) V): is the noise at
+    the converter — the analog output noise over the whole span (every frequency
+    lands somewhere in 0…f_sample/2) plus a declared dither — at least ½ LSB rms, so
+    that q²/12 spread white holds (Widrow & Kollár, from memory)?"""
+    if conv is None:
+        one = np.ones(ev.samples)
+        return one.astype(bool), np.nan * one, np.nan * one
+    p = ev.params[conv]
+    lsb = np.ravel(np.abs(np.asarray(p["fs_high"] - p["fs_low"], dtype=float)) / 2.0 ** p["bits"])
+    sigma = np.sqrt(analog_power + np.ravel(np.asarray(p.get("dither", 0.0), dtype=float)) ** 2)
+    return sigma >= 0.5 * lsb, sigma, lsb * np.ones_like(sigma)
+
+
+def alias_weights(f_hz, band, f_sample) -> np.ndarray:
+    """Weights w with Σ w·S = the power of S that a converter sampling at f_sample folds
+    into ``band``: S integrated over the images k·f_sample ± [low, high], k ≥ 1, above
+    f_sample/2 and inside the span (Oppenheim & Schafer, *Discrete-Time Signal
+    Processing*, ch. 4, from memory).  Vectorised over the images."""
+    f = np.asarray(f_hz, dtype=float)
+    lo, hi = band
+    k = np.arange(1, int(np.ceil((f[-1] + hi) / f_sample)) + 1)[:, None]
+    edges = np.concatenate([k * f_sample - hi, k * f_sample + lo])
+    tops = np.concatenate([k * f_sample - lo, k * f_sample + hi])
+    edges = np.maximum(edges, f_sample / 2.0)
+    return np.sum(band_weights(f, edges, np.maximum(tops, edges)), axis=0)
 def _clip_note(declared, band) -> list:
     """A declared noise band the span (narrowed with --span) cuts short."""
     if declared is None or tuple(declared) == tuple(band):
@@ -378,15 +516,16 @@ def integration_band(span, bandwidth_hz=None) -> tuple:
 def band_weights(f_hz, lo, hi) -> np.ndarray:
     """Weights w with Σ w·y = ∫ y df over [lo, hi] for y linear between the grid
     points: the trapezoid rule (Press et al., *Numerical Recipes*, ch. 4, from
-    memory), with band edges inside a segment cut exactly."""
+    memory), with band edges inside a segment cut exactly.  ``lo``/``hi`` may be
+    column arrays (N, 1): one row of weights per band, (N, F)."""
     f = np.asarray(f_hz, dtype=float)
     f0, f1 = f[:-1], f[1:]
     a, b = np.clip(lo, f0, f1), np.clip(hi, f0, f1)
     h = f1 - f0
     int_t = 0.5 * (((b - f0) / h) ** 2 - ((a - f0) / h) ** 2) * h    # ∫ (f − f0)/h df over [a, b]
-    w = np.zeros_like(f)
-    w[:-1] += (b - a) - int_t
-    w[1:] += int_t
+    w = np.zeros((*np.shape(a)[:-1], f.size))
+    w[..., :-1] += (b - a) - int_t
+    w[..., 1:] += int_t
     return w
 
 
@@ -399,10 +538,14 @@ def attach_to_budget(b: Budget) -> None:
     f = lambda x: float(np.ravel(x)[0])  # noqa: E731
     rows = [("noise at the output (rms)", figure(f(r.out_vrms), "V")),
             ("noise referred to the input (rms)", figure(f(r.in_vrms), b.ev.signal_unit)),
+            (f"output noise ÷ gain at {figure(b.chain.analysis.f_ref_hz, 'Hz')}",
+             figure(f(r.out_over_gain_ref_vrms), b.ev.signal_unit)),
             ("SNR of the signal", _db_text(f(r.snr_db)))]
     if r.converter:
         rows += [("SNR of a full-scale sine", _db_text(f(r.snr_fs_db))),
-                 ("ENOB", figure(f(r.enob_bits), "bits"))]
+                 ("ENOB", figure(f(r.enob_bits), "bits") + (" (capped at the converter's bits)"
+                                                          if f(r.enob_capped) else ""))]
+        rows += [("converter note", n) for n in r.notes if "½ LSB" in n or "folds into the band" in n]
     top = r.ranked[0] if r.ranked else None
     if top is not None and np.isfinite(f(r.shares[top])):
         rows.append(("largest noise contributor", f"{top} ({100 * f(r.shares[top]):.0f} %)"))
@@ -418,7 +561,9 @@ def attach_to_budget(b: Budget) -> None:
 def noise_json(r: NoiseResult, brief: bool = False) -> dict:
     """JSON keys of a noise result (first sample); ``brief``: the budget's subset."""
     f = lambda x: float(np.ravel(x)[0])  # noqa: E731
-    d = {"noise_out_vrms": f(r.out_vrms), "noise_in_vrms": f(r.in_vrms), "snr_db": f(r.snr_db),
+    d = {"noise_out_vrms": f(r.out_vrms), "noise_in_vrms": f(r.in_vrms),
+         "noise_out_over_gain_ref_vrms": f(r.out_over_gain_ref_vrms), "noise_folded_vrms": f(r.folded_vrms),
+         "enob_capped": bool(np.ravel(r.enob_capped)[0]), "snr_db": f(r.snr_db),
          "snr_fs_db": f(r.snr_fs_db), "dynamic_range_db": f(r.dynamic_range_db), "enob_bits": f(r.enob_bits),
          "contributors": [{"name": n, "stage": r.stage_of[n], "share": f(r.shares[n]), "vrms": f(r.vrms[n])}
                           for n in r.ranked]}

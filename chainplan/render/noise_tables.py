@@ -49,12 +49,17 @@ def noise_tables(chain, r, freqs, dens, gain, gens, console) -> None:
                 title="Contributors (share of the output noise power)")
 
     rows = [("noise at the output (rms)", eng(first(r.out_vrms), "V")),
-            (f"referred to the input (÷ gain at {eng(chain.analysis.f_ref_hz, 'Hz')})", eng(first(r.in_vrms), unit)),
+            ("referred to the input (√∫ S_out/|H|² df)", eng(first(r.in_vrms), unit)),
+            (f"output noise ÷ gain at {eng(chain.analysis.f_ref_hz, 'Hz')}",
+             eng(first(r.out_over_gain_ref_vrms), unit)),
             ("SNR of the signal", _db(first(r.snr_db))),
             ("dynamic range (largest sine the output carries)", _db(first(r.dynamic_range_db)))]
     if r.converter:
         rows += [(f"SNR of a full-scale sine at '{r.converter}'", _db(first(r.snr_fs_db))),
-                 (f"ENOB at '{r.converter}'", figure(first(r.enob_bits), "bits"))]
+                 (f"ENOB at '{r.converter}'", figure(first(r.enob_bits), "bits")
+                  + (" (capped)" if first(r.enob_capped) else ""))]
+        if first(r.folded_vrms) > 0:
+            rows.append(("of the noise: folded from above f_sample/2", eng(first(r.folded_vrms), "V")))
     print_table(console, [Col("what", wrap=2), Col("value", right=True)], rows, title="Converter budget",
                 show_header=False)
     for line in r.notes:

@@ -44,6 +44,9 @@ class Adc(_Load):
         "ref": Field("V", "voltage the input resistance returns to", default="0 V", rail_ok=True),
         "noise_rms": Field("V", "the converter's own noise referred to its input, rms, besides quantisation "
                            "(data sheet: transition noise, input-referred noise)", default="0 V", minimum=0.0),
+        "dither": Field("V", "rms of a dither added at the converter input (white over 0…f_sample/2, counted as "
+                        "noise); makes the quantisation error white when the analog noise alone is below ½ LSB",
+                        default="0 V", minimum=0.0),
         "f_sample": Field("Hz", "sample rate (output word rate); given, converter noise spreads over 0…f_sample/2 "
                           "and the anti-alias rejection is checked", positive=True, tolerable=False),
         "offset": limit("V", "offset error referred to the input, a limit at 25 °C"),
@@ -88,7 +91,8 @@ class Adc(_Load):
         Analog Devices MT-001, from memory), and the converter's own rms noise."""
         q = np.abs(p["fs_high"] - p["fs_low"]) / 2.0 ** p["bits"]
         return [*super().noise(p, s, op, temp_k), NoiseSource("quantisation", power_v2=q * q / 12.0),
-                NoiseSource("converter noise", power_v2=np.asarray(p["noise_rms"], dtype=float) ** 2)]
+                NoiseSource("converter noise", power_v2=np.asarray(p["noise_rms"], dtype=float) ** 2),
+                NoiseSource("dither", power_v2=np.asarray(p["dither"], dtype=float) ** 2)]
 
 
 class Load(_Load):
