@@ -156,7 +156,7 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None, powers_only: bool = False) 
                     contributors[k] = (name, new)
             in_powers[name] = powers[name] * mean_inv_h2      # a power spread flat: referred by the band average
     if np.any(folded > 0):
-        name = f"{conv}: aliased noise (folded from above f_sample/2)"
+        name = f"{conv}: aliased noise"     # folded from above f_sample/2 (the note says so)
         powers[name], stage_of[name], in_powers[name] = folded, conv, folded * mean_inv_h2
         if total is not None:
             flat = np.broadcast_to(folded[:, None] / bw, (n, len(ev.span)))
