@@ -37,9 +37,10 @@ def test_one_opamp_noise_change_lists_every_figure_it_moved_and_strict_fails(cli
              abs(b.metrics[k] - a.metrics[k]) > threshold(_unit(a, k), a.metrics[k], b.metrics[k])}
     assert moved == set(listed)
     assert {"noise_out_vrms", "noise_in_vrms", "snr_db", "enob_bits"} <= moved
-    # the input-referred noise is sub-µV (about 0.67 µV) and moves by about +18 %: listed and worse
+    # the input-referred noise is about a µV (1.39 µV, √∫ S_out/|H|² df over the band) and moves
+    # by a sizeable fraction: listed and worse
     rel = listed["noise_in_vrms"]["new"] / listed["noise_in_vrms"]["old"] - 1
-    assert listed["noise_in_vrms"]["old"] < 1e-6 and 0.15 < rel < 0.25
+    assert listed["noise_in_vrms"]["old"] < 2e-6 and 0.1 < rel < 0.25
     for key in ("noise_out_vrms", "noise_in_vrms", "snr_db", "enob_bits"):
         assert listed[key]["verdict"] == "worse" and listed[key]["regression"], key
     assert d["regressions"] >= 4 and d["unchanged"] == len(a.metrics) - len(moved) + (
