@@ -108,7 +108,7 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None, powers_only: bool = False) 
     in_band = 1.0 if f_sample is None else min(1.0, bw / (f_sample / 2.0))
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         h = np.abs(np.broadcast_to(ev.gain()[:, 1:], (n, len(ev.span))))
-        inv_h2 = 1.0 / (h * h)
+        inv_h2 = np.minimum(1.0 / (h * h), 1e300)   # finite: a zero gain outside the band has weight 0
     w_ref, ref_note = _referral_weights(ev, w, whole_span)
     mean_inv_h2 = np.sum(inv_h2 * w_ref, axis=1) / np.sum(w_ref, axis=1)   # band average of 1/|H|²
     is_power = lambda stage, name: stage == conv and name.endswith(CONVERTER_POWERS)  # noqa: E731
