@@ -85,7 +85,11 @@ def test_nothing_written_when_nothing_fits(project, capsys):
     assert code == 2 and "nothing written" in err
     assert not new.exists()
     code, out, err = cli(["buffers", src, "--min-gain", "60 dB"], capsys)
-    assert code == 1 and "cannot be met" in out and "60.00 dB" in out
+    # the spec's max_gain is 33 dB: said before any search, both named
+    assert code == 1 and "contradict" in out and "60.00 dB" in out and "33.00 dB" in out
+    assert "max_gain" in out and "--min-gain" in out
+    code, out, err = cli(["buffers", src, "--min-gain", "34 dB", "--targets", "min_headroom"], capsys)
+    assert code == 1 and "cannot be met" in out and "34.00 dB" in out and "best reachable" in out
 
 
 def test_json_of_a_placement(project, capsys):
@@ -103,9 +107,18 @@ def test_infeasible_json_names_the_target(project, capsys):
     code, out, err = cli(["buffers", project / "hydrophone_direct.yaml", "--min-gain", "40 dB",
                           "--min-headroom", "0.05 V", "--json"], capsys)
     d = json.loads(out)
-    assert code == 1 and not d["feasible"] and d["after"] is None
+    # the spec's own max_gain (33 dB) contradicts --min-gain 40 dB: reported, no search
+    assert code == 1 and not d["feasible"] and d["after"] is None and d["search"]["seconds"] == 0.0
+    assert len(d["conflicts"]) == 1 and "40.00 dB" in d["conflicts"][0] and "33.00 dB" in d["conflicts"][0]
+    code, out, err = cli(["buffers", project / "hydrophone_direct.yaml", "--min-gain", "40 dB",
+                          "--min-headroom", "0.05 V", "--targets", "none", "--json"], capsys)
+    d = json.loads(out)
+    assert code == 1 and not d["feasible"] and d["after"] is None and d["proven"]
     kinds = {s["kind"] for s in d["shortfalls"]}
     assert "gain" in kinds
+    gain = next(s for s in d["shortfalls"] if s["kind"] == "gain")
+    assert gain["proven"] and "worst interface" in gain["limited_by"]
+    assert {"max_gain", "min_gain", "max_loading_loss"} <= set(d["targets"]["report_only"])
 
 
 def test_write_outside_the_project_is_refused(project, tmp_path_factory, capsys):

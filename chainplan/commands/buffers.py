@@ -19,12 +19,19 @@ def add_arguments(p):
                    "(named by the stage that reads it)")
     g = p.add_argument_group("placement (the optimiser)")
     g.add_argument("--place", action="store_true", help="find the cheapest placement meeting the targets "
-                   "(implied by the target options and --write)")
+                   "(implied by the target options, --targets and --write)")
     g.add_argument("--min-gain", metavar="GAIN", help="end-to-end gain at the reference frequency, e.g. '30 dB'")
     g.add_argument("--min-headroom", metavar="VOLTS", help="headroom at every node, e.g. '100 mV'")
     g.add_argument("--headroom-nodes", metavar="N1,N2", help="apply --min-headroom to these nodes only")
     g.add_argument("--min-bandwidth", metavar="FREQ", help="upper −3 dB band edge at least this, e.g. '20 kHz'")
     g.add_argument("--max-power", metavar="WATTS", help="total power of all followers, e.g. '2 mW'")
+    g.add_argument("--targets", metavar="REQ1,REQ2",
+                   help="which of the spec's requirements to target (names or kinds, e.g. 'min_gain,"
+                        "max_loading_loss'; 'none' for the options alone); the others are only checked "
+                        "and reported (default: all it can target)")
+    g.add_argument("--time-limit", metavar="SECONDS", default="5",
+                   help="stop searching after this long and give the best placement found, marked as not "
+                        "proven optimal, with its gap to the proved lower bound (default 5; 0: no limit)")
     g.add_argument("--cost", choices=("power", "price", "parts"),
                    help="what to minimise (default: price if every candidate has one, else power)")
     g.add_argument("--write", metavar="NEW.yaml", help="write the chain with the chosen buffers as a new spec")
@@ -53,7 +60,7 @@ def run(args) -> int:
         from ..render.files import check_target
         check_target(args.write or args.file, replaces=args.file if args.in_place else None)
     place = args.place or args.write or args.in_place or any(
-        x is not None for x in (args.min_gain, args.min_headroom, args.min_bandwidth, args.max_power))
+        x is not None for x in (args.min_gain, args.min_headroom, args.min_bandwidth, args.max_power, args.targets))
     if args.headroom_nodes and args.min_headroom is None:
         raise UsageError("--headroom-nodes needs --min-headroom")
     return _place(chain, args) if place else _advise(chain, args)
@@ -95,11 +102,32 @@ def targets_from_args(chain, args):
     if args.max_power is not None:
         t.max_power_w = _value(args.max_power, "W", "--max-power")
         t.add_origin("power", "--max-power")
-    t = targets_from_requirements(chain, t)
+    chosen = _chosen_requirements(chain, getattr(args, "targets", None))
+    t = targets_from_requirements(chain, t, chosen)
     if not t.kinds():
         raise UsageError("nothing to place buffers for: give a target (--min-gain, --min-headroom, "
                          "--min-bandwidth, --max-power) or a requirements: block in the spec")
     return t
+
+
+def _chosen_requirements(chain, text):
+    """The spec requirements ``--targets`` names (None: all of them)."""
+    if text is None:
+        return None
+    reqs = chain.extra.get("requirements", [])
+    words = [w.strip() for w in text.split(",") if w.strip()]
+    if words == ["none"]:
+        return []
+    if words == ["all"]:
+        return None
+    names = {r.name for r in reqs} | {r.key for r in reqs}
+    for w in words:
+        if w not in names:
+            from ..errors import nearest
+            raise UsageError(f"--targets: '{w}' is not a requirement of '{chain.name}'"
+                             + (nearest(w, sorted(names)) if names else " (it has no requirements: block)")
+                             + (f"; its requirements: {', '.join(r.name for r in reqs)}" if reqs else ""))
+    return [r for r in reqs if r.name in words or r.key in words]
 
 
 def _value(text, unit, opt, positive=False):
@@ -112,14 +140,33 @@ def _value(text, unit, opt, positive=False):
     return v
 
 
+def _time_limit(text):
+    try:
+        v = float(text)
+    except ValueError:
+        v = math.nan
+    if not math.isfinite(v) or v < 0:
+        raise UsageError(f"--time-limit: '{text}' is not a number of seconds ≥ 0 (0: no limit)")
+    return None if v == 0 else v
+
+
 def _place(chain, args) -> int:
     from ..placement.optimiser import optimise
-    plan = optimise(chain, targets_from_args(chain, args), basis=args.cost)
+    limit = _time_limit(args.time_limit)
+    targets = targets_from_args(chain, args)
+    progress = _progress_line() if not args.json else None
+    try:
+        plan = optimise(chain, targets, basis=args.cost, time_limit=limit, progress=progress)
+    finally:
+        if progress is not None:
+            progress.done()
     reqs = None
     if plan.feasible and chain.extra.get("requirements"):
         from ..engine.budget import evaluate
         from ..studies.requirements import evaluate_requirements
         reqs = evaluate_requirements(evaluate(plan.buffered))
+    report_only = set(targets.report_only)
+    unmet = [r.name for r in reqs or [] if not bool(r.passed[0]) and r.name not in report_only]
     written = None
     if args.write or args.in_place:
         if not plan.feasible:
@@ -139,10 +186,39 @@ def _place(chain, args) -> int:
         from ..render.advisor_tables import plan_tables
         from ..render.console import make_console
         console = make_console(wide=args.wide)
-        plan_tables(plan, console, reqs)
+        plan_tables(plan, console, reqs, report_only)
+        if unmet:
+            from rich.text import Text
+            console.print(Text("the placement does not meet the spec's " + ", ".join(unmet) + " (not something "
+                               "the optimiser can target, or left out with --targets); exit status 1",
+                               style="bold red"))
         if written:
             console.print(f"wrote {written}")
-    return 0 if plan.feasible else 1
+    return 0 if plan.feasible and not unmet else 1
+
+
+class _progress_line:
+    """One line on stderr, rewritten after each cost bound, when stderr is a terminal."""
+
+    def __init__(self):
+        import sys
+        self.err = sys.stderr
+        self.tty = self.err.isatty()
+        self.shown = False
+
+    def __call__(self, info: dict) -> None:
+        if not self.tty:
+            return
+        best = "none yet" if info.get("best") is None else f"{info['best']:.4g}"
+        self.err.write(f"\rsearching: {info['states']} states, best cost {best}, bound > {info['bound']:.4g}, "
+                       f"{info['seconds']:.1f} s   ")
+        self.err.flush()
+        self.shown = True
+
+    def done(self) -> None:
+        if self.shown:
+            self.err.write("\r\033[K")
+            self.err.flush()
 
 
 def _cand(chain, name):

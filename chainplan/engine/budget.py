@@ -191,9 +191,11 @@ def _edge(span, ref, logf, mask, last):
 
 
 def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None = None,
-             ws: Workspace | None = None) -> Evaluation:
+             ws: Workspace | None = None, bad_settles_after: int | None = None) -> Evaluation:
     """DC and AC analysis; with a :class:`Workspace` (a Monte Carlo chunk) the AC arrays
-    live in its recycled memory, valid until it is recycled."""
+    live in its recycled memory, valid until it is recycled.  ``bad_settles_after``: see
+    ``solve_dc`` (batches of independent samples, where an impossible one must not hold
+    up the rest)."""
     nominal = params is None and ws is None
     params = params if params is not None else nominal_params(chain)
     params = {st.name: at_temperature(st.raw.get("__tempco__"), params[st.name]) for st in chain.all_stages}
@@ -201,7 +203,7 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
     # A floating node or an impossible bias gives non-finite numbers in some samples;
     # they are reported per sample (check_operating_points, valid), not as numpy warnings.
     with np.errstate(divide="ignore", invalid="ignore"):
-        dc = solve_dc(chain, params)
+        dc = solve_dc(chain, params, bad_settles_after=bad_settles_after)
         ac = run_ac(chain, params, dc.ops, f_hz, ws)
         class_a_limits(chain, params, dc, ac, band_columns(chain, f_hz))
     ev = Evaluation(chain, params, f_hz, dc, ac, chain.output_node(), ws)

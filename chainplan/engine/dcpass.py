@@ -35,25 +35,44 @@ class DcResult:
 MAX_ROUNDS, SETTLED_V = 60, 1e-9
 
 
-def solve_dc(chain: Chain, params: dict, rounds: int | None = None) -> DcResult:
+def solve_dc(chain: Chain, params: dict, rounds: int | None = None, bad_settles_after: int | None = None) -> DcResult:
     """DC levels and operating points; ``rounds`` fixes the number of passes
-    (default: one, or repeat until every level moves less than SETTLED_V)."""
+    (default: one, or repeat until every level moves less than SETTLED_V).
+    ``bad_settles_after``: from that round on, a sample whose operating point is impossible
+    (some stage's ``bad``) counts as settled — its figures are discarded as invalid anyway,
+    and such a sample can swing between two impossible states for all MAX_ROUNDS
+    rounds, holding up every other sample of a batch (the placement search's region
+    batches); samples are independent, so the others' numbers do not change."""
     iterate = any(st.model.draws_input_current for st in chain.stages)
     ops: dict[str, Op | None] = {st.name: None for st in chain.all_stages}
     node_v = None
-    for _ in range(rounds or (MAX_ROUNDS if iterate else 1)):
+    for k in range(rounds or (MAX_ROUNDS if iterate else 1)):
         loads = _backward(chain, params, ops)
         new_v, ops = _forward(chain, params, loads)
-        settled = node_v is not None and all(_settled(new_v[n], node_v[n]) for n in new_v)
+        skip = _bad(ops) if bad_settles_after is not None and k >= bad_settles_after else None
+        settled = node_v is not None and all(_settled(new_v[n], node_v[n], skip) for n in new_v)
         node_v = new_v
         if settled and rounds is None:
             break
     return DcResult(node_v, ops, *_limits(chain, ops))
 
 
-def _settled(new, old) -> bool:
+def _bad(ops) -> np.ndarray | None:
+    """Samples with an impossible operating point in any stage ((S, 1) bool), or None."""
+    out = None
+    for op in ops.values():
+        b = getattr(op, "bad", False)
+        if b is not False and np.ndim(b):
+            out = np.asarray(b, dtype=bool) if out is None else (out | b)
+    return out
+
+
+def _settled(new, old, skip=None) -> bool:
     d = np.abs(np.asarray(new) - np.asarray(old))
-    return bool(np.all((d <= SETTLED_V) | (np.isnan(new) & np.isnan(old))))
+    ok = (d <= SETTLED_V) | (np.isnan(new) & np.isnan(old))
+    if skip is not None and np.ndim(ok) and np.shape(ok)[0] == np.shape(skip)[0]:
+        ok = ok | skip
+    return bool(np.all(ok))
 
 
 def _backward(chain, params, ops):

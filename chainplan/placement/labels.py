@@ -76,21 +76,20 @@ class Pool:
         return Labels(**{f: a[idx] for f, a in self.store.items()})
 
 
-def nondominated(lb: Labels, p_floor, rel_cols) -> np.ndarray:
+def nondominated(lb: Labels, p_floor, shape_key) -> np.ndarray:
     """Indices of the labels no other label dominates, the labels sorted by :func:`order` first;
     of two that dominate each other within the tolerance the first is kept.  ``a`` dominates ``b``
     when it costs no more (a cost within REL is a tie, then fewer buffers, then fewer parts), draws no more power
     (above ``p_floor``, the power no upstream can push over the limit; None: power is free), needs
-    no more upstream gain (lo) and tolerates no less (hi), and has a response at least as high at
-    the frequencies ``rel_cols`` that can move a required band edge."""
+    no more upstream gain (lo) and tolerates no less (hi), and has a ``shape_key`` (n, K) at least
+    as high in every column (the response at the frequencies that can move a required band edge,
+    +inf where the label meets that edge whatever the upstream; None: no band edge targeted)."""
     n = len(lb)
     if n <= 1:
         return np.arange(n)
     cost, nbuf, parts = lb.cost, lb.nbuf, lb.parts
     power = np.maximum(lb.power, p_floor) if p_floor is not None else None
-    shape = None
-    if rel_cols is not None and lb.shape is not None:
-        shape = np.where(lb.has_shape[:, None], lb.shape[:, rel_cols], -np.inf)
+    shape = shape_key
 
     def dominates(a, b):
         tol = REL * np.maximum(np.maximum(np.abs(cost[a]), np.abs(cost[b])), 1e-30)

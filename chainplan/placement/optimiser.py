@@ -108,7 +108,7 @@ from ..spec.insert import insert_buffers
 from .labels import REL
 from ..spec.model import Chain
 from ..spec.parts import Candidate, candidates_of, default_cost_basis, supply_power
-from .search import Run, Search
+from .search import MAX_LABELS, Limits, Run, Search, Stopped
 from ..spec.units import fmt
 
 
@@ -125,10 +125,12 @@ class Targets:
     min_f_high_hz: float | None = None
     max_f_low_hz: float | None = None
     max_power_w: float | None = None                     # all follower-type stages, the buffers included
+    max_loss_db: float | None = None                     # loading loss at every interface (dB lost, ≥ 0), at f_ref
     origin: dict = field(default_factory=dict)           # kind -> [where the target came from]
     skipped: list = field(default_factory=list)          # spec requirements the optimiser does not target
+    report_only: list = field(default_factory=list)      # spec requirements left out of the targets (--targets)
 
-    KINDS = ("gain", "max_gain", "headroom", "f_high", "f_low", "power")
+    KINDS = ("gain", "max_gain", "headroom", "f_high", "f_low", "power", "loss")
 
     def add_origin(self, kind: str, where: str) -> None:
         self.origin.setdefault(kind, []).append(where)
@@ -141,7 +143,7 @@ class Targets:
         have = {"gain": bool(self.min_gain_db), "max_gain": bool(self.max_gain_db),
                 "headroom": self.min_headroom_v is not None or bool(self.node_headroom_v),
                 "f_high": self.min_f_high_hz is not None, "f_low": self.max_f_low_hz is not None,
-                "power": self.max_power_w is not None}
+                "power": self.max_power_w is not None, "loss": self.max_loss_db is not None}
         return [k for k in self.KINDS if have[k]]
 
     def only(self, kinds) -> "Targets":
@@ -159,13 +161,19 @@ class Targets:
             t.max_f_low_hz = self.max_f_low_hz
         if "power" in kinds:
             t.max_power_w = self.max_power_w
+        if "loss" in kinds:
+            t.max_loss_db = self.max_loss_db
         return t
 
 
-def targets_from_requirements(chain: Chain, targets: Targets | None = None) -> Targets:
-    """Add the spec's ``requirements:`` that the optimiser can target (the stricter wins)."""
+def targets_from_requirements(chain: Chain, targets: Targets | None = None, chosen=None) -> Targets:
+    """Add the spec's ``requirements:`` that the optimiser can target (the stricter wins); with
+    ``chosen`` (a list of requirements) only those, the others are only reported."""
     t = targets or Targets()
     for r in chain.extra.get("requirements", []):
+        if chosen is not None and r not in chosen:
+            t.report_only.append(r.name)
+            continue
         key, lim, src = r.key, r.limit, f"requirement '{r.name}'"
         f = r.at_hz if getattr(r, "at_hz", None) is not None else chain.analysis.f_ref_hz
         if key == "min_gain":
@@ -190,6 +198,9 @@ def targets_from_requirements(chain: Chain, targets: Targets | None = None) -> T
         elif key == "max_buffer_power" and not r.targets:
             t.max_power_w = lim if t.max_power_w is None else min(lim, t.max_power_w)
             t.add_origin("power", src)
+        elif key == "max_loading_loss" and not r.targets and getattr(r, "at_hz", None) is None:
+            t.max_loss_db = lim if t.max_loss_db is None else min(lim, t.max_loss_db)
+            t.add_origin("loss", src)
         else:
             t.skipped.append(r.name)
     return t
@@ -226,6 +237,7 @@ class Measured:
     min_headroom_node: str | None
     power_w: float              # all follower-type stages
     margins: dict               # kind -> margin (positive = met), only for kinds targeted
+    loss_db: float = 0.0        # the worst interface's loading loss (dB lost) at f_ref
 
     def meets(self) -> bool:
         return self.valid and all(m >= -REL * max(1.0, abs(m)) for m in self.margins.values())
@@ -238,6 +250,8 @@ class Shortfall:
     best: str                   # best value reachable, in words
     best_value: float | None
     with_others: bool           # True: reachable while meeting the other targets
+    proven: bool = True         # False: the time budget ran out; the value is reachable, maybe not the best
+    limiter: str = ""           # what limits the best reachable placement, in words
 
 
 @dataclass
@@ -253,6 +267,17 @@ class Plan:
     targets: Targets
     shortfalls: list[Shortfall]
     stats: dict
+    conflicts: list = field(default_factory=list)   # contradictory targets, in words (no search made)
+    proven: bool = True          # feasible: the optimum; infeasible: nothing fits (else: the budget ran out)
+    lower_bound: float | None = None   # the least cost the search proved any feasible placement has
+    ties: int = 0                # other placements of the same cost the margin rule passed over
+
+    @property
+    def gap(self) -> float | None:
+        """Cost above the proved lower bound (0 when proven optimal)."""
+        if self.cost is None or self.lower_bound is None:
+            return None
+        return max(0.0, self.cost - self.lower_bound)
 
     @property
     def n_buffers(self) -> int:
@@ -299,10 +324,13 @@ def measure(chain: Chain, targets: Targets, buffered: Chain | None = None, ev=No
         margins["f_low"] = 1 - f_lo / targets.max_f_low_hz if targets.max_f_low_hz > 0 else -f_lo
     if targets.max_power_w is not None:
         margins["power"] = targets.max_power_w - power
+    worst_loss = max((-float(ev.interface_loss_db(st.name, 0)[0]) for st in c.stages), default=0.0)
+    if targets.max_loss_db is not None:
+        margins["loss"] = targets.max_loss_db - worst_loss
     finite = [(r, n) for n, (r, _) in rooms.items() if math.isfinite(r)]
     worst = min(finite) if finite else (None, None)
     return Measured(valid, gains, None if f_lo == 0.0 else f_lo, None if math.isinf(f_hi) else f_hi,
-                    worst[0], worst[1], power, margins)
+                    worst[0], worst[1], power, margins, worst_loss)
 
 
 # -- the public entry points ---------------------------------------------------------------
@@ -332,56 +360,189 @@ def _grid(chain: Chain, targets: Targets) -> tuple[np.ndarray, dict]:
     return grid, cols
 
 
+#: Default time budget of one optimisation (seconds): the best plan found by then is returned.
+TIME_LIMIT_S = 5.0
+#: Labels per state kept by the heuristic (beam) run that finds a first plan.
+BEAM = 6
+
+
 def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None = None,
-             basis: str | None = None, explain: bool = True) -> Plan:
+             basis: str | None = None, explain: bool = True, time_limit: float | None = TIME_LIMIT_S,
+             max_labels: int = MAX_LABELS, progress=None) -> Plan:
     """The cheapest placement of candidate buffers meeting ``targets`` (see the module docstring).
     When none does and ``explain`` is set, the plan's shortfalls say which target cannot be met
-    and the best value reachable (a few more searches over the same region analyses)."""
+    and the best value reachable (a few more searches over the same region analyses).
+
+    ``time_limit`` (seconds, None: none) and ``max_labels`` bound the search; when either runs
+    out the plan is the best one found so far (``proven`` False) with the lower bound the search
+    had proved on the cost (``lower_bound``; ``gap`` = cost − lower bound).  ``progress(dict)`` is
+    called after each cost bound (states, best cost, bound, seconds)."""
     t0 = time.perf_counter()
     cands = candidates_of(chain) if candidates is None else candidates
     basis = cost_basis_for(cands, basis)
     check_nodes(chain, targets.node_headroom_v)
+    conflicts = contradictions(targets)
     with np.errstate(all="ignore"):
         ev0 = evaluate(chain)
     check_operating_points(chain, ev0.dc)
     before = measure(chain, targets, ev=ev0)
     grid, cols = _grid(chain, targets)
     search = Search(chain, cands, basis, grid, cols)
-    picks, run = None, None
+    limits = Limits(time_limit, max_labels, progress)
+    if conflicts:
+        return Plan(chain, False, basis, None, [], None, None, before, targets, [], {"seconds": 0.0},
+                    conflicts=conflicts)
+    state = {"picks": None, "proven": False, "lower": 0.0, "incumbent": None, "stopped": None,
+             "infeasible": False, "run": None}
+    try:
+        _deepen(chain, search, targets, before, limits, state, t0)
+    except Stopped as stop:
+        state["stopped"] = stop.reason
+        if state["incumbent"] is None:             # a last quick try for some plan
+            limits.extend(max(1.0, 0.5 * (time_limit or 1.0)))
+            try:
+                state["incumbent"] = _beam(search, targets, limits)
+            except Stopped:
+                pass
+    run = state["run"]
+    regions = search.regions
+    stats = {"states": run.st.n if run is not None else 0,
+             "region_shapes": sum(len(w.shapes) for w in regions.waves.values()),
+             "analyses": regions.samples, "engine_calls": regions.calls,
+             "cost_bound": run.cap if run is not None and hasattr(run, "cap") else None,
+             "stopped": state["stopped"]}
+    picks = state["picks"] if state["picks"] is not None else state["incumbent"]
+    if picks is None:
+        stats["seconds"] = time.perf_counter() - t0
+        limits.extend(max(1.0, time_limit or 1.0)) if state["stopped"] else None
+        proven = state["infeasible"]
+        short = []
+        if explain and (proven or state["stopped"] is None):
+            short = shortfalls(search, targets, Limits(time_limit, max_labels))
+        plan = Plan(chain, False, basis, None, [], None, None, before, targets, short, stats,
+                    proven=proven, lower_bound=state["lower"])
+        stats["seconds"] = time.perf_counter() - t0
+        return plan
+    plan = _plan(chain, search, picks, targets, before, stats)
+    plan.proven = state["picks"] is not None
+    plan.lower_bound = plan.cost if plan.proven else min(state["lower"], plan.cost)
+    plan.ties = state.get("ties", 0)
+    stats["seconds"] = time.perf_counter() - t0
+    return plan
+
+
+def _deepen(chain, search, targets, before, limits, state, t0) -> None:
+    """Iterative deepening over cost bounds (see ``_bounds``), recording into ``state`` the optimum
+    (``picks``, proven), the largest bound proved to hold no feasible placement (``lower``), a
+    plan found on the way (``incumbent``) and whether nothing is feasible at all."""
+    run = None
     bounds = list(_bounds(search))
     k = 0
     while k < len(bounds):
         bound = bounds[k]
         if k == CHECK_AFTER and math.isinf(bounds[-1]):
-            # deeper bounds reach ever more states: first settle whether anything is feasible at
-            # all, and if so let the cost of one feasible placement be the last bound
-            some = _feasible(search, targets)
+            # deeper bounds reach ever more states: first find some plan (a quick heuristic run,
+            # then an exact feasibility search), and let its cost be the last bound
+            some = _beam(search, targets, limits)
             if some is None:
-                break
+                some = _feasible(search, targets, limits)
+            if some is None:
+                state["infeasible"] = True
+                return
+            state["incumbent"] = some
             top = _plan(chain, search, some, targets, before, {}).cost
             bounds = [b for b in bounds[k:] if b < top] + [top]
             k = 0
             continue
         if run is None or bound > run.bound:            # reach further: a new forward pass
             reach = bounds[min(k + 1, len(bounds) - 1)] if bound == 0 else bound
-            run = Run(search, targets, reach)
+            run = Run(search, targets, reach, limits=limits)
+            state["run"] = run
             run.forward()
         root = run.backward(bound)
-        q = run.best(root)
+        q, tied = run.best(root)
         if q is not None and root.cost[q] <= bound + REL * max(1.0, abs(bound)):
-            picks = run.choices(root, q)
-            break
+            state["picks"], state["proven"] = run.choices(root, q), True
+            if tied:
+                state["picks"], state["ties"] = _most_margin(chain, search, targets, before,
+                                                             [run.choices(root, x) for x in [q, *tied[:MAX_TIES]]])
+            return
+        if math.isinf(bound):
+            state["infeasible"] = True
+            return
+        state["lower"] = max(state["lower"], bound)
+        if limits.progress is not None:
+            limits.progress({"states": run.st.n, "bound": bound, "seconds": time.perf_counter() - t0,
+                             "best": None if state["incumbent"] is None else
+                             _plan(chain, search, state["incumbent"], targets, before, {}).cost})
         k += 1
-    regions = search.regions
-    stats = {"states": run.st.n, "region_shapes": sum(len(w.shapes) for w in regions.waves.values()),
-             "analyses": regions.samples, "engine_calls": regions.calls, "cost_bound": run.cap}
-    if picks is None:
-        stats["seconds"] = time.perf_counter() - t0
-        return Plan(chain, False, basis, None, [], None, None, before, targets,
-                    shortfalls(search, targets) if explain else [], stats)
-    plan = _plan(chain, search, picks, targets, before, stats)
-    stats["seconds"] = time.perf_counter() - t0
-    return plan
+    state["infeasible"] = True
+
+
+#: Placements of equal cost compared by their margins at most (each is analysed in full).
+MAX_TIES = 7
+
+
+def _most_margin(chain, search, targets, before, options: list) -> tuple[dict, int]:
+    """Of placements that tie on cost, buffers and parts, the one with the most margin on its
+    tightest target (margins from full analyses, each in dB: gain and loading loss as they are,
+    headroom as 20·log10(room/target), band edges as 20·log10 of the edge over its limit, power as
+    20·log10(limit/power)); returns it and the number passed over."""
+    def tightest(picks):
+        m = _plan(chain, search, picks, targets, before, {}).measured
+        return min(margin_db(targets, m).values(), default=0.0)
+    scored = [(tightest(p), -i, p) for i, p in enumerate(options)]
+    return max(scored, key=lambda x: (x[0], x[1]))[2], len(options) - 1
+
+
+def margin_db(t: Targets, m: Measured) -> dict:
+    """Each targeted kind's margin in dB (positive = met): see ``_most_margin``."""
+    out = {}
+    with np.errstate(all="ignore"):
+        for k, v in m.margins.items():
+            if k in ("gain", "max_gain", "loss"):
+                out[k] = v
+            elif k == "headroom":
+                h = max([x for x in (t.min_headroom_v, *t.node_headroom_v.values()) if x is not None] or [0.0])
+                out[k] = 20 * math.log10(max((h + v) / h, 1e-12)) if h > 0 else v
+            elif k in ("f_high", "f_low"):
+                out[k] = 20 * math.log10(max(1 + v, 1e-12))
+            elif k == "power":
+                lim = t.max_power_w
+                out[k] = 20 * math.log10(lim / max(lim - v, 1e-30)) if lim and lim > 0 else v
+    return out
+
+
+def _beam(search: Search, targets: Targets, limits) -> dict | None:
+    """A first placement meeting the targets from a heuristic run (a few labels per state), or None
+    (which proves nothing)."""
+    run = Run(search, targets, limits=limits, beam=BEAM)
+    run.forward()
+    root = run.backward()
+    q, _ = run.best(root)
+    return None if q is None else run.choices(root, q)
+
+
+def contradictions(t: Targets) -> list[str]:
+    """Targets that no chain can meet together, in words, before any search: a minimum gain above
+    a maximum gain at the same frequency, a negative power limit."""
+    out = []
+    for f, lo in t.min_gain_db.items():
+        hi = t.max_gain_db.get(f)
+        if hi is not None and lo > hi:
+            out.append(f"gain ≥ {lo:.2f} dB at {fmt(f, 'Hz')} ({_src(t, 'gain')}) and gain ≤ {hi:.2f} dB at "
+                       f"{fmt(f, 'Hz')} ({_src(t, 'max_gain')}) contradict each other")
+    if t.max_power_w is not None and t.max_power_w < 0:
+        out.append(f"follower power ≤ {fmt(t.max_power_w, 'W')} ({_src(t, 'power')}) cannot be met: power is "
+                   "never negative")
+    if t.max_loss_db is not None and t.max_loss_db < 0:
+        out.append(f"loading loss ≤ {t.max_loss_db:.2f} dB ({_src(t, 'loss')}) cannot be met: a passive "
+                   "interface never gains")
+    return out
+
+
+def _src(t: Targets, kind: str) -> str:
+    return ", ".join(t.origin.get(kind, [])) or "given"
 
 
 #: Cost bounds tried before checking that any placement is feasible at all (see optimise).
@@ -424,48 +585,84 @@ def _plan(chain, search, picks, targets, before, stats) -> Plan:
 
 # -- when nothing works: what cannot be met, and the best reachable ---------------------------
 
-def _feasible(search: Search, targets: Targets):
+def _feasible(search: Search, targets: Targets, limits=None):
     """Some placement meeting ``targets`` (reader -> candidate index), or None."""
-    run = Run(search, targets, cheapest=False)
+    run = Run(search, targets, cheapest=False, limits=limits)
     run.forward()
     root = run.backward()
-    q = run.best(root)
+    q, _ = run.best(root)
     return None if q is None else run.choices(root, q)
 
 
-def shortfalls(search: Search, targets: Targets) -> list[Shortfall]:
+def shortfalls(search: Search, targets: Targets, limits=None) -> list[Shortfall]:
     """Which targets cannot be met, and the best value reachable for each: while
-    meeting the other targets if that is possible, else on its own."""
+    meeting the other targets if that is possible, else on its own.  When ``limits`` run out the
+    values found so far are reported (reachable, but not proven the best)."""
+    limits = limits or Limits(None)
     kinds = targets.kinds()
-    blocking = [k for k in kinds if _feasible(search, targets.only([x for x in kinds if x != k])) is not None]
+    blocking = []
+    try:
+        for k in kinds:
+            if _feasible(search, targets.only([x for x in kinds if x != k]), limits) is not None:
+                blocking.append(k)
+    except Stopped:
+        return [Shortfall(k, target_text(targets, k), "not found within the time limit", None, False, False)
+                for k in kinds]
     with_others = bool(blocking)
     out = []
     for k in (blocking or kinds):
         others = [x for x in kinds if x != k] if with_others else []
-        out.append(_best_reachable(search, targets, k, others, with_others))
+        out.append(_best_reachable(search, targets, k, others, with_others, limits))
     return out
 
 
-def _best_reachable(search: Search, targets: Targets, kind: str, others: list, with_others: bool) -> Shortfall:
+def _best_reachable(search: Search, targets: Targets, kind: str, others: list, with_others: bool,
+                    limits) -> Shortfall:
     """Bisect the target of ``kind`` between a reachable value and the target itself."""
     chain = search.chain
     base = targets.only(others)
-    picks = _feasible(search, base)
+    try:
+        picks = _feasible(search, base, limits)
+    except Stopped:
+        return Shortfall(kind, target_text(targets, kind), "not found within the time limit", None, with_others,
+                         False)
     if picks is None:
         return Shortfall(kind, target_text(targets, kind), "no placement can be biased", None, with_others)
-    start = measure(chain, targets.only([kind]), insert_buffers(chain, {r: search.cands[o]
-                                                                        for r, o in picks.items()}))
+    best = insert_buffers(chain, {r: search.cands[o] for r, o in picks.items()})
+    start = measure(chain, targets.only([kind]), best)
     lo_v, hi_v = _knob(targets, kind, start)        # knob values: reachable (lo_v) and target (hi_v)
-    for _ in range(40):
-        if _close(kind, lo_v, hi_v):
-            break
-        mid = _mid(kind, lo_v, hi_v)
-        trial = _with_knob(targets, kind, mid, base)
-        if _feasible(search, trial) is not None:
-            lo_v = mid
-        else:
-            hi_v = mid
-    return Shortfall(kind, target_text(targets, kind), _knob_text(targets, kind, lo_v), lo_v, with_others)
+    proven = True
+    try:
+        for _ in range(40):
+            if _close(kind, lo_v, hi_v):
+                break
+            mid = _mid(kind, lo_v, hi_v)
+            trial = _with_knob(targets, kind, mid, base)
+            found = _feasible(search, trial, limits)
+            if found is not None:
+                lo_v, picks = mid, found
+            else:
+                hi_v = mid
+    except Stopped:
+        proven = False
+    return Shortfall(kind, target_text(targets, kind), _knob_text(targets, kind, lo_v), lo_v, with_others,
+                     proven, _limiter(search, picks))
+
+
+def _limiter(search: Search, picks: dict) -> str:
+    """What limits the best reachable placement, in words: the interface that loses most in it,
+    and the buffers it uses."""
+    chain = search.chain
+    b = insert_buffers(chain, {r: search.cands[o] for r, o in picks.items()})
+    with np.errstate(all="ignore"):
+        ev = evaluate(b)
+        losses = [(float(ev.interface_loss_db(st.name, 0)[0]), st) for st in b.stages]
+    worst = min(losses, key=lambda x: x[0], default=None)
+    used = ", ".join(f"{search.cands[o].name} at {r}" for r, o in sorted(picks.items())) or "no buffer"
+    if worst is None or not math.isfinite(worst[0]):
+        return f"with {used}"
+    st = worst[1]
+    return f"with {used}; the worst interface left is {st.parent} → {st.name} ({worst[0]:+.2f} dB)".replace("-", "−")
 
 
 def _knob(targets: Targets, kind: str, m: Measured):
@@ -480,12 +677,14 @@ def _knob(targets: Targets, kind: str, m: Measured):
     if kind == "f_low":
         b = -math.log(targets.max_f_low_hz)
         return (min(-math.log(m.f_low_hz), b) if m.f_low_hz else b), b
+    if kind == "loss":
+        return min(-m.loss_db, -targets.max_loss_db), -targets.max_loss_db
     return min(-m.power_w, -targets.max_power_w), -targets.max_power_w
 
 
 def _close(kind, a, b) -> bool:
     tol = {"gain": 0.005, "max_gain": 0.005, "headroom": 1e-4, "f_high": 0.002, "f_low": 0.002,
-           "power": 1e-6}[kind]
+           "power": 1e-6, "loss": 0.005}[kind]
     if kind == "power":
         tol = max(tol * abs(b), 1e-9)
     return abs(b - a) <= tol
@@ -510,6 +709,8 @@ def _with_knob(targets: Targets, kind: str, x: float, base: Targets) -> Targets:
         t.min_f_high_hz = math.exp(x)
     elif kind == "f_low":
         t.max_f_low_hz = math.exp(-x)
+    elif kind == "loss":
+        t.max_loss_db = -x
     else:
         t.max_power_w = -x
     return t
@@ -528,6 +729,8 @@ def target_text(t: Targets, kind: str) -> str:
         return f"upper band edge ≥ {fmt(t.min_f_high_hz, 'Hz')}"
     if kind == "f_low":
         return f"lower band edge ≤ {fmt(t.max_f_low_hz, 'Hz')}"
+    if kind == "loss":
+        return f"loading loss ≤ {t.max_loss_db:.2f} dB at every interface"
     return f"follower power ≤ {fmt(t.max_power_w, 'W')}"
 
 
@@ -543,4 +746,6 @@ def _knob_text(t: Targets, kind: str, x: float) -> str:
         return f"upper edge {fmt(math.exp(x), 'Hz')}"
     if kind == "f_low":
         return f"lower edge {fmt(math.exp(-x), 'Hz')}"
+    if kind == "loss":
+        return f"{-x:.2f} dB of loading loss at the worst interface"
     return f"{fmt(-x, 'W')} of follower power"

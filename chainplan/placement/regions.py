@@ -40,6 +40,9 @@ CUT_KINDS = ("opamp_follower", "opamp_noninverting", "amplifier")
 #: Samples × frequencies of one engine call at most (bounds the arrays' memory, ~2 MB each).
 MAX_CELLS = 1 << 17
 ROOT = ("", -1, -1)
+#: Newton rounds after which a region sample with an impossible operating point no longer holds
+#: up the DC iteration of its batch (it is discarded as invalid; see chainplan.engine.dcpass).
+BAD_SETTLES_AFTER = 6
 
 
 def is_cut(st: Stage) -> bool:
@@ -318,7 +321,7 @@ class Regions:
         if w.reader is not None:
             params[sub.source.name]["dc"] = v_of.reshape(n, 1)
         with np.errstate(all="ignore"):
-            ev = evaluate(sub, params, self.grid)
+            ev = evaluate(sub, params, self.grid, bad_settles_after=BAD_SETTLES_AFTER)
             self.calls += 1
             self.samples += n
             return self._extract(w, ev, sub, alias, choice, shape_of, key_of, n)
@@ -350,6 +353,12 @@ class Regions:
             pw, c, k = st.switch.spend(op, self.basis)
             power, cost, parts = power + pw, cost + c, parts + k
         valid &= np.all(np.isfinite(np.where(real, dc, 0.0)) & np.isfinite(np.where(real, t, 0.0)), axis=1)
+        # the worst loading loss (dB lost) at the region's interfaces at f_ref: a plain connection
+        # repeats the loss of the real interface below it, a terminal is the next cut's input
+        loss = np.zeros(n)
+        for st in sub.stages:
+            lost = -np.broadcast_to(np.ravel(ev.interface_loss_db(st.name, 0)), (n,))
+            loss = np.fmax(loss, lost)
         tn = w.term_node[shape_of]                                   # (n, T) node each terminal reads
         tr = np.where(tn >= 0, rep[rows[:, None], np.maximum(tn, 0)], -1)
         term_v = np.where(tn >= 0, dc[rows[:, None], np.maximum(tr, 0)], np.nan)
@@ -370,7 +379,7 @@ class Regions:
         valid &= np.all(np.isfinite(out_t), axis=1) | (on < 0)
         nbuf = w.nbuf[shape_of] + ((choice[:, w.start] > 0) if w.start is not None else 0)
         return {"valid": valid, "room": room, "t": t, "term_v": term_v, "term_t": term_t, "out_t": out_t,
-                "power": power, "cost": cost, "nbuf": nbuf, "parts": parts, "key": key_of}
+                "power": power, "cost": cost, "nbuf": nbuf, "parts": parts, "key": key_of, "loss": loss}
 
     def node_names(self, w: Wave, key) -> list:
         return [w.src_names[key]] + w.names[1:]

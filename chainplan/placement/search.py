@@ -11,6 +11,7 @@ vectorised over the wave's (state, shape) pairs.
 from __future__ import annotations
 
 import math
+import time
 import types
 
 import numpy as np
@@ -22,6 +23,38 @@ from ..spec.parts import Candidate
 from .regions import ROOT, Regions
 
 V_KEY = 1e-12       # DC levels that round to the same multiple of this (V) are one state
+#: Labels one run may hold at most (the memory bound of the search state: about 1 kB a label
+#: with a band-edge response of a few hundred points, so ~200 MB at most).
+MAX_LABELS = 200_000
+
+
+class Stopped(Exception):
+    """The search ran out of its time or memory budget (``reason``: 'time' or 'memory')."""
+
+    def __init__(self, reason: str):
+        super().__init__(reason)
+        self.reason = reason
+
+
+class Limits:
+    """The budget shared by every run of one optimisation: a deadline (perf_counter seconds, or
+    None), a cap on the labels of a run, and a progress callback (or None)."""
+
+    def __init__(self, seconds: float | None = None, max_labels: int = MAX_LABELS, progress=None):
+        self.deadline = None if seconds is None else time.perf_counter() + seconds
+        self.max_labels, self.progress = max_labels, progress
+        self.states = 0
+
+    def check(self, labels: int = 0) -> None:
+        if self.deadline is not None and time.perf_counter() > self.deadline:
+            raise Stopped("time")
+        if labels > self.max_labels:
+            raise Stopped("memory")
+
+    def extend(self, seconds: float) -> None:
+        """Give the budget ``seconds`` more from now (for a last heuristic pass)."""
+        if self.deadline is not None:
+            self.deadline = time.perf_counter() + seconds
 
 
 class Search:
@@ -55,12 +88,15 @@ class Search:
 
 class _States:
     """Search states as growable parallel arrays: DC level, the reachable upstream gain range
-    [glo, ghi] per gain column, upstream follower power [plo, phi], least upstream cost."""
+    [glo, ghi] per gain column, the reachable upstream normalised response [ulo, uhi] at each
+    span point (when a band edge is targeted), upstream follower power [plo, phi], least
+    upstream cost."""
 
-    def __init__(self, ncol: int):
+    def __init__(self, ncol: int, npts: int = 0):
         self.n, self.cap, self.ncol = 0, 64, ncol
         self.v = np.zeros(self.cap)
         self.glo, self.ghi = np.zeros((self.cap, ncol)), np.zeros((self.cap, ncol))
+        self.ulo, self.uhi = np.zeros((self.cap, npts)), np.zeros((self.cap, npts))
         self.plo, self.phi, self.cmin = np.zeros(self.cap), np.zeros(self.cap), np.zeros(self.cap)
         self.key: list = []
         self.vk: list = []
@@ -68,7 +104,7 @@ class _States:
     def new(self, key, vk, v) -> int:
         if self.n == self.cap:
             self.cap *= 2
-            for name in ("v", "glo", "ghi", "plo", "phi", "cmin"):
+            for name in ("v", "glo", "ghi", "ulo", "uhi", "plo", "phi", "cmin"):
                 old = getattr(self, name)
                 grown = np.zeros((self.cap, *old.shape[1:]))
                 grown[:self.n] = old[:self.n]
@@ -77,6 +113,7 @@ class _States:
         self.n += 1
         self.v[i] = v
         self.glo[i], self.ghi[i] = np.inf, -np.inf
+        self.ulo[i], self.uhi[i] = np.inf, -np.inf
         self.plo[i], self.phi[i], self.cmin[i] = np.inf, -np.inf, np.inf
         self.key.append(key)
         self.vk.append(vk)
@@ -86,10 +123,16 @@ class _States:
 class Run:
     """Forward reachability and backward Pareto labels for one set of targets and cost bound."""
 
-    def __init__(self, search: Search, targets, bound: float = math.inf, cheapest: bool = True):
+    def __init__(self, search: Search, targets, bound: float = math.inf, cheapest: bool = True,
+                 limits: Limits | None = None, beam: int | None = None):
         """``cheapest=False``: any feasible placement will do, so completions are compared by what
-        they accept and need (gain intervals, power, response), not by cost."""
+        they accept and need (gain intervals, power, response), not by cost.  ``limits``: the time
+        and memory budget (``Stopped`` is raised when it runs out).  ``beam``: a heuristic run
+        keeping only a few labels per state (the ``beam`` cheapest, those accepting the lowest and
+        the highest upstream gains, and with band edges the best responses): what it finds is a
+        real placement, but not proven optimal, and finding nothing proves nothing."""
         self.s, self.t, self.bound, self.cheapest = search, targets, bound, cheapest
+        self.limits, self.beam = limits or Limits(), beam
         self.tol = REL * max(1.0, abs(bound)) if math.isfinite(bound) else math.inf
         ncol = len(search.cols)
         self.lo_gain = np.zeros(ncol)
@@ -101,9 +144,11 @@ class Run:
             i = search.col_of[search.gain_cols[f]]
             self.hi_gain[i] = min(self.hi_gain[i], 10 ** (db / 20))
         self.band = targets.min_f_high_hz is not None or targets.max_f_low_hz is not None
-        self.rel = relevant_mask(search.chain, targets) if self.band else None
         self.pmax = targets.max_power_w
-        self.st = _States(ncol)
+        P = search.chain.analysis.points if self.band else 0
+        self.st = _States(ncol, P)
+        if self.band:
+            self.masks = band_masks(search.chain, targets)
         self.index: dict = {}          # (key, vkey) -> state
         self.keys_at: dict = {}        # reader -> {key: [its states]}, in order of appearance
         self.edges: dict = {}          # reader -> the wave's surviving (state, shape) pairs
@@ -113,6 +158,7 @@ class Run:
         self._state(ROOT, 0.0, 0.0)
         st = self.st
         st.glo[0], st.ghi[0], st.plo[0], st.phi[0], st.cmin[0] = 1.0, 1.0, 0.0, 0.0, 0.0
+        st.ulo[0], st.uhi[0] = 1.0, 1.0
 
     def _state(self, key, vk, v) -> int:
         i = self.index.get((key, vk))
@@ -129,6 +175,7 @@ class Run:
                 self._wave(reader)
 
     def _wave(self, reader) -> None:
+        self.limits.check()
         s, st, regions = self.s, self.st, self.s.regions
         keys = self.keys_at[reader]
         w = None
@@ -163,6 +210,8 @@ class Run:
             keep &= ~np.any(olo > ghi * (1 + REL), axis=1) & ~np.any(ohi < glo * (1 - REL), axis=1)
             if self.pmax is not None:
                 keep &= ~(st.plo[sid] + power > self.pmax * (1 + REL))
+            if self.t.max_loss_db is not None:          # region-local: every interface lies in one region
+                keep &= ~(data["loss"][row] > self.t.max_loss_db * (1 + REL) + 1e-12)
             keep &= ~(st.cmin[sid] + cost > self.bound + self.tol)
         k = np.nonzero(keep)[0]
         si, sid, row, d, glo, ghi = si[k], sid[k], row[k], d[k], glo[k], ghi[k]
@@ -184,6 +233,11 @@ class Run:
             t = data["term_t"][row[has], j][:, cols]
             np.minimum.at(st.glo, c, glo[has] * t)
             np.maximum.at(st.ghi, c, ghi[has] * t)
+            if self.band:
+                full = data["term_t"][row[has], j]
+                ratio = full[:, 1:1 + st.ulo.shape[1]] / full[:, :1]
+                np.minimum.at(st.ulo, c, st.ulo[sid[has]] * ratio)
+                np.maximum.at(st.uhi, c, st.uhi[sid[has]] * ratio)
             np.minimum.at(st.plo, c, st.plo[sid[has]] + power[has])
             np.maximum.at(st.phi, c, st.phi[sid[has]] + power[has])
             np.minimum.at(st.cmin, c, st.cmin[sid[has]] + cost[has])
@@ -224,6 +278,7 @@ class Run:
                 for i in group:
                     if cmin[i] <= self.cap + self.cap_tol:
                         self.pool.add(i, self._labels(i))
+                        self.limits.check(self.pool.size)
         a, b = self.pool.start[0], self.pool.end[0]
         return self.pool.take(np.arange(a, b)) if b > a else _EMPTY
 
@@ -327,7 +382,7 @@ class Run:
             joined = self._combine(partial.take(pi), self.pool.take(ki), np.full(len(pi), row), np.full(len(pi), j),
                                    ki)
             kids_of = [kids_of[p] + (k,) for p, k in zip(pi, ki)]
-            keep = self._dominance(joined, None)
+            keep = self._dominance(joined, None, i)
             partial, kids_of = joined.take(keep), [kids_of[x] for x in keep]
         partial.kid = np.array([-2 - len(self.multi) - x for x in range(len(partial))], dtype=int)
         self.multi.extend(kids_of)
@@ -346,12 +401,63 @@ class Run:
             ~np.any(hi < glo * (1 - REL), axis=1) & (st.cmin[i] + lb.cost <= self.cap + self.cap_tol)
         if self.pmax is not None:
             ok &= ~(lb.power + st.plo[i] > self.pmax * (1 + REL))
+        if self.band:
+            ok &= self._band_possible(lb, i)
         lb.lo, lb.hi = lo, hi
         lb = lb.take(np.nonzero(ok)[0])
         p_floor = (self.pmax - st.phi[i]) if self.pmax is not None else None
-        return lb.take(self._dominance(lb, p_floor))
+        lb = lb.take(self._dominance(lb, p_floor, i))
+        return self._narrow(lb, i) if self.beam is not None and len(lb) > 3 * self.beam else lb
 
-    def _dominance(self, lb: Labels, p_floor) -> np.ndarray:
+    def _narrow(self, lb: Labels, i: int) -> Labels:
+        """A beam run's labels of one state: the cheapest few, the few accepting the lowest and the
+        highest upstream gains, and with band edges the few with the best response."""
+        k = self.beam
+        picks = [np.arange(min(k, len(lb)))]                      # lb is in cost order
+        picks.append(np.argsort(lb.lo.max(axis=1), kind="stable")[:k])
+        picks.append(np.argsort(-lb.hi.min(axis=1), kind="stable")[:k])
+        key = self._shape_key(lb, i)
+        if key is not None and key.shape[1]:
+            picks.append(np.argsort(-np.min(np.where(np.isinf(key), 1e300, key), axis=1), kind="stable")[:k])
+        return lb.take(np.unique(np.concatenate(picks)))
+
+    def _band_possible(self, lb: Labels, i: int) -> np.ndarray:
+        """Labels whose response can still meet every required band edge with the best reachable
+        upstream response at each frequency: the normalised response u·s must stay at or above
+        1/√2 at every span point that lies strictly inside the required band (a point below it
+        there puts the edge inside).  Labels without the output (a side branch) are kept."""
+        if lb.shape is None:
+            return np.ones(len(lb), dtype=bool)
+        prod = lb.shape * self.st.uhi[i]
+        ok = np.ones(len(lb), dtype=bool)
+        for need, _, _, _ in self.masks:
+            if need.any():
+                ok &= ~np.any(prod[:, need] < SQRT_HALF * (1 - REL), axis=1)
+        return ok | ~lb.has_shape
+
+    def _shape_key(self, lb: Labels, i: int):
+        """Dominance columns of the band edges: per targeted edge, the response at the points that
+        can move it, each point +inf where the label is at or above 1/√2 there for every reachable
+        upstream response (u_lo·s ≥ 1/√2: the edge cannot fall at that point whatever is placed
+        upstream, so no other response can do better there).  The pass/fail of an edge is decided
+        point by point except in the grid cell holding the limit, where the engine interpolates
+        between the two points: the inner one of them is capped only when the outer one is too
+        (then the edge lies beyond the limit).  Labels without the output get −inf (they carry no
+        response)."""
+        if not self.band or lb.shape is None:
+            return None
+        cols = []
+        low = self.st.ulo[i]
+        for _, rel, inner, outer in self.masks:
+            s = lb.shape[:, rel]
+            sure = s * low[rel] >= SQRT_HALF * (1 + REL)
+            if inner is not None:
+                sure[:, inner] &= sure[:, outer]
+            cols.append(np.where(sure, np.inf, s))
+        key = np.concatenate(cols, axis=1)
+        return np.where(lb.has_shape[:, None], key, -np.inf)
+
+    def _dominance(self, lb: Labels, p_floor, i: int) -> np.ndarray:
         if len(lb) <= 1:
             return np.arange(len(lb))
         idx = order(lb)
@@ -360,14 +466,22 @@ class Run:
             if lb.lo.shape[1] == 1 and self.pmax is None and not self.band:
                 return interval_cover(lb.lo[:, 0], lb.hi[:, 0])
             ranked.cost, ranked.nbuf, ranked.parts = (np.zeros(len(idx)),) * 3
-        return idx[nondominated(ranked, p_floor if self.pmax is not None else None,
-                                np.nonzero(self.rel)[0] if self.band else None)]
+        key = self._shape_key(ranked, i)
+        return idx[nondominated(ranked, p_floor if self.pmax is not None else None, key)]
 
     # -- at the source ---------------------------------------------------------------------------
     def best(self, root: Labels):
-        """Row (in ``root``) of the cheapest label meeting every target, or None."""
+        """(row in ``root`` of the cheapest label meeting every target, or None; the other rows
+        meeting every target that tie with it on cost, buffers and parts)."""
         ok = [q for q in range(len(root)) if self._meets(root, q)]
-        return min(ok, key=lambda q: (root.cost[q], root.nbuf[q], root.parts[q]), default=None)
+        if not ok:
+            return None, []
+        key = lambda q: (root.cost[q], root.nbuf[q], root.parts[q])  # noqa: E731
+        first = min(ok, key=key)
+        c0 = root.cost[first]
+        tied = [q for q in ok if q != first and abs(root.cost[q] - c0) <= REL * max(1.0, abs(c0))
+                and root.nbuf[q] == root.nbuf[first] and root.parts[q] == root.parts[first]]
+        return first, tied
 
     def _meets(self, lb: Labels, q: int) -> bool:
         if np.any(lb.lo[q] > 1 + REL) or np.any(lb.hi[q] < 1 - REL):
@@ -457,6 +571,33 @@ def relevant_mask(chain: Chain, t) -> np.ndarray:
         first = before[-1] if len(before) else 0
         mask[first:last + 1] = True
     return mask
+
+
+SQRT_HALF = math.sqrt(0.5)
+
+
+def band_masks(chain: Chain, t) -> list:
+    """Per targeted band edge, (need, rel, inner, outer): ``rel`` the span points whose values can
+    move the edge across its limit (``relevant_mask`` for that edge alone), ``need`` the points
+    strictly inside the required band on that side of f_ref (below 1/√2 at one of them, the
+    engine's edge lies inside the band: the edge is the first point below 1/√2 going outward from
+    f_ref, interpolated towards the previous one), and the positions within ``rel`` of the two
+    points of the grid cell that holds the limit (inner, outer; None when the limit lies beyond the
+    span)."""
+    span = frequency_grid(chain)[1:]
+    f_ref = chain.analysis.f_ref_hz
+    out = []
+    if t.min_f_high_hz is not None:
+        rel = relevant_mask(chain, types.SimpleNamespace(min_f_high_hz=t.min_f_high_hz, max_f_low_hz=None))
+        n = int(rel.sum())
+        cell = (n - 2, n - 1) if n >= 2 and span[-1] >= t.min_f_high_hz else (None, None)
+        out.append(((span > f_ref) & (span < t.min_f_high_hz), rel, *cell))
+    if t.max_f_low_hz is not None:
+        rel = relevant_mask(chain, types.SimpleNamespace(min_f_high_hz=None, max_f_low_hz=t.max_f_low_hz))
+        n = int(rel.sum())
+        cell = (1, 0) if n >= 2 and span[0] <= t.max_f_low_hz else (None, None)
+        out.append(((span <= f_ref) & (span > t.max_f_low_hz), rel, *cell))
+    return out
 
 
 def _nan(x):

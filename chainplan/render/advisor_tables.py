@@ -121,39 +121,74 @@ def _effect_dict(e: CandidateEffect) -> dict:
 
 # -- placement ------------------------------------------------------------------------------
 
-def plan_tables(p: Plan, console, requirements=None) -> None:
+def plan_tables(p: Plan, console, requirements=None, report_only=()) -> None:
     from rich.text import Text
     chain_heading(p.chain, console)
     console.print("targets: " + "; ".join(target_text(p.targets, k) + _origin(p, k) for k in p.targets.kinds()))
+    if p.conflicts:
+        console.print(Text("The targets contradict each other; nothing was searched:", style="bold red"))
+        for line in p.conflicts:
+            console.print(f"  {line}")
+        return
     if p.feasible:
         rows = [[f"{pl.source} → {pl.reader}", pl.buffer, pl.candidate, eng(pl.power_w, "W"),
                  "—" if pl.price is None else f"{pl.price:g}", str(pl.count)] for pl in p.placements]
         if not p.placements:
             rows.append(["(none: the chain meets the targets as it is)", "", "", "", "", ""])
+        head = "Cheapest placement" if p.proven else "Best placement found (not proven optimal)"
         print_table(console, [Col("interface", wrap=2), Col("buffer", wrap=True), Col("candidate", wrap=True),
                               Col("power", right=True), Col("price", right=True), Col("parts", right=True)], rows,
-                    title=f"Cheapest placement by {p.cost_basis}: {_cost_text(p)}, "
+                    title=f"{head} by {p.cost_basis}: {_cost_text(p)}, "
                           f"{p.n_buffers} buffer{'s' if p.n_buffers != 1 else ''}")
+        if not p.proven:
+            console.print(f"the {_stop_text(p)} ran out before the search proved this optimal: no placement "
+                          f"costs less than {_cost_value(p, p.lower_bound)} (gap {_cost_value(p, p.gap)}); "
+                          "a longer --time-limit may find a cheaper one or prove this one")
+        if p.ties:
+            console.print(f"{p.ties} other placement{'s' if p.ties != 1 else ''} of the same cost and buffer count "
+                          "met the targets; this one keeps the most margin on its tightest target")
         print_table(console, [Col("figure", wrap=2), Col("before", right=True), Col("after", right=True),
                               Col("target", wrap=True)], _figure_rows(p), title="Before and after (full analyses)")
+    elif not p.proven:
+        console.print(Text(f"No placement found before the {_stop_text(p)} ran out; not proven impossible "
+                           "(a longer --time-limit may find one).", style="bold red"))
+        if p.lower_bound:
+            console.print(f"any placement meeting the targets costs more than {_cost_value(p, p.lower_bound)}")
     else:
         console.print(Text("No placement of the candidates meets the targets.", style="bold red"))
-        print_table(console, [Col("target", wrap=2), Col("best reachable", wrap=True), Col("while", wrap=True)],
-                    [[s.target, s.best, "the other targets are met" if s.with_others else "on its own"]
+        print_table(console, [Col("target", wrap=2), Col("best reachable", wrap=True), Col("while", wrap=True),
+                              Col("limited by", wrap=True)],
+                    [[s.target, s.best if s.proven else f"at least {s.best} (time limit reached)",
+                      "the other targets are met" if s.with_others else "on its own", s.limiter]
                      for s in p.shortfalls], title="What cannot be met")
     if requirements:
         from ..studies.requirements import show
         print_table(console, [Col("requirement", wrap=2), Col("value", right=True), Col("limit", right=True),
                               Col("status")],
                     [[r.name, show(float(r.value[0]), r.unit), show(r.limit, r.unit),
-                      "met" if r.passed[0] else "FAILS"] for r in requirements], title="Spec requirements on the result",
+                      ("met" if r.passed[0] else "FAILS") + (" (report only)" if r.name in report_only else "")]
+                     for r in requirements], title="Spec requirements on the result",
                     styles=[None if r.passed[0] else "bold red" for r in requirements])
     if p.targets.skipped:
         console.print("not targeted by the optimiser" + (" (checked on the result above)" if requirements else "")
                       + ": " + ", ".join(p.targets.skipped))
+    if p.targets.report_only:
+        console.print("left out of the targets by --targets (only reported): " + ", ".join(p.targets.report_only))
     st = p.stats
     console.print(f"search: {st.get('states', 0)} states, {st.get('analyses', 0)} region analyses in "
                   f"{st.get('engine_calls', 0)} engine calls, {st.get('seconds', 0.0):.2f} s")
+
+
+def _stop_text(p: Plan) -> str:
+    return "memory bound" if p.stats.get("stopped") == "memory" else "time limit"
+
+
+def _cost_value(p: Plan, x) -> str:
+    if x is None:
+        return "—"
+    if p.cost_basis == "power":
+        return eng(x, "W")
+    return f"price {x:g}" if p.cost_basis == "price" else f"{x:g} parts"
 
 
 def _origin(p: Plan, kind: str) -> str:
@@ -184,6 +219,8 @@ def _figure_rows(p: Plan) -> list[list[str]]:
                  "—" if t.min_f_high_hz is None else f"≥ {eng(t.min_f_high_hz, 'Hz')}"])
     rows.append(["follower power", eng(b.power_w, "W"), eng(a.power_w, "W"),
                  "—" if t.max_power_w is None else f"≤ {eng(t.max_power_w, 'W')}"])
+    rows.append(["worst loading loss", db(-b.loss_db, 2), db(-a.loss_db, 2),
+                 "—" if t.max_loss_db is None else f"≤ {t.max_loss_db:.2f} dB lost"])
     return rows
 
 
@@ -203,12 +240,14 @@ def plan_dict(p: Plan, requirements=None) -> dict:
     return clean({
         "chain": p.chain.name, "file": p.chain.path, "hazards": p.chain.hazards,
         "caution": safety_notice(p.chain.hazards), "feasible": p.feasible, "cost_basis": p.cost_basis,
-        "cost": p.cost, "n_buffers": p.n_buffers,
+        "cost": p.cost, "n_buffers": p.n_buffers, "proven": p.proven, "lower_bound": p.lower_bound,
+        "gap": p.gap, "ties": p.ties, "conflicts": p.conflicts,
         "targets": {"min_gain_db": [{"f_hz": f, "db": v} for f, v in t.min_gain_db.items()],
                     "max_gain_db": [{"f_hz": f, "db": v} for f, v in t.max_gain_db.items()],
                     "min_headroom_v": t.min_headroom_v, "node_headroom_v": t.node_headroom_v,
                     "min_f_high_hz": t.min_f_high_hz, "max_f_low_hz": t.max_f_low_hz,
-                    "max_power_w": t.max_power_w, "from": t.origin, "not_targeted": t.skipped},
+                    "max_power_w": t.max_power_w, "max_loading_loss_db": t.max_loss_db, "from": t.origin,
+                    "not_targeted": t.skipped, "report_only": t.report_only},
         "placements": [{"from": pl.source, "to": pl.reader, "buffer": pl.buffer, "candidate": pl.candidate,
                         "power_w": pl.power_w, "price": pl.price, "count": pl.count} for pl in p.placements],
         "before": _measured_dict(p.before),
@@ -222,8 +261,10 @@ def plan_dict(p: Plan, requirements=None) -> dict:
 def _measured_dict(m: Measured) -> dict:
     return {"valid": m.valid, "gain_db": [{"f_hz": f, "db": v} for f, v in m.gain_db.items()],
             "f_low_hz": m.f_low_hz, "f_high_hz": m.f_high_hz, "min_headroom_v": m.min_headroom_v,
-            "min_headroom_node": m.min_headroom_node, "follower_power_w": m.power_w, "margins": m.margins}
+            "min_headroom_node": m.min_headroom_node, "follower_power_w": m.power_w,
+            "worst_loading_loss_db": m.loss_db, "margins": m.margins}
 
 
 def _shortfall_dict(s: Shortfall) -> dict:
-    return {"kind": s.kind, "target": s.target, "best_reachable": s.best, "with_other_targets_met": s.with_others}
+    return {"kind": s.kind, "target": s.target, "best_reachable": s.best, "with_other_targets_met": s.with_others,
+            "proven": s.proven, "limited_by": s.limiter}
