@@ -3,7 +3,8 @@ with a side branch, and with a candidate that brings its own input bias
 network, its source at 0 V) every placement of every candidate is analysed in
 full by the engine, independently of the optimiser, and the optimiser must find
 the same feasibility, the same least cost (price and power) and the same number
-of buffers; when nothing is feasible, the best gain it reports reachable must
+of buffers, for gain, headroom, band-edge (upper and lower), power and
+loading-loss targets; when nothing is feasible, the best gain it reports reachable must
 be the brute-force best."""
 from __future__ import annotations
 
@@ -35,7 +36,8 @@ _TABLES: dict = {}
 
 def table(chain):
     """Every placement analysed in full: (valid, gain dB, min headroom V, f_high, price, power, buffers,
-    power of all follower-type stages, f_low); made once per chain (the chains are cached too)."""
+    power of all follower-type stages, f_low, worst loading loss dB); made once per chain (the chains
+    are cached too)."""
     if id(chain) not in _TABLES:
         _TABLES[id(chain)] = _table(chain)
     return _TABLES[id(chain)]
@@ -50,6 +52,7 @@ def _table(chain):
         b = insert_buffers(chain, placement)
         with np.errstate(all="ignore"):
             ev = evaluate(b)
+            loss = max(float(ev.interface_loss_db(st.name, 0)[0]) for st in b.stages)
         valid = bool(ev.valid[0])
         gain = float(20 * np.log10(abs(ev.gain()[0, 0])))
         room = min(float(ev.headroom(n)[0]) for n in b.nodes)
@@ -60,7 +63,7 @@ def _table(chain):
                     if st.model.follower_type)
         price = sum(c.price for c in placement.values())
         rows.append((valid, gain, room, math.inf if math.isnan(f_hi) else f_hi, price, power, len(placement),
-                     total, 0.0 if math.isnan(f_lo) else f_lo))
+                     total, 0.0 if math.isnan(f_lo) else f_lo, loss))
     return rows
 
 
@@ -69,7 +72,8 @@ def best(rows, t: Targets, basis):
           and r[2] >= (t.min_headroom_v if t.min_headroom_v is not None else -math.inf)
           and r[3] >= (t.min_f_high_hz or 0.0)
           and r[7] <= (t.max_power_w if t.max_power_w is not None else math.inf)
-          and r[8] <= (t.max_f_low_hz if t.max_f_low_hz is not None else math.inf)]
+          and r[8] <= (t.max_f_low_hz if t.max_f_low_hz is not None else math.inf)
+          and r[9] <= (t.max_loss_db if t.max_loss_db is not None else math.inf)]
     if not ok:
         return None
     col = 4 if basis == "price" else 5
@@ -135,6 +139,9 @@ def compare_with_brute_force(seed, fanout, biased):
     if lows:
         targets.append(Targets(min_gain_db={F_REF: between([r[1] for r in valid], 0.4)},
                                max_f_low_hz=between(lows, 0.5)))
+    losses = [r[9] for r in valid if math.isfinite(r[9])]
+    targets.append(Targets(min_gain_db={F_REF: between([r[1] for r in valid], 0.3)},
+                           max_loss_db=between(losses, rng.uniform(0.2, 0.6))))
     needed, gate = 0, 0
     for t in targets:
         for basis in ("price", "power"):

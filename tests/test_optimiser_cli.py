@@ -58,7 +58,8 @@ def test_write_keeps_the_text_and_reads_back(project, capsys):
 def test_write_with_from_fields_repoints_the_reader(project, capsys):
     src = project / "vibration_fanout.yaml"
     new = project / "fan_buffered.yaml"
-    code, out, err = cli(["buffers", src, "--min-gain", "19.9 dB", "--cost", "power", "--write", new], capsys)
+    code, out, err = cli(["buffers", src, "--min-gain", "19.9 dB", "--cost", "power", "--time-limit", "0",
+                          "--write", new], capsys)
     assert code == 0, err
     chain = load_chain(str(new))
     adc = chain.stage("adc")

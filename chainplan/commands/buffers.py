@@ -29,9 +29,9 @@ def add_arguments(p):
                    help="which of the spec's requirements to target (names or kinds, e.g. 'min_gain,"
                         "max_loading_loss'; 'none' for the options alone); the others are only checked "
                         "and reported (default: all it can target)")
-    g.add_argument("--time-limit", metavar="SECONDS", default="5",
+    g.add_argument("--time-limit", metavar="SECONDS", default=None,
                    help="stop searching after this long and give the best placement found, marked as not "
-                        "proven optimal, with its gap to the proved lower bound (default 5; 0: no limit)")
+                        "proven optimal, with its gap to the proved lower bound (default 10; 0: no limit)")
     g.add_argument("--cost", choices=("power", "price", "parts"),
                    help="what to minimise (default: price if every candidate has one, else power)")
     g.add_argument("--write", metavar="NEW.yaml", help="write the chain with the chosen buffers as a new spec")
@@ -141,6 +141,9 @@ def _value(text, unit, opt, positive=False):
 
 
 def _time_limit(text):
+    if text is None:
+        from ..placement.optimiser import TIME_LIMIT_S
+        return TIME_LIMIT_S
     try:
         v = float(text)
     except ValueError:

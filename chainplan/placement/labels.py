@@ -76,7 +76,7 @@ class Pool:
         return Labels(**{f: a[idx] for f, a in self.store.items()})
 
 
-def nondominated(lb: Labels, p_floor, shape_key) -> np.ndarray:
+def nondominated(lb: Labels, p_floor, shape_key, check=None) -> np.ndarray:
     """Indices of the labels no other label dominates, the labels sorted by :func:`order` first;
     of two that dominate each other within the tolerance the first is kept.  ``a`` dominates ``b``
     when it costs no more (a cost within REL is a tie, then fewer buffers, then fewer parts), draws no more power
@@ -103,15 +103,19 @@ def nondominated(lb: Labels, p_floor, shape_key) -> np.ndarray:
             ok &= np.all(shape[a] * (1 + REL) >= shape[b], axis=-1)
         return ok
 
-    if n <= 2048:                   # the whole matrix at once: D[i, j] = label i dominates label j
+    width = 1 if shape is None else max(1, shape.shape[1])
+    if n <= 2048 and n * n * width <= 1 << 24:    # the whole matrix at once: D[i, j] = label i dominates label j
         dom = dominates(np.arange(n)[:, None], np.arange(n)[None, :])
         beaten = dom & (~dom.T | np.tri(n, k=-1, dtype=bool).T)
         np.fill_diagonal(beaten, False)
         return np.nonzero(~beaten.any(axis=0))[0]
     everyone = np.arange(n)
     keep = np.ones(n, dtype=bool)
-    for start in range(0, n, 256):
-        rows = everyone[start:start + 256]
+    step = max(1, min(256, (1 << 24) // (n * width)))     # blocks of rows: memory stays bounded
+    for start in range(0, n, step):
+        if check is not None:
+            check()
+        rows = everyone[start:start + step]
         beaten = dominates(rows[:, None], everyone[None, :]) & \
             (~dominates(everyone[None, :], rows[:, None]) | (rows[:, None] < everyone[None, :]))
         beaten[np.arange(len(rows)), rows] = False

@@ -324,7 +324,8 @@ def measure(chain: Chain, targets: Targets, buffered: Chain | None = None, ev=No
         margins["f_low"] = 1 - f_lo / targets.max_f_low_hz if targets.max_f_low_hz > 0 else -f_lo
     if targets.max_power_w is not None:
         margins["power"] = targets.max_power_w - power
-    worst_loss = max((-float(ev.interface_loss_db(st.name, 0)[0]) for st in c.stages), default=0.0)
+    with np.errstate(all="ignore"):
+        worst_loss = max((float(ev.interface_loss_db(st.name, 0)[0]) for st in c.stages), default=0.0)
     if targets.max_loss_db is not None:
         margins["loss"] = targets.max_loss_db - worst_loss
     finite = [(r, n) for n, (r, _) in rooms.items() if math.isfinite(r)]
@@ -361,13 +362,13 @@ def _grid(chain: Chain, targets: Targets) -> tuple[np.ndarray, dict]:
 
 
 #: Default time budget of one optimisation (seconds): the best plan found by then is returned.
-TIME_LIMIT_S = 5.0
+TIME_LIMIT_S = 10.0
 #: Labels per state kept by the heuristic (beam) run that finds a first plan.
 BEAM = 6
 
 
 def optimise(chain: Chain, targets: Targets, candidates: list[Candidate] | None = None,
-             basis: str | None = None, explain: bool = True, time_limit: float | None = TIME_LIMIT_S,
+             basis: str | None = None, explain: bool = True, time_limit: float | None = None,
              max_labels: int = MAX_LABELS, progress=None) -> Plan:
     """The cheapest placement of candidate buffers meeting ``targets`` (see the module docstring).
     When none does and ``explain`` is set, the plan's shortfalls say which target cannot be met
@@ -594,16 +595,41 @@ def _feasible(search: Search, targets: Targets, limits=None):
     return None if q is None else run.choices(root, q)
 
 
+#: Labels an exact feasibility search of the explanation may hold before it falls back to the
+#: heuristic (beam) run: what that finds is reachable, but not proven the best.
+EXPLAIN_LABELS = 2_000
+
+
+class _Some:
+    """Feasibility checks of one explanation: exact while the label sets stay small, else the
+    heuristic run; remembers whether every answer was exact."""
+
+    def __init__(self, search, limits):
+        self.search, self.limits, self.exact = search, limits, True
+
+    def __call__(self, targets):
+        small = Limits(None, min(EXPLAIN_LABELS, self.limits.max_labels))
+        small.deadline = self.limits.deadline
+        try:
+            return _feasible(self.search, targets, small)
+        except Stopped as stop:
+            if stop.reason == "time":
+                raise
+        self.exact = False
+        return _beam(self.search, targets, self.limits)
+
+
 def shortfalls(search: Search, targets: Targets, limits=None) -> list[Shortfall]:
     """Which targets cannot be met, and the best value reachable for each: while
     meeting the other targets if that is possible, else on its own.  When ``limits`` run out the
     values found so far are reported (reachable, but not proven the best)."""
     limits = limits or Limits(None)
+    some = _Some(search, limits)
     kinds = targets.kinds()
     blocking = []
     try:
         for k in kinds:
-            if _feasible(search, targets.only([x for x in kinds if x != k]), limits) is not None:
+            if some(targets.only([x for x in kinds if x != k])) is not None:
                 blocking.append(k)
     except Stopped:
         return [Shortfall(k, target_text(targets, k), "not found within the time limit", None, False, False)
@@ -612,17 +638,17 @@ def shortfalls(search: Search, targets: Targets, limits=None) -> list[Shortfall]
     out = []
     for k in (blocking or kinds):
         others = [x for x in kinds if x != k] if with_others else []
-        out.append(_best_reachable(search, targets, k, others, with_others, limits))
+        out.append(_best_reachable(search, targets, k, others, with_others, some))
     return out
 
 
 def _best_reachable(search: Search, targets: Targets, kind: str, others: list, with_others: bool,
-                    limits) -> Shortfall:
+                    some) -> Shortfall:
     """Bisect the target of ``kind`` between a reachable value and the target itself."""
     chain = search.chain
     base = targets.only(others)
     try:
-        picks = _feasible(search, base, limits)
+        picks = some(base)
     except Stopped:
         return Shortfall(kind, target_text(targets, kind), "not found within the time limit", None, with_others,
                          False)
@@ -638,7 +664,7 @@ def _best_reachable(search: Search, targets: Targets, kind: str, others: list, w
                 break
             mid = _mid(kind, lo_v, hi_v)
             trial = _with_knob(targets, kind, mid, base)
-            found = _feasible(search, trial, limits)
+            found = some(trial)
             if found is not None:
                 lo_v, picks = mid, found
             else:
@@ -646,7 +672,7 @@ def _best_reachable(search: Search, targets: Targets, kind: str, others: list, w
     except Stopped:
         proven = False
     return Shortfall(kind, target_text(targets, kind), _knob_text(targets, kind, lo_v), lo_v, with_others,
-                     proven, _limiter(search, picks))
+                     proven and some.exact, _limiter(search, picks))
 
 
 def _limiter(search: Search, picks: dict) -> str:
@@ -657,12 +683,12 @@ def _limiter(search: Search, picks: dict) -> str:
     with np.errstate(all="ignore"):
         ev = evaluate(b)
         losses = [(float(ev.interface_loss_db(st.name, 0)[0]), st) for st in b.stages]
-    worst = min(losses, key=lambda x: x[0], default=None)
+    worst = max(losses, key=lambda x: x[0], default=None)
     used = ", ".join(f"{search.cands[o].name} at {r}" for r, o in sorted(picks.items())) or "no buffer"
     if worst is None or not math.isfinite(worst[0]):
         return f"with {used}"
     st = worst[1]
-    return f"with {used}; the worst interface left is {st.parent} → {st.name} ({worst[0]:+.2f} dB)".replace("-", "−")
+    return f"with {used}; the worst interface left is {st.parent} → {st.name} ({worst[0]:.2f} dB lost)"
 
 
 def _knob(targets: Targets, kind: str, m: Measured):

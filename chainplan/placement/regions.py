@@ -357,7 +357,7 @@ class Regions:
         # repeats the loss of the real interface below it, a terminal is the next cut's input
         loss = np.zeros(n)
         for st in sub.stages:
-            lost = -np.broadcast_to(np.ravel(ev.interface_loss_db(st.name, 0)), (n,))
+            lost = np.broadcast_to(np.ravel(ev.interface_loss_db(st.name, 0)), (n,))
             loss = np.fmax(loss, lost)
         tn = w.term_node[shape_of]                                   # (n, T) node each terminal reads
         tr = np.where(tn >= 0, rep[rows[:, None], np.maximum(tn, 0)], -1)

@@ -12,14 +12,14 @@ from __future__ import annotations
 
 import math
 import time
-import types
+
 
 import numpy as np
 
-from ..engine.budget import Evaluation, frequency_grid
 from .labels import REL, Labels, Pool, nondominated, order
 from ..spec.model import Chain
 from ..spec.parts import Candidate
+from .band import BandRule
 from .regions import ROOT, Regions
 
 V_KEY = 1e-12       # DC levels that round to the same multiple of this (V) are one state
@@ -148,7 +148,7 @@ class Run:
         P = search.chain.analysis.points if self.band else 0
         self.st = _States(ncol, P)
         if self.band:
-            self.masks = band_masks(search.chain, targets)
+            self.rule = BandRule(search.chain, targets)
         self.index: dict = {}          # (key, vkey) -> state
         self.keys_at: dict = {}        # reader -> {key: [its states]}, in order of appearance
         self.edges: dict = {}          # reader -> the wave's surviving (state, shape) pairs
@@ -422,40 +422,16 @@ class Run:
         return lb.take(np.unique(np.concatenate(picks)))
 
     def _band_possible(self, lb: Labels, i: int) -> np.ndarray:
-        """Labels whose response can still meet every required band edge with the best reachable
-        upstream response at each frequency: the normalised response u·s must stay at or above
-        1/√2 at every span point that lies strictly inside the required band (a point below it
-        there puts the edge inside).  Labels without the output (a side branch) are kept."""
+        """Labels that can still meet the band edges (``chainplan.placement.band``)."""
         if lb.shape is None:
             return np.ones(len(lb), dtype=bool)
-        prod = lb.shape * self.st.uhi[i]
-        ok = np.ones(len(lb), dtype=bool)
-        for need, _, _, _ in self.masks:
-            if need.any():
-                ok &= ~np.any(prod[:, need] < SQRT_HALF * (1 - REL), axis=1)
-        return ok | ~lb.has_shape
+        return self.rule.possible(lb.shape, lb.has_shape, self.st.ulo[i], self.st.uhi[i])
 
     def _shape_key(self, lb: Labels, i: int):
-        """Dominance columns of the band edges: per targeted edge, the response at the points that
-        can move it, each point +inf where the label is at or above 1/√2 there for every reachable
-        upstream response (u_lo·s ≥ 1/√2: the edge cannot fall at that point whatever is placed
-        upstream, so no other response can do better there).  The pass/fail of an edge is decided
-        point by point except in the grid cell holding the limit, where the engine interpolates
-        between the two points: the inner one of them is capped only when the outer one is too
-        (then the edge lies beyond the limit).  Labels without the output get −inf (they carry no
-        response)."""
+        """Dominance columns of the band edges (``chainplan.placement.band``), None without them."""
         if not self.band or lb.shape is None:
             return None
-        cols = []
-        low = self.st.ulo[i]
-        for _, rel, inner, outer in self.masks:
-            s = lb.shape[:, rel]
-            sure = s * low[rel] >= SQRT_HALF * (1 + REL)
-            if inner is not None:
-                sure[:, inner] &= sure[:, outer]
-            cols.append(np.where(sure, np.inf, s))
-        key = np.concatenate(cols, axis=1)
-        return np.where(lb.has_shape[:, None], key, -np.inf)
+        return self.rule.key(lb.shape, lb.has_shape, self.st.ulo[i], self.st.uhi[i])
 
     def _dominance(self, lb: Labels, p_floor, i: int) -> np.ndarray:
         if len(lb) <= 1:
@@ -467,7 +443,7 @@ class Run:
                 return interval_cover(lb.lo[:, 0], lb.hi[:, 0])
             ranked.cost, ranked.nbuf, ranked.parts = (np.zeros(len(idx)),) * 3
         key = self._shape_key(ranked, i)
-        return idx[nondominated(ranked, p_floor if self.pmax is not None else None, key)]
+        return idx[nondominated(ranked, p_floor if self.pmax is not None else None, key, self.limits.check)]
 
     # -- at the source ---------------------------------------------------------------------------
     def best(self, root: Labels):
@@ -489,11 +465,7 @@ class Run:
         if self.pmax is not None and lb.power[q] > self.pmax * (1 + REL):
             return False
         if self.band:
-            f_lo, f_hi = band_edges_of(self.s.chain, lb.shape[q])
-            if self.t.min_f_high_hz is not None and f_hi < self.t.min_f_high_hz * (1 - REL):
-                return False
-            if self.t.max_f_low_hz is not None and f_lo > self.t.max_f_low_hz * (1 + REL):
-                return False
+            return self.rule.meets(lb.shape[q])
         return True
 
     def choices(self, root: Labels, q: int) -> dict:
@@ -540,64 +512,6 @@ def _zeros(n: int, ncol: int, points: int) -> Labels:
     z = np.zeros(n)
     return Labels(cost=z, nbuf=z, parts=z, power=z, lo=np.zeros((n, ncol)), hi=np.zeros((n, ncol)),
                   shape=np.zeros((n, points)), has_shape=np.zeros(n, dtype=bool))
-
-
-def band_edges_of(chain: Chain, shape: np.ndarray) -> tuple[float, float]:
-    """−3 dB edges of a normalised response over the span, by the engine's own
-    interpolation (``Evaluation.band_edges``); no edge: 0 below, inf above."""
-    mag = np.concatenate(([1.0], shape))[None, :]
-    span = frequency_grid(chain)[1:]
-    shim = types.SimpleNamespace(gain=lambda node=None: mag, span=span, chain=chain)
-    lo, hi = Evaluation.band_edges(shim)
-    lo, hi = float(lo[0]), float(hi[0])
-    return (0.0 if math.isnan(lo) else lo), (math.inf if math.isnan(hi) else hi)
-
-
-def relevant_mask(chain: Chain, t) -> np.ndarray:
-    """Span points whose values can move a required band edge across its limit."""
-    span = frequency_grid(chain)[1:]
-    f_ref = chain.analysis.f_ref_hz
-    mask = np.zeros(len(span), dtype=bool)
-    below_ref = np.nonzero(span <= f_ref)[0]
-    above_ref = np.nonzero(span > f_ref)[0]
-    if t.min_f_high_hz is not None:
-        first = below_ref[-1] if len(below_ref) else 0
-        past = np.nonzero(span >= t.min_f_high_hz)[0]
-        last = past[0] if len(past) else len(span) - 1
-        mask[first:last + 1] = True
-    if t.max_f_low_hz is not None:
-        last = above_ref[0] if len(above_ref) else len(span) - 1
-        before = np.nonzero(span <= t.max_f_low_hz)[0]
-        first = before[-1] if len(before) else 0
-        mask[first:last + 1] = True
-    return mask
-
-
-SQRT_HALF = math.sqrt(0.5)
-
-
-def band_masks(chain: Chain, t) -> list:
-    """Per targeted band edge, (need, rel, inner, outer): ``rel`` the span points whose values can
-    move the edge across its limit (``relevant_mask`` for that edge alone), ``need`` the points
-    strictly inside the required band on that side of f_ref (below 1/√2 at one of them, the
-    engine's edge lies inside the band: the edge is the first point below 1/√2 going outward from
-    f_ref, interpolated towards the previous one), and the positions within ``rel`` of the two
-    points of the grid cell that holds the limit (inner, outer; None when the limit lies beyond the
-    span)."""
-    span = frequency_grid(chain)[1:]
-    f_ref = chain.analysis.f_ref_hz
-    out = []
-    if t.min_f_high_hz is not None:
-        rel = relevant_mask(chain, types.SimpleNamespace(min_f_high_hz=t.min_f_high_hz, max_f_low_hz=None))
-        n = int(rel.sum())
-        cell = (n - 2, n - 1) if n >= 2 and span[-1] >= t.min_f_high_hz else (None, None)
-        out.append(((span > f_ref) & (span < t.min_f_high_hz), rel, *cell))
-    if t.max_f_low_hz is not None:
-        rel = relevant_mask(chain, types.SimpleNamespace(min_f_high_hz=None, max_f_low_hz=t.max_f_low_hz))
-        n = int(rel.sum())
-        cell = (1, 0) if n >= 2 and span[0] <= t.max_f_low_hz else (None, None)
-        out.append(((span <= f_ref) & (span > t.max_f_low_hz), rel, *cell))
-    return out
 
 
 def _nan(x):

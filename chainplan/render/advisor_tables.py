@@ -158,7 +158,8 @@ def plan_tables(p: Plan, console, requirements=None, report_only=()) -> None:
         console.print(Text("No placement of the candidates meets the targets.", style="bold red"))
         print_table(console, [Col("target", wrap=2), Col("best reachable", wrap=True), Col("while", wrap=True),
                               Col("limited by", wrap=True)],
-                    [[s.target, s.best if s.proven else f"at least {s.best} (time limit reached)",
+                    [[s.target, s.best if s.proven or s.best_value is None
+                      else f"at least {s.best} (not proven the best)",
                       "the other targets are met" if s.with_others else "on its own", s.limiter]
                      for s in p.shortfalls], title="What cannot be met")
     if requirements:
@@ -219,8 +220,8 @@ def _figure_rows(p: Plan) -> list[list[str]]:
                  "—" if t.min_f_high_hz is None else f"≥ {eng(t.min_f_high_hz, 'Hz')}"])
     rows.append(["follower power", eng(b.power_w, "W"), eng(a.power_w, "W"),
                  "—" if t.max_power_w is None else f"≤ {eng(t.max_power_w, 'W')}"])
-    rows.append(["worst loading loss", db(-b.loss_db, 2), db(-a.loss_db, 2),
-                 "—" if t.max_loss_db is None else f"≤ {t.max_loss_db:.2f} dB lost"])
+    rows.append(["worst loading loss", f"{b.loss_db:.2f} dB", f"{a.loss_db:.2f} dB",
+                 "—" if t.max_loss_db is None else f"≤ {t.max_loss_db:.2f} dB"])
     return rows
 
 
