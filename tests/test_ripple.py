@@ -84,3 +84,11 @@ def test_bad_ripple_names_the_rail():
     with pytest.raises(SpecError) as e:
         chain_from(BIAS.replace("ripple: {vdd: 2 µV/√Hz}", "ripple: {vcc: 2 µV/√Hz}"))
     assert e.value.field == "power.ripple.vcc"
+
+
+def test_a_scalar_ripple_is_located():
+    """A bare number under 'ripple:' (a fuzz finding) names the file's line, not just the field."""
+    from chainplan.errors import SpecError
+    with pytest.raises(SpecError) as e:
+        chain_from(BIAS.replace("ripple: {vdd: 2 µV/√Hz}", "ripple: 3"))
+    assert e.value.field == "power.ripple" and e.value.line is not None

@@ -111,7 +111,8 @@ def parse_section(chain: Chain, node, line, path) -> None:
     ripple = {}
     if "ripple" in node:
         from .ripple import parse_ripple
-        ripple = parse_ripple(chain, node["ripple"], path)
+        ripple = parse_ripple(chain, node["ripple"], path,
+                              node.line_of("ripple") if hasattr(node, "line_of") else None)
     chain.extra["power"] = PowerSpec(cap, rails, ripple)
 
 

@@ -35,12 +35,12 @@ from ..stages.noise_sources import NoiseSource, density
 RAIL_FIELDS_OPAMP = ("v_pos", "v_neg")
 
 
-def parse_ripple(chain, node, path) -> dict:
+def parse_ripple(chain, node, path, line=None) -> dict:
     """``power: ripple:`` -> {rail: (density V/√Hz, corner Hz)}."""
     from ..spec.yamlsrc import LDict
     if not hasattr(node, "items"):
         raise SpecError("'ripple' maps rail names to densities, e.g. 'vdd: 2 µV/√Hz'", path,
-                        getattr(node, "line", None), "power.ripple")
+                        getattr(node, "line", None) or line, "power.ripple")
     out = {}
     for rail, raw in node.items():
         where, line = f"power.ripple.{rail}", node.line_of(rail) if isinstance(node, LDict) else None
