@@ -406,3 +406,14 @@ def test_a_fraction_near_the_float_limit_is_refused_with_a_finite_message(cli, p
     path, line = mutate(project, "hydrophone_buffered.yaml", "r_f: 39k ±1%", "r_f: 39k ±1e306")
     rc, _, err = cli("budget", path)
     assert rc == 2 and err.count("\n") == 1 and f":{line}: gain.r_f:" in err
+
+
+def test_the_api_takes_a_pathlib_path():
+    """chainplan.load accepts a pathlib.Path as well as a str (the public API; the bounded
+    reader once refused it with a TypeError)."""
+    import pathlib
+
+    import chainplan
+    root = pathlib.Path(__file__).resolve().parents[1]
+    assert chainplan.load(root / "chains" / "ph_probe_dc.yaml").name == chainplan.load(
+        str(root / "chains" / "ph_probe_dc.yaml")).name

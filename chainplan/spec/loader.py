@@ -7,6 +7,8 @@ also generates the JSON Schema.
 """
 from __future__ import annotations
 
+import os
+
 import dataclasses
 import importlib
 import math
@@ -56,6 +58,7 @@ class _Ctx:
 
 def load_chain(path: str) -> Chain:
     """Read and validate a chain spec file."""
+    path = os.fspath(path)          # a pathlib.Path is a path too
     return build_chain(load_file(path), path)
 
 

@@ -179,6 +179,7 @@ def read_text(path: str) -> str:
     """A spec or parts file's text: at most MAX_SPEC_BYTES read (``/dev/zero`` is refused
     after 1 MiB, not read until memory runs out), folders and unreadable files refused,
     UTF-8 decoded with the line of a bad byte."""
+    path = os.fspath(path)
     if "\0" in path:
         raise SpecError("a file name cannot contain a NUL byte", short(path))
     try:
