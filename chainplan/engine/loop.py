@@ -456,7 +456,8 @@ def _cf_effect(ev, st, cf) -> str:
     dg = 20 * math.log10(abs(ev2.gain()[0, 0]) / abs(ev1.gain()[0, 0]))
     edge = (f"band edge {fmt(hi2, 'Hz')} (now {fmt(hi1, 'Hz')})" if np.isfinite(hi1) and np.isfinite(hi2)
             else "band edge beyond the span")
-    return f"{edge}, gain {dg:+.2f} dB".replace("-", "−")
+    from ..spec.numbers import figure
+    return f"{edge}, gain {figure(dg, 'dB')}"
 
 
 # -- budget hook -------------------------------------------------------------------
