@@ -294,6 +294,26 @@ def generators(chain, st, p, s, op) -> list:
     return gens + ripple_generators(chain, st, p, s, gens)
 
 
+def _carried(ev: Evaluation, bandwidth: float):
+    """What both output-noise walks share: the stages on the path to the output, the
+    converter, and the in-band share of a converter's power (q²/12 spreads evenly over
+    0…f_sample/2; Kester, Analog Devices MT-001, from memory)."""
+    on_path = {ev.chain.source.name, *(st.name for st in ev.chain.path_to(ev.output))}
+    conv, _ = converter(ev)
+    f_sample = sample_rate(ev.chain, conv)
+    return on_path, conv, (1.0 if f_sample is None else min(1.0, bandwidth / (f_sample / 2.0)))
+
+
+def _carried_generators(ev: Evaluation, on_path, s):
+    """(stage, "stage: label", generator) of every noise generator carried to the output:
+    the stages on the path and the first stage of each side branch."""
+    for st in ev.chain.all_stages:
+        if st.name not in on_path and st.parent not in on_path:
+            continue
+        for g in generators(ev.chain, st, ev.params[st.name], s, ev.dc.ops[st.name]):
+            yield st, f"{st.name}: {g.label}", g
+
+
 def output_psds(ev: Evaluation, bandwidth: float) -> list:
     """Every generator's PSD at the output over ev.f_hz: [(stage, name, (S, F+1)
     V²/Hz, power (S,) or None)].  Converter powers come with a flat PSD power/bandwidth;
@@ -306,32 +326,24 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
     s = (2j * np.pi * ev.f_hz)[None, :]
     h = ac.node_h.scaled(out)                 # with rows in the output's scale (long chains)
     shape = (ev.samples, h.shape[1])
-    on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
-    conv, _ = converter(ev)
-    f_sample = sample_rate(ev.chain, conv)
-    in_band = 1.0 if f_sample is None else min(1.0, bandwidth / (f_sample / 2.0))
+    on_path, conv, in_band = _carried(ev, bandwidth)
     res = []
-    for st in chain.all_stages:
-        if st.name not in on_path and st.parent not in on_path:
+    for st, name, g in _carried_generators(ev, on_path, s):
+        if g.power_v2 is not None:
+            if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
+                power = np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float)) * in_band, (shape[0],))
+                res.append((st.name, name, np.broadcast_to(power[:, None] / bandwidth, shape), power))
             continue
-        p = ev.params[st.name]
-        for g in generators(ev.chain, st, p, s, ev.dc.ops[st.name]):
-            name = f"{st.name}: {g.label}"
-            if g.power_v2 is not None:
-                if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
-                    power = np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float)) * in_band, (shape[0],))
-                    res.append((st.name, name, np.broadcast_to(power[:, None] / bandwidth, shape), power))
-                continue
-            if not np.any(np.asarray(g.psd) != 0):
-                continue
-            if st.name in on_path:
-                a_k, b_k, a, b = _rows_at(ac, st, out)
-                dvs = _combine((a_k, b_k, a, b), (g.out_v, g.out_i, -g.in_v, -g.in_i))
-            else:
-                dvs = (ac.row[st.parent][1] * ac.scale_between(st.parent, out)
-                       * _combine((ac.y_in[st.name], -1.0), (g.in_v, g.in_i)))
-            t = h * dvs
-            res.append((st.name, name, np.broadcast_to(g.psd * (t.real ** 2 + t.imag ** 2), shape), None))
+        if not np.any(np.asarray(g.psd) != 0):
+            continue
+        if st.name in on_path:
+            a_k, b_k, a, b = _rows_at(ac, st, out)
+            dvs = _combine((a_k, b_k, a, b), (g.out_v, g.out_i, -g.in_v, -g.in_i))
+        else:
+            dvs = (ac.row[st.parent][1] * ac.scale_between(st.parent, out)
+                   * _combine((ac.y_in[st.name], -1.0), (g.in_v, g.in_i)))
+        t = h * dvs
+        res.append((st.name, name, np.broadcast_to(g.psd * (t.real ** 2 + t.imag ** 2), shape), None))
     return res
 
 
@@ -348,33 +360,25 @@ def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
     h = ac.node_h.scaled(out)[:, 1:]          # with rows in the output's scale (long chains)
     hw2 = np.repeat((h.real ** 2 + h.imag ** 2) * w, 2, axis=1)      # w·|H|² beside Re and Im
     n = max(h.shape[0], ev.samples)     # the transfer may be one row while a power varies per sample
-    on_path = {chain.source.name, *(st.name for st in chain.path_to(out))}
-    conv, _ = converter(ev)
-    f_sample = sample_rate(ev.chain, conv)
-    in_band = 1.0 if f_sample is None else min(1.0, bandwidth / (f_sample / 2.0))
+    on_path, conv, in_band = _carried(ev, bandwidth)
     span = lambda x: x[:, 1:] if np.ndim(x) == 2 and np.shape(x)[1] > 1 else x  # noqa: E731
     res = []
-    for st in chain.all_stages:
-        if st.name not in on_path and st.parent not in on_path:
+    for st, name, g in _carried_generators(ev, on_path, s):
+        if g.power_v2 is not None:
+            if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
+                res.append((st.name, name, np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float))
+                                                           * in_band, (n,))))
             continue
-        p = ev.params[st.name]
-        for g in generators(ev.chain, st, p, s, ev.dc.ops[st.name]):
-            name = f"{st.name}: {g.label}"
-            if g.power_v2 is not None:
-                if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
-                    res.append((st.name, name, np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float))
-                                                               * in_band, (n,))))
-                continue
-            if not np.any(np.asarray(g.psd) != 0):
-                continue
-            if st.name in on_path:
-                a_k, b_k, a, b = _rows_at(ac, st, out)
-                dvs = _terms(((a_k, g.out_v), (b_k, g.out_i)), span, ws)
-                dvs = _sub(dvs, _terms(((a, g.in_v), (b, g.in_i)), span, ws), ws)
-            else:
-                dvs = _sub(_terms(((ac.y_in[st.name], g.in_v),), span, ws), _terms(((1.0, g.in_i),), span, ws), ws)
-                dvs = wsa.mul(wsa.mul(span(ac.row[st.parent][1]), ac.scale_between(st.parent, out)), dvs, ws)
-            res.append((st.name, name, _weighted_power(dvs, span(np.asarray(g.psd, dtype=float)), hw2, n, ws)))
+        if not np.any(np.asarray(g.psd) != 0):
+            continue
+        if st.name in on_path:
+            a_k, b_k, a, b = _rows_at(ac, st, out)
+            dvs = _terms(((a_k, g.out_v), (b_k, g.out_i)), span, ws)
+            dvs = _sub(dvs, _terms(((a, g.in_v), (b, g.in_i)), span, ws), ws)
+        else:
+            dvs = _sub(_terms(((ac.y_in[st.name], g.in_v),), span, ws), _terms(((1.0, g.in_i),), span, ws), ws)
+            dvs = wsa.mul(wsa.mul(span(ac.row[st.parent][1]), ac.scale_between(st.parent, out)), dvs, ws)
+        res.append((st.name, name, _weighted_power(dvs, span(np.asarray(g.psd, dtype=float)), hw2, n, ws)))
     return res
 
 
