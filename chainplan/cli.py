@@ -107,7 +107,7 @@ def main(argv=None) -> int:
 
 
 class _PipeGuard:
-    """Standard output that a closed pipe (``chainplan check … | head -1``) cannot break:
+    """Standard output that a closed pipe (``chainplan check to | head -1``) cannot break:
     once the reader is gone, the rest of the output is dropped quietly and the command
     finishes with its own exit code (1 still means a requirement failed)."""
 

@@ -100,7 +100,7 @@ def test_the_schema_carries_the_range_of_a_numeric_value():
     s = field_schema(REGISTRY["cable"].FIELDS["length"])
     number = s["anyOf"][0]
     assert number["type"] == "number" and number["minimum"] == 1e-6 and number["maximum"] == 1e6
-    assert "1 µm … 1 Mm" in s["description"]
+    assert "1 µm to 1 Mm" in s["description"]
 
 
 def test_a_draw_outside_the_range_is_drawn_again(tmp_path):

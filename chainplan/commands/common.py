@@ -34,11 +34,11 @@ def apply_analysis_options(chain, args):
             raise UsageError("--span: the low end must be below the high end")
     if not a.f_start_hz <= a.f_ref_hz <= a.f_stop_hz:
         raise UsageError(f"the reference frequency {a.f_ref_hz:g} Hz is not inside the span "
-                         f"{a.f_start_hz:g} … {a.f_stop_hz:g} Hz: change --at or --span")
+                         f"{a.f_start_hz:g} to {a.f_stop_hz:g} Hz: change --at or --span")
     band = a.noise_band_hz
     if band is not None and not (band[0] < a.f_stop_hz and a.f_start_hz < band[1]):
-        raise UsageError(f"--span: the spec's noise_band {band[0]:g} … {band[1]:g} Hz lies outside the span "
-                         f"{a.f_start_hz:g} … {a.f_stop_hz:g} Hz: widen --span")
+        raise UsageError(f"--span: the spec's noise_band {band[0]:g} to {band[1]:g} Hz lies outside the span "
+                         f"{a.f_start_hz:g} to {a.f_stop_hz:g} Hz: widen --span")
     return chain
 
 

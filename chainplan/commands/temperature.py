@@ -12,7 +12,7 @@ from .common import add_analysis_options, apply_analysis_options
 def add_arguments(p):
     p.add_argument("file", help="chain spec (YAML)")
     p.add_argument("--temps", metavar="LIST", help="temperatures, comma-separated, e.g. '-40 °C, 25 °C, 85 °C' "
-                   "(default: the corners' temperature range and the spec's temperature, else 0 °C … 50 °C)")
+                   "(default: the corners' temperature range and the spec's temperature, else 0 °C to 50 °C)")
     add_analysis_options(p)
 
 
@@ -30,7 +30,7 @@ def parse_temps(text: str) -> list:
         if part.replace(".", "").lstrip("+-−").isdigit():
             raise UsageError(f"--temps: '{part}' has no unit (kelvin or °C?); write e.g. '25 °C'")
         if not (1.0 <= t <= 1000.0 and math.isfinite(t)):
-            raise UsageError(f"--temps: {part} is outside 1 K … 1000 K")
+            raise UsageError(f"--temps: {part} is outside 1 K to 1000 K")
         out.append(t)
     if len(set(out)) < 2:
         raise UsageError("--temps: give at least two different temperatures, e.g. '0 °C, 50 °C'")

@@ -228,7 +228,7 @@ def _referral_weights(ev: Evaluation, w, whole_span: bool):
     wr = band_weights(ev.span, lo, hi)
     from ..spec.units import fmt
     return wr, [f"no noise band declared: the input-referred noise is taken over the −3 dB band "
-                f"{fmt(float(lo[0, 0]), 'Hz')} … {fmt(float(hi[0, 0]), 'Hz')}"]
+                f"{fmt(float(lo[0, 0]), 'Hz')} to {fmt(float(hi[0, 0]), 'Hz')}"]
 
 
 def _fmt_v(x) -> str:
@@ -266,7 +266,7 @@ def _clip_note(declared, band) -> list:
     """A declared noise band the span (narrowed with --span) cuts short."""
     if declared is None or tuple(declared) == tuple(band):
         return []
-    return [f"the noise band is cut to the span: {band[0]:g} … {band[1]:g} Hz of {declared[0]:g} … {declared[1]:g} Hz"]
+    return [f"the noise band is cut to the span: {band[0]:g} to {band[1]:g} Hz of {declared[0]:g} to {declared[1]:g} Hz"]
 
 
 def density_at(ev: Evaluation, f_hz, bandwidth_hz=None):
@@ -513,7 +513,7 @@ def integration_band(span, bandwidth_hz=None) -> tuple:
         b_lo, b_hi = (float(x) for x in bandwidth_hz)
     b_lo, b_hi = max(b_lo, lo), min(b_hi, hi)
     if not b_lo < b_hi:
-        raise ValueError(f"the band {bandwidth_hz} lies outside the analysis span {lo:g}…{hi:g} Hz")
+        raise ValueError(f"the band {bandwidth_hz} lies outside the analysis span {lo:g} to {hi:g} Hz")
     return b_lo, b_hi
 
 
@@ -554,7 +554,7 @@ def attach_to_budget(b: Budget) -> None:
     if top is not None and np.isfinite(f(r.shares[top])):
         rows.append(("largest noise contributor", f"{top} ({100 * f(r.shares[top]):.0f} %)"))
     if b.ev.chain.analysis.noise_band_hz is not None:
-        rows.append(("noise band", f"{figure(r.band_hz[0], 'Hz')} … {figure(r.band_hz[1], 'Hz')}"))
+        rows.append(("noise band", f"{figure(r.band_hz[0], 'Hz')} to {figure(r.band_hz[1], 'Hz')}"))
     else:
         rows += [("noise note", n) for n in span_notes(b.ev)]
     b.extra_summary.extend(rows)

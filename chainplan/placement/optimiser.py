@@ -345,7 +345,7 @@ def cost_basis_for(cands: list[Candidate], basis: str | None) -> str:
         missing = [c.name for c in cands if c.price is None]
         if missing:
             raise UsageError(f"cost by price needs a price for every candidate; {', '.join(missing)} "
-                             "has none (add cost: price: … in its parts file, or use --cost power)")
+                             "has none (add cost: price: <value> in its parts file, or use --cost power)")
     return basis
 
 

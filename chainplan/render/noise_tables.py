@@ -22,7 +22,7 @@ def noise_tables(chain, r, freqs, dens, gain, gens, console) -> None:
     chain_heading(chain, console)
     lo, hi = r.band_hz
     console.print(f"noise at '{r.output}'" + (f", converter '{r.converter}'" if r.converter else "") +
-                  f"; integrated over {eng(lo, 'Hz')} … {eng(hi, 'Hz')} at {eng(chain.temp_k, 'K')}")
+                  f"; integrated over {eng(lo, 'Hz')} to {eng(hi, 'Hz')} at {eng(chain.temp_k, 'K')}")
 
     unit = chain.source.model.signal_unit      # input referral: to the sensor's EMF (V) or current (A)
     where, ins = [], []

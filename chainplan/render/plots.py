@@ -398,9 +398,9 @@ def noise_plot(nr, chain, top: int = 6):
 # -- Monte Carlo -----------------------------------------------------------------
 
 def _ci(mc, y) -> str:
-    """The 95 % Wilson interval of a yield, e.g. '98.7 … 100.0 %' ('—' without units)."""
+    """The 95 % Wilson interval of a yield, e.g. '98.7 to 100.0 %' ('—' without units)."""
     lo, hi = mc.interval(y) if hasattr(mc, "interval") else (math.nan, math.nan)
-    return "—" if not math.isfinite(lo) else f"{100 * lo:.1f} … {100 * hi:.1f} %"
+    return "—" if not math.isfinite(lo) else f"{100 * lo:.1f} to {100 * hi:.1f} %"
 
 
 def montecarlo_plot(mc, nominal: dict | None = None, max_panels: int = 9):

@@ -150,7 +150,7 @@ def _summary_rows(b: Budget) -> list[tuple]:
     c = b.chain
     f_ref = eng(c.analysis.f_ref_hz, "Hz")
     rows = [end_gain(b, f_ref),
-            ("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
+            ("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} to "
                            f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")]
     worst, tight = b.worst_interface, b.tightest_node
     if worst is not None:
@@ -191,7 +191,7 @@ def _active_rows(b: Budget) -> list[tuple]:
 
 def _montecarlo_html(mc) -> list[str]:
     from ..studies.requirements import show
-    ci = lambda y: "{:.2f} … {:.2f} %".format(*(100 * x for x in mc.interval(y)))  # noqa: E731
+    ci = lambda y: "{:.2f} to {:.2f} %".format(*(100 * x for x in mc.interval(y)))  # noqa: E731
     corners = len(mc.corners) if mc.corners else 1
     out = [f"<h2>Monte Carlo: {mc.samples} units, seed {mc.seed}, {corners} operating corner"
            f"{'s' * (corners != 1)}</h2>",

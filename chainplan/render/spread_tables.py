@@ -127,7 +127,7 @@ def _pct(x) -> str:
 
 def _ci(res: McResult, y: float) -> str:
     lo, hi = res.interval(y)
-    return "—" if not math.isfinite(lo) else f"{figure(lo, '%', decimals=2)} … {figure(hi, '%', decimals=2)}"
+    return "—" if not math.isfinite(lo) else f"{figure(lo, '%', decimals=2)} to {figure(hi, '%', decimals=2)}"
 
 
 def _sigma(x, mean, unit) -> str:

@@ -49,7 +49,7 @@ def budget_tables(b: Budget, console) -> None:
 
     tight = b.tightest_node
     band = c.analysis.band_hz
-    where = f"over {eng(band[0], 'Hz')} … {eng(band[1], 'Hz')}" if band else f"at {f_ref}"
+    where = f"over {eng(band[0], 'Hz')} to {eng(band[1], 'Hz')}" if band else f"at {f_ref}"
     class_a = any(n.limit_cause[0] == "class A" for n in b.nodes)
     caption = None
     if band:
@@ -71,7 +71,7 @@ def budget_tables(b: Budget, console) -> None:
                 styles=["bold red" if n.clips else ("bold yellow" if m else None) for n, m in zip(ns, marks)])
 
     rows = [*_amplitude_row(c), end_gain(b, f_ref),
-            ("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} … "
+            ("−3 dB band", f"{eng(b.f_low_hz, 'Hz') if b.f_low_hz else 'below span'} to "
                            f"{eng(b.f_high_hz, 'Hz') if b.f_high_hz else 'above span'}")]
     if b.peak_gain_db is not None and b.peak_gain_db - b.gain_db > 1.0:
         rows.append(("note", f"f_ref is on a slope: the gain peaks {b.peak_gain_db - b.gain_db:.1f} dB higher "

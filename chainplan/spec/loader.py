@@ -443,8 +443,8 @@ def _analysis(ctx, doc, chain) -> Analysis:
     if not a.f_start_hz < a.f_stop_hz:
         raise ctx.err("f_start must be below f_stop", node.line_of("f_start"), "analysis.f_start")
     if not a.f_start_hz <= a.f_ref_hz <= a.f_stop_hz:
-        raise ctx.err(f"f_ref ({a.f_ref_hz:g} Hz) must lie inside the span f_start … f_stop "
-                      f"({a.f_start_hz:g} … {a.f_stop_hz:g} Hz)", node.line_of("f_ref"), "analysis.f_ref")
+        raise ctx.err(f"f_ref ({a.f_ref_hz:g} Hz) must lie inside the span f_start to f_stop "
+                      f"({a.f_start_hz:g} to {a.f_stop_hz:g} Hz)", node.line_of("f_ref"), "analysis.f_ref")
     if "output" in node:
         out = node["output"]
         names = [st.name for st in chain.all_stages]
@@ -459,8 +459,8 @@ def _analysis(ctx, doc, chain) -> Analysis:
     if "mid_band" in node:
         v = _number(ctx, node, "mid_band", "Hz", None)
         if not a.f_start_hz <= v <= a.f_stop_hz:
-            raise ctx.err(f"mid_band ({v:g} Hz) must lie inside the span f_start … f_stop "
-                          f"({a.f_start_hz:g} … {a.f_stop_hz:g} Hz)", node.line_of("mid_band"), "analysis.mid_band")
+            raise ctx.err(f"mid_band ({v:g} Hz) must lie inside the span f_start to f_stop "
+                          f"({a.f_start_hz:g} to {a.f_stop_hz:g} Hz)", node.line_of("mid_band"), "analysis.mid_band")
         a.mid_band_hz = v
     return a
 
@@ -486,6 +486,6 @@ def _noise_band(ctx, node, a, key="noise_band") -> tuple:
     if not lo < hi:
         raise ctx.err(f"the {what}'s low end must be below its high end", line, where)
     if lo < a.f_start_hz or hi > a.f_stop_hz:
-        raise ctx.err(f"the {what} {lo:g}…{hi:g} Hz must lie inside the analysis span "
-                      f"{a.f_start_hz:g}…{a.f_stop_hz:g} Hz (f_start … f_stop)", line, where)
+        raise ctx.err(f"the {what} {lo:g} to {hi:g} Hz must lie inside the analysis span "
+                      f"{a.f_start_hz:g} to {a.f_stop_hz:g} Hz (f_start to f_stop)", line, where)
     return lo, hi

@@ -34,21 +34,21 @@ from ..constants import K_BOLTZMANN, Q_ELECTRON  # noqa: F401  (re-exported for 
 #: overflow or divide by zero deep in the analysis.  A unit not listed gets
 #: ``DEFAULT_RANGE``.  A field narrows its range with ``minimum``/``maximum``/``tiny``.
 UNIT_RANGES: dict[str, tuple[float, float, bool]] = {
-    "ohm": (1e-6, 1e15, False),        # 1 µΩ … 1000 TΩ (insulation, electrometer inputs)
-    "F": (1e-18, 1.0, False),          # 1 aF … 1 F
-    "H": (1e-12, 1e3, False),          # 1 pH … 1 kH
-    "V": (1e-15, 1e5, True),           # 1 fV … 100 kV
+    "ohm": (1e-6, 1e15, False),        # 1 µΩ to 1000 TΩ (insulation, electrometer inputs)
+    "F": (1e-18, 1.0, False),          # 1 aF to 1 F
+    "H": (1e-12, 1e3, False),          # 1 pH to 1 kH
+    "V": (1e-15, 1e5, True),           # 1 fV to 100 kV
     "A": (1e-24, 1e3, True),           # saturation currents reach 1e-20 A
     "W": (1e-15, 1e6, False),
     "S": (1e-15, 1e6, False),
-    "Hz": (1e-6, 1e15, False),         # 1 µHz … 1 PHz (an "ideal" op-amp's gbw)
+    "Hz": (1e-6, 1e15, False),         # 1 µHz to 1 PHz (an "ideal" op-amp's gbw)
     "s": (1e-15, 1e6, False),
-    "V/rtHz": (1e-15, 1e-3, False),    # 1 fV/√Hz … 1 mV/√Hz
+    "V/rtHz": (1e-15, 1e-3, False),    # 1 fV/√Hz to 1 mV/√Hz
     "A/rtHz": (1e-21, 1e-3, False),
     "dB": (1e-6, 400.0, True),
     "%": (1e-12, 10.0, True),          # fractions: up to 1000 %
     "ppm": (1e-12, 10.0, True),
-    "m": (1e-6, 1e6, False),           # 1 µm … 1000 km
+    "m": (1e-6, 1e6, False),           # 1 µm to 1000 km
     "F/m": (1e-15, 1e-6, False),
     "ohm/m": (1e-9, 1e9, False),
     "K": (1e-3, 1e4, False),
@@ -109,14 +109,14 @@ class Field:
         return bad & ~inf_ok
 
     def describe_range(self, fmt) -> str:
-        """The accepted range in words, e.g. '0 or 1 µΩ … 1e+15 Ω' or '0 or ±(1 fV … 100 kV)';
+        """The accepted range in words, e.g. '0 or 1 µΩ to 1e+15 Ω' or '0 or ±(1 fV to 100 kV)';
         ``fmt(value)`` formats a value with its unit."""
         low, high, tiny = self.bounds()
         if low >= 0:
-            return ("0 or " if low <= 0 else "") + f"{fmt(max(low, tiny))} … {fmt(high)}"
+            return ("0 or " if low <= 0 else "") + f"{fmt(max(low, tiny))} to {fmt(high)}"
         if low == -high:
-            return f"0 or ±({fmt(tiny)} … {fmt(high)})"
-        return f"{fmt(low)} … {fmt(high)} (0 or at least {fmt(tiny)} in magnitude)"
+            return f"0 or ±({fmt(tiny)} to {fmt(high)})"
+        return f"{fmt(low)} to {fmt(high)} (0 or at least {fmt(tiny)} in magnitude)"
 
 
 class ABCD(NamedTuple):

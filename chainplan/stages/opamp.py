@@ -192,7 +192,7 @@ class _OpAmp(StageKind):
             v = float(np.ravel(v_open + 0.0 * railed)[np.argmax(np.ravel(railed))])
             op.flag(railed, "ref" if "ref" in p else ("v_pos" if v > 0 else "v_neg"),
                     f"the output would sit at {v:.3g} V, outside its output range "
-                    f"{float(np.min(out[0])):.3g} V … {float(np.max(out[1])):.3g} V: the op-amp saturates at DC "
+                    f"{float(np.min(out[0])):.3g} V to {float(np.max(out[1])):.3g} V: the op-amp saturates at DC "
                     "(check the input's DC level, the reference and the gain)")
         return dc_source(v_open, m.B / m.A), op
 

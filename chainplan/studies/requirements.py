@@ -116,7 +116,7 @@ class Requirement:
         if self.at_hz is not None:
             s += f" at {fmt(self.at_hz, 'Hz')}"
         if self.band_hz is not None:
-            s += f" over {fmt(self.band_hz[0], 'Hz')} … {fmt(self.band_hz[1], 'Hz')}"
+            s += f" over {fmt(self.band_hz[0], 'Hz')} to {fmt(self.band_hz[1], 'Hz')}"
         return s
 
 
@@ -307,7 +307,7 @@ def _default_name(key, at, band, targets) -> str:
     if at is not None:
         name += f" at {fmt(at, 'Hz')}"
     if band is not None:
-        name += f" {fmt(band[0], 'Hz')}…{fmt(band[1], 'Hz')}"
+        name += f" {fmt(band[0], 'Hz')} to {fmt(band[1], 'Hz')}"
     return name
 
 
