@@ -40,6 +40,9 @@ def run(args) -> int:
         raise UsageError(f"--bandwidth: {exc}") from None
     freqs = _freqs(args.spot) if args.spot else default_freqs(ev.span, chain.analysis.f_ref_hz)
     dens, gain, gens = density_at(ev, freqs, band)
+    from ..engine.measurand import figures, measurand
+    m = measurand(chain)
+    fig = figures(ev, res) if m is not None else None
     if args.json:
         from ..render.json_out import clean, dumps
         from ..spec.safety import safety_notice
@@ -47,13 +50,17 @@ def run(args) -> int:
              "caution": safety_notice(chain.hazards), "f_ref_hz": chain.analysis.f_ref_hz,
              "temperature_k": chain.temp_k, "input_unit": chain.source.model.signal_unit, **noise_json(res),
              "density": [{"f_hz": f, "out_v_per_rthz": float(dens[0, i]),
-                          "in_v_per_rthz": float(dens[0, i] / gain[0, i]) if gain[0, i] > 0 else None}
+                          "in_v_per_rthz": float(dens[0, i] / gain[0, i]) if gain[0, i] > 0 else None,
+                          **({"in_measurand_per_rthz": float(m.of(dens[0, i] / gain[0, i])) if gain[0, i] > 0
+                              else None} if m is not None else {})}
                          for i, f in enumerate(np.asarray(freqs, dtype=float))]}
+        if fig:
+            d["measurand"] = fig
         print(dumps(clean(d)))
     else:
         from ..render.console import make_console
         from ..render.noise_tables import noise_tables
-        noise_tables(chain, res, freqs, dens, gain, gens, make_console(wide=args.wide))
+        noise_tables(chain, res, freqs, dens, gain, gens, make_console(wide=args.wide), fig)
     return 0
 
 

@@ -189,6 +189,9 @@ def parse_section(chain: Chain, node, line, path) -> None:
                   " (none; one_point removes the offset; two_point the offset and the gain error)", "calibration")
     sens = unit = None
     if "sensitivity" in node:
+        if "__sensitivity__" in chain.source.raw:
+            raise err("the sensitivity is declared on the source already; declare it once (on the source, "
+                      "where it also refers the noise and the full scale to the measurand)", "sensitivity")
         sens, unit = _sensitivity(node["sensitivity"], chain.source.model.signal_unit,
                                   lambda m: err(m, "sensitivity"))
     leak = {}
@@ -241,7 +244,15 @@ def _sensitivity(raw, signal_unit, err):
 
 
 def accuracy_of(chain: Chain) -> Accuracy:
-    return chain.extra.get("accuracy") or Accuracy()
+    """The ``accuracy:`` section; its sensor unit is the source's declared sensitivity (at the
+    chain temperature, engine/measurand.py) unless the section declares its own."""
+    acc = chain.extra.get("accuracy") or Accuracy()
+    if acc.sensitivity is None:
+        from .measurand import measurand
+        m = measurand(chain)
+        if m is not None:
+            acc = Accuracy(acc.temp_k, acc.calibration, m.sensitivity, m.unit, acc.leakage)
+    return acc
 
 
 def temperature_range(chain: Chain):

@@ -27,6 +27,8 @@ def _default(f) -> str:
 def _unit(f) -> str:
     if f.unit == "choice":
         return " / ".join(f"`{c}`" for c in f.choices)
+    if f.unit == "sensitivity":
+        return "signal per measurand unit (text)"
     u = UNITS[f.unit]
     extra = " or a rail name" if f.rail_ok else ""
     if f.choices:
@@ -36,7 +38,7 @@ def _unit(f) -> str:
 
 def _range(f) -> str:
     """The accepted range (``Field.bounds``), as messages state it."""
-    return "—" if f.unit == "choice" else range_text(f)
+    return "—" if f.unit in ("choice", "sensitivity") else range_text(f)
 
 
 def markdown() -> str:

@@ -18,12 +18,13 @@ from ..errors import SpecError, nearest
 from .model import Analysis, Chain, Stage
 from ..stages import REGISTRY
 from ..stages.base import Field
+from .sensitivity import parse_sensitivity
 from .units import UnitError, parse_field_value, parse_toleranced, parse_value
 from .yamlsrc import LDict, LList, load_file, load_text
 
 HAZARDS = ("mains", "high_voltage", "patient")
 TOP_KEYS = ("name", "description", "hazards", "temperature", "t_nom", "rails", "source", "stages", "analysis",
-            "requirements", "include", "candidates", "corners", "accuracy", "power")
+            "requirements", "include", "candidates", "corners", "accuracy", "power", "ambient")
 ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None,
                  "noise_band": "Hz", "signal_band": "Hz", "mid_band": "Hz"}
 NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
@@ -41,6 +42,7 @@ MAX_REL_TOLERANCE = 10.0
 SECTION_PARSERS: dict[str, str] = {
     "accuracy": "chainplan.engine.dcerror:parse_section",      # before requirements: they use its sensor unit
     "power": "chainplan.engine.power:parse_section",
+    "ambient": "chainplan.engine.measurand:parse_section",
     "requirements": "chainplan.studies.requirements:parse_section",
     "corners": "chainplan.studies.tolerances:parse_corners",
     "include": "chainplan.spec.parts:parse_include",
@@ -291,10 +293,35 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
             if not f.tolerable:
                 raise ctx.err(f"'{key}' cannot carry a tolerance", line, where)
             tolerances[(name, key)] = tol
+    if "sensitivity" in st.params:
+        _resolve_sensitivity(ctx, st, node)
     return st
 
 
+def _resolve_sensitivity(ctx, st, node) -> None:
+    """The parsed sensitivity (spec/sensitivity.py) in the source's signal units per measurand
+    unit at t_nom: a charge sensitivity over the source's c, a ratiometric one times its
+    excitation.  The float goes in ``params['sensitivity']``, the parse in ``raw['__sensitivity__']``."""
+    sens = st.params["sensitivity"]
+    line, where = node.line_of("sensitivity"), f"{st.name}.sensitivity"
+    c = st.params.get("c", 0.0)
+    exc = st.params.get("excitation")
+    if sens.form == "charge" and not c > 0:
+        raise ctx.err(f"a charge sensitivity ({sens.text}) becomes an EMF Q/C over the element's "
+                      "capacitance: give the source's 'c'", line, where)
+    if sens.form == "ratiometric" and not (exc is not None and exc != 0 and math.isfinite(exc)):
+        raise ctx.err(f"a ratiometric sensitivity ({sens.text}) is per volt of excitation: give the source's "
+                      "'excitation' (a rail or a voltage)", line, where)
+    st.params["sensitivity"] = float(sens.resolve(c, abs(exc) if exc is not None else None))
+    st.raw["__sensitivity__"] = sens
+
+
 def _field_value(ctx, f, raw, rails, line, where, st, key):
+    if f.unit == "sensitivity":          # resolved once the other fields are read (_resolve_sensitivity)
+        try:
+            return parse_sensitivity(raw, st.model.signal_unit), None, None
+        except UnitError as exc:
+            raise ctx.err(str(exc), line, where) from None
     if f.unit == "choice":
         if raw not in f.choices:
             raise ctx.err(f"'{raw}' is not valid" + nearest(str(raw), f.choices), line, where)

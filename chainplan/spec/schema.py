@@ -63,6 +63,10 @@ def field_schema(f, amplitude: bool = False) -> dict:
     if f.unit == "choice":
         out["enum"] = list(f.choices)
         return out
+    if f.unit == "sensitivity":                      # spec/sensitivity.py reads it
+        out.update(type="string", pattern=r"^\s*\S.*/.*\S\s*$")
+        out["description"] += " [signal per measurand unit]"
+        return out
     u = UNITS[f.unit]
     low, high, _ = f.bounds()
     kinds: list[dict] = [{"type": "number", "minimum": low, "maximum": high},

@@ -23,7 +23,13 @@ EXCITATION = {
                           minimum=0.0, tolerable=False),
     "excitation": Field("V", "rail that feeds the sensor's excitation current", rail_ok=True),
 }
-SENSITIVITY = {"sensitivity_error": limit("%", "sensitivity (span) tolerance of the sensor, a limit at 25 °C")}
+SENSITIVITY = {
+    "sensitivity": Field("sensitivity", "signal per unit of the measurand, which names the unit every input-referred "
+                         "figure is also shown in: '12 mV/Pa', '-190 dB re 1 V/µPa', '2 mV/V at 50 kg' (times "
+                         "the excitation), '10 pC/g' (over c), '0.5 A/W', '59.16 mV/pH 3354ppm/K' "
+                         "(docs/models.md, 'Sensitivity and sensor units')", tolerable=False),
+    "sensitivity_error": limit("%", "sensitivity (span) tolerance of the sensor, a limit at 25 °C"),
+}
 from .noise_sources import NoiseSource, shot, thermal_i, thermal_v
 
 

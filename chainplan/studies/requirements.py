@@ -251,8 +251,8 @@ def _error_limit(raw, chain):
     """A DC error limit: '2 mV', '4 LSB', '0.1 %' or '0.05 pH' (the sensor unit of
     accuracy.sensitivity) -> (value in that unit, the unit's symbol); % is a fraction."""
     text = str(raw).strip()
-    acc = chain.extra.get("accuracy")
-    unit = getattr(acc, "sensor_unit", None)
+    from ..engine.dcerror import accuracy_of
+    unit = accuracy_of(chain).sensor_unit
     for sym in ("LSB", unit):
         if sym and text.endswith(sym) and text[:-len(sym)].strip():
             number = text[:-len(sym)].strip()
@@ -264,8 +264,8 @@ def _error_limit(raw, chain):
     try:
         return parse_value(text, "V"), "V"
     except UnitError:
-        words = "V, LSB, % or " + (f"'{unit}' (accuracy.sensitivity)" if unit else
-                                  "a sensor unit once accuracy.sensitivity declares one")
+        words = "V, LSB, % or " + (f"'{unit}' (the sensitivity's unit)" if unit else
+                                  "a sensor unit once the source's sensitivity declares one")
         raise UnitError(f"'{text}' is not a DC error limit: give it in {words}, e.g. '2 mV', '4 LSB', "
                         "'0.1 %'") from None
 
