@@ -153,7 +153,9 @@ def test_demo_budget_reports_a_transimpedance(cli):
     assert d["gain_unit"] == "dBΩ" and 99 < d["gain_db"] < 101     # 100 kΩ = 100 dBΩ
     tia = next(s for s in d["stages"] if s["name"] == "tia")
     assert tia["gain_unit"] == "Ω" and tia["gain"] == pytest.approx(100e3, rel=0.01)
-    assert d["interfaces"][0]["loading_loss_db"] > -0.01     # nearly all the current enters the virtual ground
+    first = d["interfaces"][0]                                    # a virtual ground: a current transfer, no loss
+    assert first["input_mode"] == "current" and first["loading_loss_db"] is None
+    assert first["transfer"] > 0.999 and first["transfer_db"] > -0.01   # nearly all the current enters it
 
 
 @pytest.mark.parametrize("field, bad, words", [

@@ -120,6 +120,49 @@ class Evaluation:
         num = b * y if self.signal_unit == "A" and self.chain.stage(stage).parent == self.chain.source.name else a
         return -20 * np.log10(np.abs(num / (a + b * y)))
 
+    @property
+    def virtual_grounds(self) -> dict:
+        """stage -> (mode, amplifier) of the interfaces at a virtual ground (:func:`virtual_grounds`)."""
+        vg = self.cache.get("virtual_grounds")
+        if vg is None:
+            vg = self.cache["virtual_grounds"] = virtual_grounds(self.chain)
+        return vg
+
+    def virtual_ground(self, stage: str) -> str | None:
+        """'current' or 'charge' where the interface into ``stage`` is at a virtual ground, else
+        None (a voltage input: a loading interface)."""
+        return self.virtual_grounds.get(stage, (None,))[0]
+
+    def loading_interfaces(self) -> list[str]:
+        """The readers whose interface has a loading loss: every stage but the virtual-ground inputs."""
+        vg = self.virtual_grounds
+        return [st.name for st in self.chain.stages if st.name not in vg]
+
+    def input_transfer(self, stage: str, col=slice(None)):
+        """At a virtual-ground input (or a passive stage in front of one: the share at the
+        amplifier at its end): the share of the source's short-circuit current (or,
+        alike, of its charge, Q = I/s) that reaches the stage's feedback network, complex (S, F+1).
+        From the engine's own figures: I_fb = V_in·(Yin − Ysh) with V_in the node's
+        response to the source signal X and Ysh the op-amp's input shunt
+        (``StageKind.input_shunt``); the reference is the short-circuit current X/B of the
+        row (A, B) at the sensor — or at the active stage that drives the node through passive
+        stages only (a Thevenin row X = A·V + B·I: V = 0 gives I = X/B).  For a piezo (Cs)
+        through a cable (Cc) into a charge amplifier of open-loop gain A this is the textbook
+        charge transfer (1 + A)·Cf/(Cs + Cc + Cin + (1 + A)·Cf) (Gautschi, *Piezoelectric
+        Sensorics*, charge amplifier chapter, from memory).  NaN where the source has no
+        short-circuit current to refer to (an ideal voltage source, B = 0)."""
+        chain, ac = self.chain, self.ac
+        st = chain.stage(self.virtual_grounds[stage][1])     # the amplifier at the end of a passive front
+        ref = driving_node(chain, st.parent)
+        b_ref = np.asarray(ac.full_row(ref)[1] + 0.0 * self.f_hz)[:, col]
+        h = ac.node_h.at(st.parent, col)
+        y = np.asarray(ac.y_in[st.name])[:, col]
+        s = (2j * np.pi * self.f_hz)[None, col]
+        y_sh = st.model.input_shunt(self.params[st.name], s)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = h * (y - y_sh) * b_ref
+        return np.where(b_ref == 0, np.nan, t)
+
     def passband(self, node: str | None = None):
         """(passband gain |H| (S,), its frequency (S,) Hz): the gain at a declared
         ``analysis.mid_band`` (log-log interpolation between grid points), else the
@@ -151,6 +194,45 @@ class Evaluation:
         hi_mask = below & above_ref
         lo_mask = below & ~above_ref
         return (_edge(span, ref, logf, lo_mask, last=True), _edge(span, ref, logf, hi_mask, last=False))
+
+
+def virtual_grounds(chain: Chain) -> dict:
+    """stage -> (mode, amplifier) for every interface at a virtual ground: the stages whose kind
+    holds its input there (``StageKind.input_mode`` 'current' or 'charge'; the amplifier is the
+    stage itself), and the passive stages (a cable, a filter) whose node only such an input
+    reads, through passive stages alone (a piezo → cable → charge amplifier: the cable's input
+    is in the charge path too; the amplifier is the one at its end).  One pass from the last
+    stage up (the chain is in order), so it is linear in the chain's length."""
+    from ..stages.passive import Passive
+    out: dict = {}
+    for st in reversed(chain.stages):
+        mode = getattr(st.model, "input_mode", "voltage")
+        if mode != "voltage":
+            out[st.name] = (mode, st.name)
+        elif isinstance(st.model, Passive):
+            readers = chain.readers(st.name)
+            if len(readers) == 1 and readers[0].name in out:
+                out[st.name] = out[readers[0].name]
+    return out
+
+
+def virtual_ground(chain: Chain, stage: str) -> str | None:
+    """'current' or 'charge' where the interface into ``stage`` is at a virtual ground
+    (:func:`virtual_grounds`), else None (a loading interface)."""
+    return virtual_grounds(chain).get(stage, (None,))[0]
+
+
+def driving_node(chain: Chain, node: str) -> str:
+    """The node whose Thevenin row a virtual-ground input's transfer refers to: up from
+    ``node`` through passive stages (cables, filters, couplings) to the sensor or to the
+    first active stage's output."""
+    from ..stages.passive import Passive
+    while node != chain.source.name:
+        st = chain.stage(node)
+        if not isinstance(st.model, Passive):
+            break
+        node = st.parent
+    return node
 
 
 def _interp_rows(x, xp, fp):
@@ -252,7 +334,15 @@ class InterfaceRow:
     to: str
     z_source_ohm: float
     z_load_ohm: float
-    loss_db: float          # dB lost (positive = lost)
+    loss_db: float          # dB lost (positive = lost); NaN at a virtual-ground input
+    mode: str = "voltage"   # 'voltage', or 'current'/'charge' at a virtual-ground input
+    transfer: float | None = None      # there: |I_fb/I_sc|, the share of the current (charge) that arrives
+    transfer_db: float | None = None   # 20·log10 of it (negative: less than all arrives)
+
+    @property
+    def loading(self) -> bool:
+        """A loading interface (a voltage input), with a loading loss."""
+        return self.mode == "voltage"
 
 
 @dataclass
@@ -292,7 +382,7 @@ class Budget:
 
     @property
     def worst_interface(self) -> InterfaceRow | None:
-        return max(self.interfaces, key=lambda r: r.loss_db, default=None)
+        return max((r for r in self.interfaces if r.loading), key=lambda r: r.loss_db, default=None)
 
     @property
     def tightest_node(self) -> NodeRow | None:
@@ -312,8 +402,10 @@ def check_operating_points(chain: Chain, dc: DcResult):
     for node, v in dc.node_v.items():
         if not np.all(np.isfinite(v)):
             st = chain.stage(node)
+            unbled = [s.name for s in chain.stages if s.kind == "charge_amplifier" and np.all(np.isinf(s.params["r_f"]))]
+            hint = f", or give the charge amplifier '{unbled[0]}' its DC bleed r_f" if unbled else ""
             raise SpecError(f"node '{node}' has no DC path (it floats); add a bias resistor, e.g. an "
-                            "ac_coupling stage with r_bias and bias", chain.path, st.line, node)
+                            f"ac_coupling stage with r_bias and bias{hint}", chain.path, st.line, node)
 
 
 def analyse(chain: Chain) -> Budget:
@@ -331,8 +423,10 @@ def analyse(chain: Chain) -> Budget:
             unit = getattr(st.model, "gain_unit", "V/V")
             if unit == "Ω":                                 # Vout/Iin, Iin = V_in·Yin
                 g = g / ac.y_in[st.name][:, 0]
+            elif unit == "V/C":                             # Vout/Qin, Qin = Iin/s
+                g = g * 2j * np.pi * ev.f_hz[0] / ac.y_in[st.name][:, 0]
             gain = _f(np.abs(g))
-            gain_db = 20 * np.log10(gain)
+            gain_db = 20 * np.log10(gain) if unit != "V/C" else None
         else:
             zout = gain = gain_db = None
             unit = "V/V"
@@ -344,7 +438,14 @@ def analyse(chain: Chain) -> Budget:
         zs = _f(np.abs(b[:, 0] / a[:, 0]))
         y = ac.y_in[st.name][:, 0]
         zl = _f(np.abs(1.0 / y)) if np.any(y != 0) else np.inf
-        interfaces.append(InterfaceRow(st.parent, st.name, zs, zl, _f(ev.interface_loss_db(st.name)[:, 0])))
+        mode = ev.virtual_ground(st.name)
+        if mode is None:
+            interfaces.append(InterfaceRow(st.parent, st.name, zs, zl, _f(ev.interface_loss_db(st.name)[:, 0])))
+            continue
+        t = abs(complex(np.ravel(ev.input_transfer(st.name, [0]))[0]))
+        ok = np.isfinite(t) and t > 0
+        interfaces.append(InterfaceRow(st.parent, st.name, zs, zl, float("nan"), mode, t if ok else None,
+                                       float(20 * np.log10(t)) if ok else None))
     nodes = []
     for n in chain.nodes:
         pk_s, f_pk = ev.peak_at(n)
@@ -368,6 +469,9 @@ def analyse(chain: Chain) -> Budget:
     with np.errstate(divide="ignore"):                # a gain that underflows (a long chain) is −inf dB
         span_db = 20 * np.log10(np.abs(ev.gain()[0, 1:]))
     k = int(np.argmax(span_db))
-    return Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs,
-                  peak_gain_db=float(span_db[k]), f_peak_hz=float(ev.span[k]),
-                  gain_unit="dBΩ" if ev.signal_unit == "A" else "dB")
+    b = Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs,
+               peak_gain_db=float(span_db[k]), f_peak_hz=float(ev.span[k]),
+               gain_unit="dBΩ" if ev.signal_unit == "A" else "dB")
+    for st in chain.stages:                          # what a stage's model assumes, in words
+        b.extra_summary.extend(("note", f"{st.name}: {text}") for text in st.model.notes(st.params))
+    return b

@@ -35,7 +35,7 @@ POINTS_PER_DECADE = 48         # the fine loop grid (the fixes' searches)
 COARSE_PER_DECADE = 12         # the coarse grid that brackets crossovers and peaks
 REFINE_POINTS = 12             # per-sample points inside each bracket
 DEFAULT_PM_DEG = 45.0          # the target of the recommended fixes without a min_phase_margin requirement
-OPAMP_KINDS = ("opamp_follower", "opamp_noninverting", "opamp_inverting", "opamp_transimpedance")
+OPAMP_KINDS = ("opamp_follower", "opamp_noninverting", "opamp_inverting", "opamp_transimpedance", "charge_amplifier")
 FOLLOWER_KINDS = ("source_follower", "emitter_follower")
 
 
@@ -412,7 +412,9 @@ def recommend(ev, ac, st, res: LoopResult, target: float) -> list[Fix]:
     zf, y = st.model.loop_network(p, np.array([[s_c]]), tuple(np.asarray(x)[:1, k:k + 1]
                                                              for x in ac.branch_row[st.name]))
     ci = float(np.imag(np.ravel(y)[0]) / (2 * np.pi * fc))
-    if "r_f" in p and ci > 0 and st.kind != "opamp_follower":
+    # (a charge amplifier's c_f is its gain, not a compensation: its noise gain 1 + Ct/CF is flat
+    # at the crossover, so there is no capacitor fix to offer)
+    if "r_f" in p and ci > 0 and st.kind not in ("opamp_follower", "charge_amplifier"):
         rf = float(np.ravel(p["r_f"])[0])
         if rf > 0:
             gbw = float(np.ravel(p["gbw"])[0])

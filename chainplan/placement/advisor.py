@@ -149,6 +149,10 @@ class Advice:
     interfaces: list[InterfaceAdvice]
     thresholds: dict
     noise: bool                  # SNR columns available
+    #: interfaces left alone: (node, reader, input mode, amplifier) at the virtual-ground inputs
+    #: (a transimpedance or charge amplifier takes the current or charge; a buffer there is wrong advice)
+    virtual_ground: list = field(default_factory=list)
+    candidates: list = field(default_factory=list)   # (name, kind, bias text) of the candidates tried
 
 
 # -- analysis ----------------------------------------------------------------------
@@ -262,8 +266,11 @@ def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
     base = _figures(ev0, True)
     with_noise = base.snr_db is not None
     basis = default_cost_basis(cands)
-    rows = []
+    rows, skipped = [], []
     for st in chain.stages:
+        if st.name in ev0.virtual_grounds:
+            skipped.append((st.parent, st.name, *ev0.virtual_grounds[st.name]))
+            continue
         a, b = ev0.ac.branch_row[st.name]
         y = ev0.ac.y_in[st.name][0, 0]
         effects = [effect(chain, base, st.name, c, with_noise) for c in cands]
@@ -272,7 +279,7 @@ def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
         rows.append(InterfaceAdvice(st.parent, st.name, _z(b[:, 0] / a[:, 0]), 1 / abs(y) if y != 0 else math.inf,
                                     _loss_db(ev0, st.name), effects, verdict, reason, best))
     return Advice(chain, chain.analysis.f_ref_hz, ev0.output, base.gain_db, basis, rows, dict(THRESHOLDS),
-                  base.snr_db is not None)
+                  base.snr_db is not None, skipped, list(cands))
 
 
 # -- verdicts ------------------------------------------------------------------------

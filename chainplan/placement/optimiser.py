@@ -325,7 +325,7 @@ def measure(chain: Chain, targets: Targets, buffered: Chain | None = None, ev=No
     if targets.max_power_w is not None:
         margins["power"] = targets.max_power_w - power
     with np.errstate(all="ignore"):
-        worst_loss = max((float(ev.interface_loss_db(st.name, 0)[0]) for st in c.stages), default=0.0)
+        worst_loss = max((float(ev.interface_loss_db(n, 0)[0]) for n in ev.loading_interfaces()), default=0.0)
     if targets.max_loss_db is not None:
         margins["loss"] = targets.max_loss_db - worst_loss
     finite = [(r, n) for n, (r, _) in rooms.items() if math.isfinite(r)]
@@ -682,7 +682,7 @@ def _limiter(search: Search, picks: dict) -> str:
     b = insert_buffers(chain, {r: search.cands[o] for r, o in picks.items()})
     with np.errstate(all="ignore"):
         ev = evaluate(b)
-        losses = [(float(ev.interface_loss_db(st.name, 0)[0]), st) for st in b.stages]
+        losses = [(float(ev.interface_loss_db(n, 0)[0]), b.stage(n)) for n in ev.loading_interfaces()]
     worst = max(losses, key=lambda x: x[0], default=None)
     used = ", ".join(f"{search.cands[o].name} at {r}" for r, o in sorted(picks.items())) or "no buffer"
     if worst is None or not math.isfinite(worst[0]):

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..engine.budget import evaluate, nominal_params
+from ..engine.budget import evaluate, nominal_params, virtual_grounds
 from ..spec.insert import bias_names, buffer_names
 from ..spec.model import Analysis, Chain, Stage
 from ..spec.parts import Candidate
@@ -119,6 +119,10 @@ class Regions:
         for st in chain.stages:
             self.readers[st.parent].append(st)
         self.cut = {st.name: is_cut(st) for st in chain.stages}
+        #: virtual-ground inputs (a transimpedance or charge amplifier): no buffer goes in front of
+        #: them, and their interface (the reader, its buffer and bias switches) has no loading loss
+        self.vground = set(virtual_grounds(chain))
+        self.no_loss = {x for n in self.vground for x in (n, self.names.get(n), self.bias_at.get(n)) if x}
         self.uni = [is_cut(c.stage) for c in cands]
         self.out_stage = _output_stage(chain)
         t = chain.temp_k
@@ -221,7 +225,7 @@ class Regions:
         if self.out_stage == q.name and not ends:
             out_at = w.node[buf_sw] if q.role == "load" else w.node[q_sw]
         out = []
-        for o in [-1, *range(len(cands))]:
+        for o in [-1] if q.name in self.vground else [-1, *range(len(cands))]:
             assign, terms, bufs = {}, [], []
             if o >= 0:
                 if cands[o].input_bias is not None:
@@ -357,6 +361,8 @@ class Regions:
         # repeats the loss of the real interface below it, a terminal is the next cut's input
         loss = np.zeros(n)
         for st in sub.stages:
+            if st.name in self.no_loss:
+                continue
             lost = np.broadcast_to(np.ravel(ev.interface_loss_db(st.name, 0)), (n,))
             loss = np.fmax(loss, lost)
         tn = w.term_node[shape_of]                                   # (n, T) node each terminal reads

@@ -27,6 +27,8 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
     chain_heading(c, console)
     cands = ", ".join(f"{e.candidate} ({e.kind}{_bias_text(e)})"
                       for e in (a.interfaces[0].candidates if a.interfaces else []))
+    if not a.interfaces and a.candidates:
+        cands = ", ".join(f"{c.name} ({c.kind})" for c in a.candidates)
     console.print(f"candidates: {cands or 'none'}; ranked by {a.cost_basis}; at {eng(a.f_ref_hz, 'Hz')}, "
                   f"end-to-end gain now {db(a.gain_db)} to '{a.output}'")
 
@@ -42,6 +44,12 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
     for i in ifs:
         console.print(Text(f"{i.source} → {i.reader}: {i.verdict}. ", style=VERDICT_STYLE[i.verdict] or ""),
                       Text(i.reason[0].upper() + i.reason[1:] + "."))
+    for node, reader, mode, amp in a.virtual_ground:
+        held = f"'{amp}' holds its input" if amp == reader else f"'{reader}' feeds '{amp}', which holds its input"
+        console.print(Text(f"{node} → {reader}: left alone. "),
+                      Text(f"{held} at a virtual ground ({mode}-mode input): it takes the {mode}, not the "
+                           f"voltage, so the source and cable capacitance barely matter; its {mode} transfer is "
+                           "not a loading loss, and no buffer is advised here."))
 
     console.print("Each candidate inserted in turn, the whole chain re-analysed.  back: loading loss given "
                   "back (dB); own: the buffer's open-circuit gain (dB); room Δ: the largest headroom drop, at "
@@ -99,6 +107,8 @@ def advice_dict(a: Advice) -> dict:
             "loading_loss_db": i.loss_now_db, "verdict": i.verdict, "reason": i.reason, "pick": i.best,
             "candidates": [_effect_dict(e) for e in i.candidates],
         } for i in a.interfaces],
+        "virtual_ground": [{"from": node, "to": reader, "input_mode": mode, "amplifier": amp}
+                           for node, reader, mode, amp in a.virtual_ground],
     })
 
 

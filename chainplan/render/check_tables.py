@@ -25,7 +25,8 @@ def check_tables(checked: list, console) -> None:
         n_req += len(results)
         print_table(console, [Col("requirement", wrap=2), Col("value", right=True), Col("limit", right=True),
                               Col("margin", right=True), Col("result"), Col("set by", wrap=True, drop=1)],
-                    rows, styles=styles, caption="margin: positive when met")
+                    rows, styles=styles, caption="; ".join(["margin: positive when met",
+                                                            *(f"{r.name}: {r.note}" for r in results if r.note)]))
     console.print(f"{len(checked)} spec{'s' * (len(checked) != 1)}, {n_req} requirement{'s' * (n_req != 1)}: "
                   f"{n_req - n_fail} met, {n_fail} failing", style="bold red" if n_fail else "bold")
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 import os
 import sys
 
-from ..spec.numbers import figure
+from ..spec.numbers import figure, loss
 
 
 def make_console(file=None, wide: bool = False, width: int | None = None):
@@ -50,6 +50,8 @@ def stage_gain(s) -> tuple[str, str]:
         return "—", db(s.gain_db)
     if s.gain_unit == "Ω":
         return eng(s.gain, "Ω"), db(s.gain_db) + "Ω"
+    if s.gain_unit == "V/C":                      # a charge amplifier: the trade's mV/pC
+        return figure(s.gain * 1e-12, "V") + "/pC", "—"
     return figure(s.gain, "V/V"), db(s.gain_db)
 
 
@@ -71,3 +73,19 @@ def converter_of(chain, node: str) -> str | None:
             return st.name
     return None
 
+
+
+#: caption line of an interface table with virtual-ground inputs
+TRANSFER_NOTE = ("current/charge transfer: a virtual-ground input (transimpedance or charge amplifier) takes the "
+                 "source's current or charge, not its voltage; the share of the source's short-circuit current "
+                 "(charge) that reaches the feedback network, not a loading loss")
+
+
+def interface_cell(r, decimals: int = 3) -> str:
+    """An interface's figure: its loading loss (dB lost), or at a virtual-ground input the
+    current or charge transfer in % and dB, labelled as such."""
+    if r.loading:
+        return loss(r.loss_db, decimals)
+    if r.transfer is None:
+        return f"{r.mode} transfer —"
+    return f"{r.mode} transfer {figure(r.transfer, '%', decimals=1)} ({figure(r.transfer_db, 'dB', decimals=2)})"

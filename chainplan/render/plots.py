@@ -26,6 +26,7 @@ import numpy as np
 
 from ..engine.budget import Budget
 from ..spec.numbers import loss as loss_text
+from .console import interface_cell
 from ..spec.units import fmt
 from ..spec.safety import safety_notice
 
@@ -206,11 +207,11 @@ def _interface_strip(ax, b, x_of, ncols):
         lanes[r.source] = lane + 1
         x0, x1 = x_of[r.source], x_of[r.to]
         y = -lane
-        loss = r.loss_db
+        loss = r.loss_db if r.loading else 0.0       # a virtual-ground input: a transfer, not a loss
         colour = CLIP if loss >= LOSS_RED_DB else TIGHT if loss >= LOSS_AMBER_DB else QUIET
         ax.annotate("", xy=(x1 - 0.22, y), xytext=(x0 + 0.22, y),
                     arrowprops=dict(arrowstyle="-|>", color=colour, lw=1.3, shrinkA=0, shrinkB=0))
-        text = loss_text(loss, 2)
+        text = loss_text(loss, 2) if r.loading else interface_cell(r).replace(" transfer", "")
         if r is worst and loss >= LOSS_AMBER_DB:
             text += "  worst"
         ax.text((x0 + x1) / 2, y + 0.12, text, fontsize=8, color=colour, ha="center", va="bottom",

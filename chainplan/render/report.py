@@ -22,7 +22,7 @@ import math
 from ..version import __version__
 from ..engine.budget import Budget
 from ..spec.numbers import loss
-from .console import db, end_gain, eng, stage_gain
+from .console import db, end_gain, eng, interface_cell, stage_gain
 from ..spec.safety import safety_notice
 from .tables import _converter, _lim, _set_by
 
@@ -115,7 +115,7 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
     worst = b.worst_interface
     out.append("<h2>Interfaces (loading)</h2>")
     out.append(_table(["from", "to", "Z source", "Z load", "loading loss", ""],
-                      [(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), loss(r.loss_db),
+                      [(r.source, r.to, eng(r.z_source_ohm, "Ω"), eng(r.z_load_ohm, "Ω"), interface_cell(r),
                         "worst" if r is worst and r.loss_db > 0.005 else "") for r in b.interfaces], left=2,
                       classes=["worst" if r is worst and r.loss_db > 0.005 else "" for r in b.interfaces]))
 

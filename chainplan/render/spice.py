@@ -324,7 +324,12 @@ def _opamp_transimpedance(b: _Builder, st: Stage, p, node_in):
     a0 = 10.0 ** (_val(p["a0"]) / 20.0)
     ref = b.volts(p["ref"], st)
     out, core = _output_nodes(b, st, p)
-    b.r(f"{st.name}_f", out, node_in, p["r_f"])
+    if math.isinf(_val(p["r_f"])):        # a charge amplifier without its DC bleed
+        b.note(f"{st.name}: no r_f, so no DC path through the feedback: ngspice needs one for its operating "
+               "point; a 1e15 ohm noiseless stand-in is written (its corner lies far below any span)")
+        b.r(f"{st.name}_f", out, node_in, 1e15, noiseless=True)
+    else:
+        b.r(f"{st.name}_f", out, node_in, p["r_f"])
     b.c(f"{st.name}_f", out, node_in, p["c_f"])
     b.r(f"{st.name}_cm", node_in, "0", p["r_in"], noiseless=True)
     b.c(f"{st.name}_in", node_in, "0", p["c_in"])
@@ -457,6 +462,7 @@ EXPORTERS = {
     "sensor": _sensor,
     "current_sensor": _current_sensor,
     "opamp_transimpedance": _opamp_transimpedance,
+    "charge_amplifier": _opamp_transimpedance,      # the same circuit; r_f absent: no DC bleed (see below)
     "adc": _load,
     "load": _load,
     "amplifier": _amplifier,

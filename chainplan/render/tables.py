@@ -9,7 +9,7 @@ import math
 from ..engine.budget import Budget
 from ..spec.safety import safety_notice
 from ..spec.numbers import figures, loss
-from .console import converter_of, db, end_gain, eng, stage_gain
+from .console import TRANSFER_NOTE, converter_of, db, end_gain, eng, interface_cell, stage_gain
 from .layout import Col, print_table
 
 def chain_heading(chain, console) -> None:
@@ -42,10 +42,11 @@ def budget_tables(b: Budget, console) -> None:
                 list(zip([r.source for r in b.interfaces], [r.to for r in b.interfaces],
                          figures([r.z_source_ohm for r in b.interfaces], "Ω"),
                          figures([r.z_load_ohm for r in b.interfaces], "Ω"),
-                         [loss(r.loss_db) for r in b.interfaces], marks)),
+                         [interface_cell(r) for r in b.interfaces], marks)),
                 title="Interfaces (loading): loss in dB lost", styles=["bold yellow" if m else None for m in marks],
                 caption="each row: the loss recovered if that stage's input were an open circuit; rows along "
-                        "one passive network overlap and do not add")
+                        "one passive network overlap and do not add"
+                        + ("; " + TRANSFER_NOTE if any(not r.loading for r in b.interfaces) else ""))
 
     tight = b.tightest_node
     band = c.analysis.band_hz

@@ -329,6 +329,12 @@ class StageKind:
     role: str = "two_port"          # 'source', 'two_port' or 'load'
     follower_type: bool = False     # usable as a buffer candidate
     draws_input_current: bool = False   # DC input current depends on the operating point (base current)
+    #: what the input takes from its source: 'voltage' (it reads a node's voltage), or 'current' /
+    #: 'charge' — a virtual ground that the stage's feedback holds near a fixed level on purpose,
+    #: taking the source's current (a transimpedance amplifier) or charge (a charge amplifier).
+    #: There the budget reports the current or charge transfer, not a loading loss, and the
+    #: loading requirements and the buffer advice and placement leave the interface alone.
+    input_mode: str = "voltage"
     FIELDS: dict[str, Field] = {}
     #: groups of fields of which exactly one must be given
     ONE_OF: tuple[tuple[str, ...], ...] = ()
@@ -341,6 +347,11 @@ class StageKind:
         """Loads only: the input admittance."""
         raise NotImplementedError
 
+    def input_shunt(self, p: dict, s):
+        """Virtual-ground inputs: the part of the input admittance whose current does not reach
+        the feedback network (the op-amp's own input shunt 1/r_in + s·c_in at the − input)."""
+        return 0.0
+
     # -- DC --------------------------------------------------------------
     def dc_input_load(self, p: dict, out_load: DcLoad, op: Op | None) -> DcLoad:
         """DC load presented at the input, given the DC load at the output."""
@@ -349,6 +360,10 @@ class StageKind:
     def dc_forward(self, p: dict, st_in: DcState, v_in, out_load: DcLoad) -> tuple[DcState, Op]:
         """Source relation at the output and the operating point."""
         raise NotImplementedError
+
+    def notes(self, p: dict) -> list[str]:
+        """Where the model leaves its validity or something is assumed, in words (the budget's notes)."""
+        return []
 
     # -- noise -------------------------------------------------------------
     def noise(self, p: dict, s, op: Op, temp_k) -> list:

@@ -306,6 +306,7 @@ class OpampInverting(_OpAmp):
 class OpampTransimpedance(OpampInverting):
     kind, title = "opamp_transimpedance", "op-amp transimpedance amplifier, Vout = ref − Iin·(RF ‖ CF)"
     gain_unit = "Ω"          # the stage gain the budget reports: Vout/Iin, a transimpedance
+    input_mode = "current"   # a virtual ground: it takes the source's current (StageKind.input_mode)
     FIELDS = {**COMMON,
               "r_f": Field("ohm", "feedback resistor (output to inverting input)", required=True, positive=True),
               "c_f": Field("F", "feedback capacitor across r_f", default="0 F", minimum=0.0),
@@ -335,6 +336,10 @@ class OpampTransimpedance(OpampInverting):
     @staticmethod
     def _yf(p, s):
         return 1.0 / p["r_f"] + s * p["c_f"]
+
+    def input_shunt(self, p, s):
+        """The − input's own shunt 1/r_in + s·c_in: its current bypasses the feedback network."""
+        return y_input(p, s)
 
     def noise(self, p, s, op, temp_k):
         """en at the + input (on ref), in− into the − node, RF's thermal noise as a
@@ -374,4 +379,43 @@ class OpampTransimpedance(OpampInverting):
         return ref + (v_in - ref) / m.A
 
 
-KINDS = [OpampFollower, OpampNoninverting, OpampInverting, OpampTransimpedance]
+class ChargeAmplifier(OpampTransimpedance):
+    """The transimpedance macro model with the feedback capacitor as the gain element: the
+    charge Q a sensor delivers into the virtual ground is integrated on CF, Vout = ref − Q/CF
+    (A → ∞), and RF (optional) bleeds the DC away below 1/(2π·RF·CF).  With finite A(s):
+    Vout = −Q·A/((1 + A)·CF + Ct), Ct = Cs + Ccable + Cin the capacitance at the − input
+    (Gautschi, *Piezoelectric Sensorics*, charge amplifier chapter, from memory); it is the
+    transimpedance kind's exact two-port with Zf = RF ‖ 1/(s·CF), so the loading by the cable,
+    the noise gain 1 + Zf·(Ys + Yin) → 1 + Ct/CF and the loop all follow from the same equations."""
+
+    kind, title = "charge_amplifier", "charge amplifier, Vout = ref − Q/CF (RF: the DC bleed)"
+    gain_unit = "V/C"        # the stage gain the budget reports: Vout/Qin = s·Vout/Iin
+    input_mode = "charge"
+    FIELDS = {**COMMON,
+              "c_f": Field("F", "feedback (integrating) capacitor, output to − input: the gain is −1/CF",
+                           required=True, positive=True),
+              "r_f": Field("ohm", "DC bleed resistor across c_f: the low corner 1/(2π·RF·CF); absent (inf): no DC "
+                           "path through the feedback, the DC level is undefined (taken at the reset level ref, "
+                           "and said so)", default="inf", positive=True, allow_inf=True),
+              "ref": Field("V", "voltage at the + input (the virtual ground's level)", default="0 V", rail_ok=True)}
+
+    def notes(self, p) -> list[str]:
+        if np.all(np.isinf(p["r_f"])):
+            return ["no r_f (DC bleed): the feedback has no DC path, so the DC level is undefined (the input "
+                    "bias current integrates on c_f until a rail); taken at the reset level, the output at ref; "
+                    "below the analysis span the gain is that of a pure integrator"]
+        return []
+
+    def dc_forward(self, p, st_in, v_in, out_load):
+        """With RF: the transimpedance stage's DC.  Without: the reset state, the output at ref
+        (plus the input offset) behind Ro: no DC path exists through CF (``notes``)."""
+        if not np.all(np.isinf(p["r_f"])):
+            return super().dc_forward(p, st_in, v_in, out_load)
+        out, cm = self._limits(p)
+        op = Op(values=dict(power_w=self._power(p)), in_range=(-np.inf, np.inf), out_range=out)
+        op.flag((p["ref"] < cm[0]) | (p["ref"] > cm[1]), "ref",
+                "the reference lies outside the op-amp's input common-mode range")
+        return dc_source(self._ref(p), p["r_out"]), op
+
+
+KINDS = [OpampFollower, OpampNoninverting, OpampInverting, OpampTransimpedance, ChargeAmplifier]

@@ -179,8 +179,8 @@ def metrics(ev) -> dict:
     out = {"gain_db": per(20 * np.log10(np.abs(ev.gain()[:, 0])))}
     f_lo, f_hi = ev.band_edges()
     out["f_low_hz"], out["f_high_hz"] = per(f_lo), per(f_hi)
-    for st in chain.stages:
-        out[f"loading_loss_db.{st.name}"] = per(ev.interface_loss_db(st.name, 0))
+    for name in ev.loading_interfaces():           # virtual-ground inputs have no loading loss
+        out[f"loading_loss_db.{name}"] = per(ev.interface_loss_db(name, 0))
     for node in chain.nodes:
         out[f"headroom_v.{node}"] = per(ev.headroom(node))
     power = buffers = 0.0
@@ -255,7 +255,9 @@ def has_noise() -> bool:
 
 def metric_names(chain: Chain) -> list:
     """The keys :func:`metrics` returns for this chain."""
-    return (["gain_db", "f_low_hz", "f_high_hz"] + [f"loading_loss_db.{st.name}" for st in chain.stages]
+    from ..engine.budget import virtual_grounds
+    vg = virtual_grounds(chain)
+    return (["gain_db", "f_low_hz", "f_high_hz"] + [f"loading_loss_db.{st.name}" for st in chain.stages if st.name not in vg]
             + [f"headroom_v.{n}" for n in chain.nodes] + ["power_w", "buffer_power_w"]
             + (["noise_out_vrms", "noise_in_vrms", "snr_db", "enob_bits"] if has_noise() else [])
             + dynamics_names(chain))
@@ -436,7 +438,7 @@ def _join(parts: list[ReqResult], valid) -> ReqResult:
     if first.where is not None:
         where = (first.where[0], np.concatenate([p.where[1] for p in parts]))
     return ReqResult(first.name, first.kind, cat("value"), first.limit, cat("margin"), cat("passed") & valid,
-                     first.unit, first.sense, first.requirement, where)
+                     first.unit, first.sense, first.requirement, where, first.note)
 
 
 def key_values(res: McResult, key: str | None):

@@ -132,6 +132,7 @@ class ReqResult:
     sense: str
     requirement: Requirement
     where: tuple | None = None     # aggregates: (target names, (S,) index of the one that sets the value)
+    note: str | None = None        # what the requirement left out, and why (e.g. virtual-ground inputs)
 
 
 def show(x, unit: str) -> str:
@@ -218,6 +219,16 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
                              ("rails", list(chain.rails), "rail")):
         if key in item:
             targets = _names(item, key, names, what, err)
+    if k.key == "max_loading_loss":
+        from ..engine.budget import virtual_grounds
+        vg = virtual_grounds(chain)
+        for t in targets or ():
+            if t in vg:
+                mode, amp = vg[t]
+                where = "holds its input at" if amp == t else f"feeds '{amp}', which holds its input at"
+                raise err(f"'{t}' {where} a virtual ground ({mode}-mode input): that interface has a {mode} "
+                          "transfer, not a loading loss (valid: "
+                          + ", ".join(s.name for s in chain.stages if s.name not in vg) + ")", "interfaces")
     error = None
     if "error" in item:
         try:
@@ -425,10 +436,26 @@ def _headroom(v: _Views, r):
 
 
 def _loading(v: _Views, r):
+    """The worst loading loss over the interfaces; virtual-ground inputs (a transimpedance or
+    charge amplifier's, ``StageKind.input_mode``) have none and are left out (``_loading_note``)."""
     ev, j = v.at(r.at_hz)
-    names = list(r.targets or [s.name for s in ev.chain.stages])
+    names = list(r.targets or ev.loading_interfaces())
+    if not names:
+        return np.zeros(v.n), None
     rows = np.stack([per_sample(ev.interface_loss_db(n, j), v.n) for n in names])
     return _worst(rows, [f"{ev.chain.stage(n).parent} → {n}" for n in names], np.argmax)
+
+
+def _loading_note(v: _Views, r) -> str | None:
+    """Which interfaces ``max_loading_loss`` left out: the virtual-ground inputs."""
+    if r.targets:
+        return None
+    vg = v.ev.virtual_grounds
+    skipped = [f"{st.parent} → {st.name} ({vg[st.name][0]}-mode input)" for st in v.ev.chain.stages if st.name in vg]
+    if not skipped:
+        return None
+    return ("left out: " + ", ".join(skipped) + ", a virtual ground: a current or charge transfer, "
+            "not a loading loss")
 
 
 def _worst(rows, names, pick):
@@ -547,7 +574,8 @@ def evaluate_requirements(ev, reqs=None) -> list[ReqResult]:
         margin = value - r.limit if r.sense == "min" else r.limit - value
         with np.errstate(invalid="ignore"):
             passed = (margin >= 0) & valid
-        out.append(ReqResult(r.name, r.kind, value, r.limit, margin, passed, r.unit, r.sense, r, where))
+        note = _loading_note(views, r) if r.key == "max_loading_loss" else None
+        out.append(ReqResult(r.name, r.kind, value, r.limit, margin, passed, r.unit, r.sense, r, where, note))
     return out
 
 
@@ -565,7 +593,7 @@ def result_dict(res: ReqResult, i: int = 0) -> dict:
     """One requirement's outcome for sample ``i`` as plain values (JSON, diffs)."""
     return {"name": res.name, "kind": res.kind, "limit": res.limit, "unit": res.unit, "sense": res.sense,
             "value": float(res.value[i]), "margin": float(res.margin[i]), "passed": bool(res.passed[i]),
-            "where": where_of(res, i)}
+            "where": where_of(res, i), "note": res.note}
 
 
 def attach_to_budget(b) -> None:
