@@ -197,5 +197,21 @@ def test_no_bleed_resistor_is_said(cli, spec_file):
     assert any("no r_f" in n and "undefined" in n for n in notes)
     # ref behind Ro = 30 Ω into the 10 kΩ load to 1 V: a divider (Ohm's law)
     assert float(np.ravel(b.ev.dc.node_v["qa"])[0]) == pytest.approx(1 + 0.5 * 10e3 / 10030, abs=1e-9)
+    rc, out, _ = cli("budget", spec_file(QAMP.replace("r_f: 1G", "r_f: inf")), "--json")
+    assert any("undefined" in n for n in json.loads(out)["model_notes"])
     rc, _, err = cli("budget", spec_file(QAMP.replace("r_f: 1G", "r_f: inf").replace("r: 10G", "r: inf")))
     assert rc == 2 and "no DC path" in err and "r_f" in err
+
+
+def test_loop_crosses_at_gbw_over_the_noise_gain():
+    """The loop gain of a charge amplifier is A·CF/(CF + Ct) (β = CF/(CF + Ct), the capacitive
+    divider at the − input): for a single-pole op-amp it crosses 1 at GBW·CF/(CF + Ct) with a
+    phase margin just under 90° (Franco, *Design with Operational Amplifiers*, stability
+    chapter, from memory); engine/loop.py finds both."""
+    from chainplan.engine.loop import analyse_loops
+    ev = evaluate(_textbook_chain())
+    res = next(r for r in analyse_loops(ev) if r.stage == "qa")
+    beta = CF / (CF + CS + CC + CIN)
+    assert float(res.f_cross_hz[0]) == pytest.approx(GBW * beta, rel=0.01)
+    # the dominant pole at GBW/A0 lies far below the crossover: PM = 90° − atan(f_p/f_c)
+    assert float(res.pm_deg[0]) == pytest.approx(90 - math.degrees(math.atan(GBW / A0 / (GBW * beta))), abs=0.2)

@@ -22,7 +22,7 @@ GOLDEN = REPO / "tests" / "golden"
 UPDATE = os.environ.get("CHAINPLAN_UPDATE_GOLDEN") == "1"
 REGENERATE = "CHAINPLAN_UPDATE_GOLDEN=1 python -m pytest -q tests/test_golden.py"
 WIDTHS = (80, 120)
-CANDIDATES = {"hydrophone_buffered", "hydrophone_direct", "photodiode_tia", "vibration_fanout"}
+CANDIDATES = {"hydrophone_buffered", "hydrophone_direct", "photodiode_tia", "piezo_charge_amp", "vibration_fanout"}
 
 
 def _screens():

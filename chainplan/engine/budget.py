@@ -472,6 +472,8 @@ def analyse(chain: Chain) -> Budget:
     b = Budget(chain, ev, stages, interfaces, nodes, gain_db, nan2none(_f(f_lo)), nan2none(_f(f_hi)), out, dbfs,
                peak_gain_db=float(span_db[k]), f_peak_hz=float(ev.span[k]),
                gain_unit="dBΩ" if ev.signal_unit == "A" else "dB")
-    for st in chain.stages:                          # what a stage's model assumes, in words
-        b.extra_summary.extend(("note", f"{st.name}: {text}") for text in st.model.notes(st.params))
+    notes = [f"{st.name}: {text}" for st in chain.stages for text in st.model.notes(st.params)]
+    b.extra_summary.extend(("note", n) for n in notes)    # what a stage's model assumes, in words
+    if notes:
+        b.extra_json["model_notes"] = notes
     return b
