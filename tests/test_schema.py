@@ -53,6 +53,10 @@ BROKEN = {
     "unknown field": (lambda d: d["stages"][0].__setitem__("wl", 20), ["stages", 0]),
     "missing required field": (lambda d: d["stages"][2].pop("bits"), ["stages", 2]),
     "both bias choices": (lambda d: d["stages"][0].__setitem__("r_s", "10k"), ["stages", 0]),
+    "aspect ratio and width": (lambda d: d["stages"][0].__setitem__("w", "100u"), ["stages", 0]),
+    "width and length beside the aspect ratio": (lambda d: d["stages"][0].update(w="100u", l="5u"), ["stages", 0]),
+    "length without width": (lambda d: (d["stages"][0].pop("w_over_l"), d["stages"][0].__setitem__("l", "5u")),
+                             ["stages", 0]),
     "unknown top-level key": (lambda d: d.__setitem__("stagess", []), []),
     "unknown hazard": (lambda d: d.__setitem__("hazards", ["radiation"]), ["hazards"]),
     "current for the bulk": (lambda d: d["stages"][0].__setitem__("bulk", "3 A"), ["stages", 0, "bulk"]),
@@ -78,6 +82,7 @@ TEXTS = [
     ("Hz", "10 Mhz"), ("A/V2", "200 µA/V²"), ("sqrtV", "0.45 √V"), ("1/V", "0.04 /V"), ("1/V", "20m"),
     ("K", "27 °C"), ("K", "300 K"), ("F/m", "90 pF/m"), ("V/rtHz", "4 nV/√Hz"), ("dB", "110 dB"),
     ("dB", "110 mdB"), ("1", "100x"), ("m", "3 m"), ("m", "50 cm"),
+    ("m", "2 µm"), ("m", "100u"), ("m", "180 nm"),
 ]
 
 
@@ -90,6 +95,13 @@ def test_value_pattern_agrees_with_the_parser(unit, text):
     except UnitError:
         ok = False
     assert bool(re.match(unit_pattern(unit, allow_inf=True, tolerable=True), text)) == ok
+
+
+def test_width_and_length_instead_of_the_aspect_ratio_validate(validator):
+    doc = copy.deepcopy(_demo("ph_probe_dc"))
+    doc["stages"][0].pop("w_over_l")
+    doc["stages"][0].update(w="100 µm", l="5u")
+    assert not list(validator.iter_errors(doc))
 
 
 def test_cli_prints_the_schema(cli):

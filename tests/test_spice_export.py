@@ -55,7 +55,7 @@ stages:
   - {name: amp, kind: amplifier, gain: -2, r_in: 100k, r_out: 10, in_ref: vmid, out_ref: 0.92 V,
      en: 20 nV/√Hz}
   - {name: pull, kind: shunt_r, r: 47k, ref: 0.92 V}
-  - {name: csl, kind: common_source, kp: 100 µA/V², w_over_l: 20, vth0: 0.5 V, lambda: 0.03 /V,
+  - {name: csl, kind: common_source, kp: 100 µA/V², w: 50 µm, l: 2.5u, vth0: 0.5 V, lambda: 0.03 /V,
      bulk: source, i_load: 100 µA, r_load: 20k, i_load_noise: 2 pA/√Hz}
   - {name: end, kind: load, r_in: 1meg, c_in: 10 pF}
 analysis: {f_ref: 1 kHz, f_start: 1 Hz, f_stop: 100 MHz, points: 401}
@@ -183,6 +183,16 @@ def test_netlist_uses_level1_models_controlled_sources_and_rails():
     assert m and float(m.group(1)) == pytest.approx(0.18 * (1 - 3354e-6 * 0.15), rel=1e-9)
     assert ".control" in text and text.rstrip().endswith(".end")
     assert text.isascii()
+
+
+def test_mosfet_width_and_length_go_on_the_instance():
+    """A device given by w and l keeps them (SPICE W, L); one given by W/L alone gets
+    W = (W/L)·10 µm at L = 10 µm (ngspice's level 1 depends on the ratio only: the
+    DC and AC agreement of mos_mix above checks both)."""
+    text = export(chain_from(MOS_MIX, "mos_mix.yaml")).text()
+    inst = {ln.split()[0]: ln for ln in text.splitlines() if ln.startswith("M")}
+    assert inst["Mcsl"].endswith("W=5e-05 L=2.5e-06"), inst["Mcsl"]
+    assert inst["Mcs"].endswith("W=0.0001 L=1e-05"), inst["Mcs"]
 
 
 def test_case_clashing_and_reserved_names_stay_distinct():

@@ -72,6 +72,12 @@ def threshold(vth0, gamma, phi, vsb):
     return vth0 + gamma * (np.sqrt(phi + vsb) - np.sqrt(phi))
 
 
+def aspect(p):
+    """W/L of the device: the spec's ``w_over_l``, or ``w/l`` when width and length are given."""
+    w_over_l = p.get("w_over_l")
+    return w_over_l if w_over_l is not None else p["w"] / p["l"]
+
+
 def drain_current(kp, w_over_l, vov, vds, lam):
     """Saturation: Id = ½·k'·(W/L)·Vov²·(1 + λ·VDS); zero below threshold (level-1)."""
     vov = np.maximum(vov, 0.0)
@@ -96,13 +102,13 @@ def solve_source(p, v_g, v_d, v_bulk, i_out):
     def mismatch(vs):
         vsb = vs - v_bulk if v_bulk is not None else 0.0
         vth = threshold(p["vth0"], p["gamma"], p["phi"], vsb)
-        i_d = drain_current(p["kp"], p["w_over_l"], v_g - vs - vth, v_d - vs, p["lambda"])
+        i_d = drain_current(p["kp"], aspect(p), v_g - vs - vth, v_d - vs, p["lambda"])
         return i_d - i_out(vs)
     vs = bisect(mismatch, np.minimum(v_g, v_d) - 50.0, v_g + 20.0)
     vsb = vs - v_bulk if v_bulk is not None else 0.0 * vs
     vth = threshold(p["vth0"], p["gamma"], p["phi"], vsb)
     vov = v_g - vs - vth
-    i_d = drain_current(p["kp"], p["w_over_l"], vov, v_d - vs, p["lambda"])
+    i_d = drain_current(p["kp"], aspect(p), vov, v_d - vs, p["lambda"])
     return vs, i_d, vov, vth, vsb
 
 

@@ -57,7 +57,8 @@ from ..stages.passive import Passive
 
 #: Conductance of the op-amp/amplifier pole node, S (sets the scale of the pole network only).
 G_POLE = 1e-3
-#: Channel length written on MOSFET instances; W follows from W/L (level 1 has no short-channel terms).
+#: Channel length written on MOSFET instances given by W/L alone; W follows from W/L (level 1 has no
+#: short-channel terms, so only the ratio matters there).
 L_M = 10e-6
 #: Node names SPICE reserves (ngspice treats 'gnd' as ground).
 RESERVED = {"0", "gnd"}
@@ -381,7 +382,12 @@ def _mos_bulk(b: _Builder, st: Stage, p, source_node, low_node) -> str:
 
 
 def _mos_instance(b, st, p, d, g, s, bulk, model):
-    b.elem("M", st.name, d, g, s, bulk, model, f"W={_num(p['w_over_l'] * L_M)}", f"L={_num(L_M)}")
+    """The NMOS instance: the spec's W and L, or W = (W/L)·L_M at L = L_M for an aspect ratio alone."""
+    if p.get("w_over_l") is None:
+        w, l = p["w"], p["l"]
+    else:
+        w, l = p["w_over_l"] * L_M, L_M
+    b.elem("M", st.name, d, g, s, bulk, model, f"W={_num(w)}", f"L={_num(l)}")
 
 
 def _source_follower(b: _Builder, st: Stage, p, node_in):

@@ -8,6 +8,7 @@ from __future__ import annotations
 import sys
 
 from ..stages import REGISTRY
+from ..stages.base import alternative_text
 from .loader import range_text
 from .units import UNITS
 
@@ -47,7 +48,8 @@ def markdown() -> str:
         out.append(f"### `{kind}` — {model.title}")
         out.append("")
         for group in model.ONE_OF:
-            out.append("Give exactly one of " + ", ".join(f"`{g}`" for g in group) + ".")
+            sep = ", or " if any(not isinstance(g, str) for g in group) else ", "
+            out.append("Give exactly one of " + sep.join(alternative_text(g, "`") for g in group) + ".")
             out.append("")
         out.append("| field | quantity | default | range | meaning |")
         out.append("|---|---|---|---|---|")

@@ -17,7 +17,7 @@ import re
 from ..errors import SpecError, nearest
 from .model import Analysis, Chain, Stage
 from ..stages import REGISTRY
-from ..stages.base import Field
+from ..stages.base import Field, alternative_fields, alternative_text
 from .sensitivity import parse_sensitivity
 from .units import UnitError, parse_field_value, parse_toleranced, parse_value
 from .yamlsrc import LDict, LList, load_file, load_text
@@ -264,10 +264,7 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
         if key not in allowed:
             raise ctx.err(f"'{kind}' has no field '{key}'" + nearest(key, allowed), node.line_of(key), f"{name}.{key}")
     for group in model.ONE_OF:
-        given = [g for g in group if g in node]
-        if len(given) != 1:
-            raise ctx.err(f"give exactly one of: {', '.join(group)}" + (f" (got {', '.join(given)})" if given else ""),
-                          node.line_of(given[1]) if len(given) > 1 else node.line, f"{name}.{group[0]}")
+        _one_of(ctx, node, name, group)
     for key, f in fields.items():
         line = node.line_of(key)
         where = f"{name}.{key}"
@@ -314,6 +311,26 @@ def _resolve_sensitivity(ctx, st, node) -> None:
                       "'excitation' (a rail or a voltage)", line, where)
     st.params["sensitivity"] = float(sens.resolve(c, abs(exc) if exc is not None else None))
     st.raw["__sensitivity__"] = sens
+
+
+def _one_of(ctx, node, name, group) -> None:
+    """Exactly one alternative of ``group`` given, and a multi-field alternative
+    (``w`` and ``l``) given whole."""
+    alts = [alternative_fields(a) for a in group]
+    words = ", or ".join(alternative_text(a) for a in group) if any(len(a) > 1 for a in alts) \
+        else ", ".join(group)
+    given = [a for a in alts if any(k in node for k in a)]
+    for a in given:
+        missing = [k for k in a if k not in node]
+        if missing:
+            have = [k for k in a if k in node]
+            raise ctx.err(f"'{have[0]}' needs {' and '.join(repr(m) for m in missing)} beside it "
+                          f"(give exactly one of: {words})", node.line_of(have[0]), f"{name}.{have[0]}")
+    if len(given) != 1:
+        got = [k for a in given for k in a]
+        second = given[1][0] if len(given) > 1 else None
+        raise ctx.err(f"give exactly one of: {words}" + (f" (got {', '.join(got)})" if got else ""),
+                      node.line_of(second) if second else node.line, f"{name}.{second or alts[0][0]}")
 
 
 def _field_value(ctx, f, raw, rails, line, where, st, key):

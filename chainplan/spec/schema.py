@@ -19,6 +19,7 @@ import re
 
 from . import loader as spec
 from ..stages import REGISTRY
+from ..stages.base import alternative_fields
 from .units import PREFIXES, UNITS
 
 SCHEMA_ID = "https://chainplan.invalid/chain.schema.json"
@@ -93,7 +94,13 @@ def stage_schema(kind: str, is_source: bool = False) -> dict:
     out = {"type": "object", "properties": props, "additionalProperties": False,
            "required": ["kind"] + ([] if is_source else ["name"]) + [k for k, f in model.FIELDS.items() if f.required]}
     if model.ONE_OF:
-        out["allOf"] = [{"oneOf": [{"required": [g]} for g in group]} for group in model.ONE_OF]
+        out["allOf"] = [{"oneOf": [{"required": list(alternative_fields(g))} for g in group]}
+                        for group in model.ONE_OF]
+        # a field of a multi-field alternative needs the others beside it (w needs l)
+        deps = {k: [m for m in alt if m != k] for group in model.ONE_OF
+                for alt in map(alternative_fields, group) if len(alt) > 1 for k in alt}
+        if deps:
+            out["dependencies"] = deps
     return out
 
 

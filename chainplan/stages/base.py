@@ -336,8 +336,9 @@ class StageKind:
     #: loading requirements and the buffer advice and placement leave the interface alone.
     input_mode: str = "voltage"
     FIELDS: dict[str, Field] = {}
-    #: groups of fields of which exactly one must be given
-    ONE_OF: tuple[tuple[str, ...], ...] = ()
+    #: groups of alternatives of which exactly one must be given; an alternative is a field
+    #: name or a tuple of names given together (``("w_over_l", ("w", "l"))``)
+    ONE_OF: tuple[tuple, ...] = ()
 
     # -- small signal --------------------------------------------------
     def abcd(self, p: dict, s, op: Op) -> ABCD:  # pragma: no cover - abstract
@@ -372,3 +373,13 @@ class StageKind:
 
 
 Check = Callable[[dict], str | None]
+
+
+def alternative_fields(alt) -> tuple[str, ...]:
+    """The field names of one ``ONE_OF`` alternative (a name or a tuple of names)."""
+    return (alt,) if isinstance(alt, str) else tuple(alt)
+
+
+def alternative_text(alt, quote: str = "") -> str:
+    """An alternative in words: ``w_over_l`` or ``w and l``."""
+    return " and ".join(f"{quote}{n}{quote}" for n in alternative_fields(alt))

@@ -13,7 +13,7 @@ import numpy as np
 
 from ..devices import mosfet
 from ..devices.solve import bisect
-from .device_fields import mosfet_fields
+from .device_fields import MOSFET_ONE_OF, mosfet_fields
 from .base import Field, Op, StageKind, dc_source, inv, unilateral
 from .noise_sources import (NoiseSource, density, mosfet_channel_psd, mosfet_noise_fields, sink_noise_field,
                             thermal_i, thermal_v)
@@ -31,7 +31,7 @@ class CommonSource(StageKind):
         **mosfet_noise_fields(),
         **sink_noise_field("i_load", "current-source load"),
     }
-    ONE_OF = (("r_d", "i_load"),)
+    ONE_OF = (MOSFET_ONE_OF, ("r_d", "i_load"))
 
     def _supply(self, p):
         if p.get("r_d") is not None:
@@ -52,11 +52,11 @@ class CommonSource(StageKind):
             vth = mosfet.threshold(p["vth0"], p["gamma"], p["phi"], vsb)
 
             def kcl(v, vs=vs, vth=vth):   # decreasing in v: supply − device − load
-                i_d = mosfet.drain_current(p["kp"], p["w_over_l"], v_in - vs - vth, v - vs, p["lambda"])
+                i_d = mosfet.drain_current(p["kp"], mosfet.aspect(p), v_in - vs - vth, v - vs, p["lambda"])
                 return supply(v) - i_d - (out_load.G * v - out_load.I0)
             vd = bisect(kcl, vs, p["drain"] + 0.0 * vs)
         vov = v_in - vs - vth
-        i_d = mosfet.drain_current(p["kp"], p["w_over_l"], vov, vd - vs, p["lambda"])
+        i_d = mosfet.drain_current(p["kp"], mosfet.aspect(p), vov, vd - vs, p["lambda"])
         gm, gmb, ro = mosfet.small_signal(i_d, vov, vd - vs, p["lambda"], p["gamma"], p["phi"], vsb)
         if v_b is None:
             gmb = 0.0 * gm

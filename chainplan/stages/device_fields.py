@@ -3,11 +3,19 @@ from __future__ import annotations
 
 from .base import Field
 
+#: the MOSFET stages' choice of geometry: the aspect ratio alone, or width and length
+MOSFET_ONE_OF = ("w_over_l", ("w", "l"))
+
+
 def mosfet_fields():
     """Spec fields shared by every MOSFET stage (level-1 parameter names in words)."""
     return {
         "kp": Field("A/V2", "transconductance parameter k' = µn·Cox (SPICE KP)", required=True, positive=True),
-        "w_over_l": Field("1", "aspect ratio W/L", required=True, positive=True),
+        "w_over_l": Field("1", "aspect ratio W/L (or give the channel width w and length l)", positive=True),
+        "w": Field("m", "channel width W (SPICE W; with l, instead of w_over_l)", positive=True, tiny=1e-9,
+                   maximum=1.0),
+        "l": Field("m", "channel length L (SPICE L; with w, instead of w_over_l)", positive=True, tiny=1e-9,
+                   maximum=1.0),
         "vth0": Field("V", "zero-bias threshold voltage (SPICE VTO)", required=True),
         "lambda": Field("1/V", "channel-length modulation (SPICE LAMBDA)", default="0 /V", minimum=0.0),
         "gamma": Field("sqrtV", "body-effect coefficient (SPICE GAMMA)", default="0 √V", minimum=0.0),

@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..devices import mosfet
-from .device_fields import mosfet_fields
+from .device_fields import MOSFET_ONE_OF, mosfet_fields
 from .base import DcLoad, Field, Op, StageKind, dc_source, follower, inv
 from .dc_sources import doubled, doubling_field, limit
 from .noise_sources import (NoiseSource, follower_low_side_noise, mosfet_channel_psd, mosfet_noise_fields,
@@ -36,7 +36,7 @@ class SourceFollower(StageKind):
         "i_gate": limit("A", "gate leakage current, a limit at 25 °C (protection diodes, package)"),
         **doubling_field("gate"),
     }
-    ONE_OF = (("i_bias", "r_s"),)
+    ONE_OF = (MOSFET_ONE_OF, ("i_bias", "r_s"))
 
     def _bias(self, p):
         """(bias current at vs, resistance from source to v_low) for either bias choice."""
