@@ -281,6 +281,8 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
     nominal = params is None and ws is None
     params = params if params is not None else nominal_params(chain)
     params = {st.name: at_temperature(st.raw.get("__tempco__"), params[st.name]) for st in chain.all_stages}
+    if not nominal:
+        params = with_nominal_references(chain, params)
     f_hz = frequency_grid(chain) if f_hz is None else f_hz
     # A floating node or an impossible bias gives non-finite numbers in some samples;
     # they are reported per sample (check_operating_points, valid), not as numpy warnings.
@@ -292,6 +294,27 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
     if nominal:
         check_finite(ev)
     return ev
+
+
+def with_nominal_references(chain: Chain, params: dict) -> dict:
+    """``params`` with what stages stated at the nominal operating point need from it
+    (``StageKind.wants_reference``: a MOSFET's flicker corner holds at the nominal
+    bias, and a Monte Carlo sample or another temperature scales it from there).
+    Costs one nominal DC pass, only for chains that have such a stage.  (The placement
+    search's per-sample switch stages are no stage kinds: their candidates are their
+    own reference.)"""
+    wanted = [st for st in chain.all_stages if st.name in params
+              and getattr(st.model, "wants_reference", None) and st.model.wants_reference(st.params)]
+    if not wanted:
+        return params
+    nom = nominal_params(chain)
+    nom = {st.name: at_temperature(st.raw.get("__tempco__"), nom[st.name]) for st in chain.all_stages}
+    with np.errstate(divide="ignore", invalid="ignore"):
+        dc = solve_dc(chain, nom)
+    out = dict(params)
+    for st in wanted:
+        out[st.name] = {**params[st.name], **st.model.nominal_reference(nom[st.name], dc.ops[st.name])}
+    return out
 
 
 def check_finite(ev: Evaluation) -> None:

@@ -60,6 +60,8 @@ G_POLE = 1e-3
 #: Channel length written on MOSFET instances given by W/L alone; W follows from W/L (level 1 has no
 #: short-channel terms, so only the ratio matters there).
 L_M = 10e-6
+#: SPICE's default oxide thickness (TOX), m: the Cox ngspice's level-1 flicker term uses without TOX.
+SPICE_TOX_DEFAULT_M = 1e-7
 #: Node names SPICE reserves (ngspice treats 'gnd' as ground).
 RESERVED = {"0", "gnd"}
 
@@ -115,6 +117,7 @@ class _Builder:
         self.nodes: dict[str, str] = {}
         self.volt_nodes: dict[tuple, str] = {}
         self.source_elem = ""
+        self.ops: dict = {}                # stage -> nominal Op (flicker noise on the model cards)
 
     # -- names ---------------------------------------------------------------
     def new_node(self, wanted: str) -> str:
@@ -356,8 +359,27 @@ def _channel_noise_notes(b: _Builder, st: Stage, p) -> None:
     gamma = p.get("noise_gamma")
     if gamma is not None and abs(_val(gamma) - 2.0 / 3.0) > 1e-9:
         b.note(f"{st.name}: level-1 channel noise is 8kT·gm/3 (gamma 2/3), not {_num(gamma)}")
-    if _val(p.get("flicker_corner", 0.0)) > 0:
-        b.note(f"{st.name}: the channel's 1/f corner is not modelled (white part only)")
+
+
+def _flicker_card(b: _Builder, st: Stage, p) -> str:
+    """`` kf=… af=…`` for the model card, or nothing without flicker noise.  ngspice's
+    level 1 computes KF·Id^AF/(f·Cox²·W·L) (mos1noi.c) with Cox from TOX, and TOX
+    also gives the device Meyer capacitances chainplan's level 1 does not have; so
+    the card keeps TOX at its default (1e-7 m) and KF is scaled to give chainplan's
+    coefficient c (noise_sources.mosfet_flicker_coefficient) on this instance:
+    KF_card = c·Cox(1e-7 m)²·W·L/Id^AF.  A corner is written this way at the nominal
+    operating point."""
+    from ..stages.noise_sources import mosfet_flicker_coefficient, oxide_capacitance
+    c = _val(mosfet_flicker_coefficient(p, b.ops[st.name].values, p["temp_k"]))
+    if c == 0:
+        return ""
+    w, l = _geometry(p)
+    af = _val(p.get("af", 1.0))
+    i_d = abs(_val(b.ops[st.name].values["id_a"]))
+    kf = c * _val(oxide_capacitance(SPICE_TOX_DEFAULT_M)) ** 2 * w * l / i_d ** af
+    b.note(f"{st.name}: flicker noise as KF·Id^AF/(f·Cox²·W·L) with TOX at its default {SPICE_TOX_DEFAULT_M:g} m "
+           "(no Meyer capacitances); KF scaled to match")
+    return f" kf={_num(kf)} af={_num(af)}"
 
 
 def _mos_model(b: _Builder, st: Stage, p) -> str:
@@ -370,7 +392,7 @@ def _mos_model(b: _Builder, st: Stage, p) -> str:
         kp, vto, tnom = q["kp"], q["vth0"], p["temp_k"]
     b.models.append(f".model {name} nmos level=1 kp={_num(kp)} vto={_num(vto)} "
                     f"lambda={_num(p['lambda'])} gamma={_num(p['gamma'])} phi={_num(p['phi'])} "
-                    f"tnom={tnom - 273.15:.6g}")
+                    f"tnom={tnom - 273.15:.6g}{_flicker_card(b, st, p)}")
     return name
 
 
@@ -381,12 +403,16 @@ def _mos_bulk(b: _Builder, st: Stage, p, source_node, low_node) -> str:
     return b.volts(bulk, st)
 
 
-def _mos_instance(b, st, p, d, g, s, bulk, model):
-    """The NMOS instance: the spec's W and L, or W = (W/L)·L_M at L = L_M for an aspect ratio alone."""
+def _geometry(p) -> tuple[float, float]:
+    """(W, L) of the instance: the spec's, or W = (W/L)·L_M at L = L_M for an aspect ratio alone."""
     if p.get("w_over_l") is None:
-        w, l = p["w"], p["l"]
-    else:
-        w, l = p["w_over_l"] * L_M, L_M
+        return _val(p["w"]), _val(p["l"])
+    return _val(p["w_over_l"]) * L_M, L_M
+
+
+def _mos_instance(b, st, p, d, g, s, bulk, model):
+    """The NMOS instance with its W and L (:func:`_geometry`)."""
+    w, l = _geometry(p)
     b.elem("M", st.name, d, g, s, bulk, model, f"W={_num(w)}", f"L={_num(l)}")
 
 
@@ -482,13 +508,11 @@ EXPORTERS = {
 }
 
 
-def _edge_measures(chain: Chain, out_node: str) -> list:
+def _edge_measures(chain: Chain, out_node: str, ev) -> list:
     """Measures of the passband gain and of the −3 dB edges as the budget defines them
     (``Evaluation.passband``: the gain at a declared mid-band, else the largest over
     the signal band or the span), and only of the edges the budget finds in the span:
     a measure of an edge that does not exist is an ngspice error."""
-    from ..engine.budget import evaluate
-    ev = evaluate(chain)
     f_lo, f_hi = (float(np.ravel(x)[0]) for x in ev.band_edges())
     f_pb = float(np.ravel(ev.passband()[1])[0])
     a, v = chain.analysis, f"vdb({out_node})"
@@ -525,13 +549,15 @@ def _exporter(chain: Chain, st: Stage):
 def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
     """The SPICE netlist of a chain at its nominal values (raises SpecError, naming
     the stage, when a stage has no SPICE form)."""
-    from ..engine.budget import nominal_params
+    from ..engine.budget import evaluate, nominal_params
     from ..stages.base import at_temperature
     # fields with a temperature coefficient at the chain's temperature (the netlist is at that temperature)
     params = {name: at_temperature(chain.stage(name).raw.get("__tempco__"), p)
               for name, p in nominal_params(chain).items()}
     fns = {st.name: _exporter(chain, st) for st in chain.all_stages}   # refuse before building anything
     b = _Builder(chain)
+    ev = evaluate(chain)
+    b.ops = ev.dc.ops
     src = chain.source
     b.nodes[src.name] = fns[src.name](b, src, params[src.name], None)
     for st in chain.stages:
@@ -550,8 +576,8 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
               f"* The sensor source {src_elem} has AC 1: every AC result is the transfer V(node)/"
               + ("Is (ohms)" if unit == "A" else "Vs"),
               f"* that the budget reports.  The signal itself is {amp} {unit} peak (the SIN term).",
-              "* Noise: resistors, transistors, data-sheet en/in, bias-source and sensor shot noise",
-              "* (white parts);",
+              "* Noise: resistors, transistors (MOSFET 1/f noise as KF/AF), data-sheet en/in,",
+              "* bias-source and sensor shot noise (white parts);",
               "* an ADC's quantisation and own noise are not part of a SPICE noise analysis.",
               "* chainplan node -> SPICE node: " + ", ".join(f"{k} -> {v}" for k, v in b.nodes.items()),
               *(f"* {ln}" for ln in textwrap.wrap(_ascii(safety_notice(chain.hazards) or ""), 90))]
@@ -576,7 +602,7 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
         f"echo Gain to {out_node} at {_num(a.f_ref_hz)} Hz in dB, the passband gain, then the -3 dB band "
         "edges in Hz:",
         f"meas ac gain_ref_db find vdb({out_node}) at={_num(a.f_ref_hz)}",
-        *_edge_measures(chain, out_node),
+        *_edge_measures(chain, out_node, ev),
         "setplot noise2",
         f"echo Integrated noise over the span at the output in V rms and referred to the sensor in {unit} rms:",
         "print onoise_total inoise_total",

@@ -292,6 +292,8 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
             tolerances[(name, key)] = tol
     if "sensitivity" in st.params:
         _resolve_sensitivity(ctx, st, node)
+    for fld, msg in model.spec_problems(st.params):
+        raise ctx.err(msg, node.line_of(fld) if fld in node else node.line, f"{name}.{fld}")
     return st
 
 

@@ -371,6 +371,20 @@ class StageKind:
         """Noise sources of this stage (see chainplan.engine.noise)."""
         return []
 
+    # -- spec checks and nominal references ----------------------------------
+    def spec_problems(self, p: dict) -> list:
+        """(field, message) for fields that do not go together, at spec time (nominal values)."""
+        return []
+
+    def wants_reference(self, p: dict) -> bool:
+        """True when a study's evaluation needs values of the nominal operating point
+        (:meth:`nominal_reference`; e.g. a MOSFET's flicker corner, stated at the nominal bias)."""
+        return False
+
+    def nominal_reference(self, p: dict, op: Op) -> dict:
+        """Extra parameters taken from the nominal operating point ``op`` (see :meth:`wants_reference`)."""
+        return {}
+
 
 Check = Callable[[dict], str | None]
 

@@ -29,6 +29,7 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
+from ..constants import EPS_OX
 from .base import K_BOLTZMANN, Q_ELECTRON, Field, inv
 
 
@@ -73,22 +74,107 @@ def density(d, s, corner_hz):
 
 
 def mosfet_noise_fields() -> dict:
-    """Noise fields of the MOSFET stages."""
+    """Noise fields of the MOSFET stages: the channel's thermal-noise factor and its
+    flicker noise, either as a corner (a shorthand) or as SPICE's KF/AF coefficients."""
     return {
         "noise_gamma": Field("1", "channel thermal-noise factor γ in 4kTγ·gm (default 2/3, long channel; "
                              "the SPICE level-1 value)", minimum=0.0),
-        "flicker_corner": Field("Hz", "1/f corner of the channel noise (0: no flicker noise)",
-                                default="0 Hz", minimum=0.0),
+        "flicker_corner": Field("Hz", "1/f corner of the channel noise at the nominal operating point "
+                                "(nominal parts, the chain's temperature); elsewhere the 1/f part follows "
+                                "Id^af as the kf form does (0: no flicker noise)", default="0 Hz", minimum=0.0),
+        "kf": Field("1", "flicker-noise coefficient (SPICE KF) of SPICE level 1's 1/f drain-current noise "
+                    "KF·Id^AF/(f·Cox²·W·L), in SI units (0: none; needs w, l and tox; instead of "
+                    "flicker_corner)", default="0", minimum=0.0, tiny=1e-60, maximum=1.0),
+        "af": Field("1", "flicker-noise current exponent (SPICE AF): the 1/f drain-current noise grows as "
+                    "Id^AF (kf, and flicker_corner away from its bias)", default="1", minimum=0.0, maximum=3.0),
+        "tox": Field("m", "gate-oxide thickness (SPICE TOX): Cox = 3.9·ε0/tox in the kf form (no "
+                     "capacitances are derived from it)", positive=True, tiny=1e-10, maximum=1e-5),
     }
 
 
-def mosfet_channel_psd(p, s, gm, temp_k):
-    """Drain-current noise 4kTγ·gm·(1 + fc/f) (van der Ziel; Razavi, *Design of Analog
-    CMOS Integrated Circuits*, ch. 7, from memory); referred to the gate it is
-    4kTγ/gm."""
+def mosfet_noise_problems(p: dict) -> list:
+    """(field, message) for flicker fields that do not go together (spec time, nominal values)."""
+    kf, fc = float(np.max(p.get("kf", 0.0))), float(np.max(p.get("flicker_corner", 0.0)))
+    out = []
+    if kf > 0 and fc > 0:
+        out.append(("kf", "give the flicker noise one way: kf (SPICE's coefficient, with af and tox) or "
+                          "flicker_corner (a corner at the nominal bias), not both"))
+    elif kf > 0 and p.get("tox") is None:
+        out.append(("kf", "kf needs the oxide thickness tox (Cox = 3.9·ε0/tox, as SPICE takes it), "
+                          "e.g. tox: 10 nm"))
+    elif kf > 0 and p.get("w_over_l") is not None:
+        out.append(("kf", "kf needs the channel width and length: give w and l (e.g. w: 100 µm, l: 2 µm) "
+                          "instead of w_over_l"))
+    return out
+
+
+def oxide_capacitance(tox):
+    """Cox = εox/tox, F/m² (εox = 3.9·ε0: the parallel-plate gate capacitance per area, Sze, from memory)."""
+    return EPS_OX / np.asarray(tox, dtype=float)
+
+
+def mosfet_flicker_coefficient(p, v, temp_k):
+    """The 1/f drain-current noise as a coefficient c (A²): S_id,1/f = c/f.
+
+    * ``kf``: SPICE level 1's form c = KF·Id^AF/(Cox²·W·L) — the form ngspice's level-1
+      MOSFET computes (mos1noi.c, flicker term; measured here with ngspice 39: the
+      density scales as Id^AF/(W·L·Cox²), not as the KF·Id^AF/(Cox·L²) of the SPICE2
+      manual).  With AF = 1 its gate-referred level c/(gm²·f) = KF/(2·KP·Cox²·W²·f) does
+      not depend on the bias: the physical (McWhorter number-fluctuation) behaviour of
+      a long-channel device (Razavi, ch. 7, from memory).
+    * ``flicker_corner`` fc: c = 4kTγ·gm0·fc·(Id/Id0)^AF, with gm0, Id0 (and T) those of
+      the nominal operating point (``p['flicker_gm0_s']``, ``['flicker_id0_a']``,
+      ``['flicker_t0_k']``, put there by the engine for studies; a nominal analysis is
+      its own reference).  At the nominal bias the
+      corner is where the 1/f part equals the white part (data-sheet convention);
+      across bias choices and Monte Carlo samples it scales like the kf form."""
+    i_d = np.abs(v["id_a"])
+    af = p.get("af", 1.0)
+    kf = p.get("kf", 0.0)
+    if np.any(np.asarray(kf) > 0):
+        cox = oxide_capacitance(p["tox"])
+        return kf * i_d ** af / (cox * cox * p["w"] * p["l"])
+    fc = p.get("flicker_corner", 0.0)
+    if not np.any(np.asarray(fc) > 0):
+        return 0.0
+    gamma = _gamma(p)
+    if "flicker_id0_a" in p:
+        gm0, i0, t0 = p["flicker_gm0_s"], abs(p["flicker_id0_a"]), p["flicker_t0_k"]
+    else:
+        gm0, i0, t0 = v["gm_s"], np.abs(v["id_a"]), temp_k
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scale = np.where(i0 > 0, (i_d / np.where(i0 > 0, i0, 1.0)) ** af, 0.0)
+    return 4.0 * K_BOLTZMANN * t0 * gamma * gm0 * fc * scale
+
+
+def _gamma(p):
     gamma = p.get("noise_gamma")
-    gamma = 2.0 / 3.0 if gamma is None else gamma
-    return 4.0 * K_BOLTZMANN * temp_k * gamma * gm * flicker(s, p["flicker_corner"])
+    return 2.0 / 3.0 if gamma is None else gamma
+
+
+def mosfet_channel_psd(p, s, v, temp_k):
+    """Drain-current noise 4kTγ·gm + c/f (van der Ziel; Razavi, *Design of Analog
+    CMOS Integrated Circuits*, ch. 7, from memory), ``v`` the operating-point values;
+    the thermal part referred to the gate is 4kTγ/gm; c from
+    :func:`mosfet_flicker_coefficient`."""
+    white = 4.0 * K_BOLTZMANN * temp_k * _gamma(p) * v["gm_s"]
+    c = mosfet_flicker_coefficient(p, v, temp_k)
+    f = np.abs(np.imag(s)) / (2 * np.pi)
+    with np.errstate(divide="ignore"):
+        return white + c / f
+
+
+def mosfet_flicker_reference(p: dict, op, probe: bool = False) -> dict:
+    """What a study's evaluation needs from the nominal operating point for the corner
+    shorthand (:func:`mosfet_flicker_coefficient`): gm0, Id0 and T0 as plain floats (a
+    parameter array would count as samples); ``probe``: only whether it needs them."""
+    if float(np.max(p.get("kf", 0.0))) > 0 or not float(np.max(p.get("flicker_corner", 0.0))) > 0:
+        return {}
+    if probe:
+        return {"flicker_id0_a": None}
+    v = op.values
+    return {"flicker_gm0_s": float(np.ravel(v["gm_s"])[0]), "flicker_id0_a": float(np.ravel(v["id_a"])[0]),
+            "flicker_t0_k": float(np.ravel(p["temp_k"])[0])}
 
 
 def sink_noise_field(current: str, what: str) -> dict:

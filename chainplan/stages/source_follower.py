@@ -16,8 +16,8 @@ from ..devices import mosfet
 from .device_fields import MOSFET_ONE_OF, mosfet_fields
 from .base import DcLoad, Field, Op, StageKind, dc_source, follower, inv
 from .dc_sources import doubled, doubling_field, limit
-from .noise_sources import (NoiseSource, follower_low_side_noise, mosfet_channel_psd, mosfet_noise_fields,
-                            sink_noise_field)
+from .noise_sources import (NoiseSource, follower_low_side_noise, mosfet_channel_psd, mosfet_flicker_reference,
+                            mosfet_noise_fields, mosfet_noise_problems, sink_noise_field)
 
 
 class SourceFollower(StageKind):
@@ -37,6 +37,15 @@ class SourceFollower(StageKind):
         **doubling_field("gate"),
     }
     ONE_OF = (MOSFET_ONE_OF, ("i_bias", "r_s"))
+
+    def spec_problems(self, p):
+        return mosfet_noise_problems(p)
+
+    def wants_reference(self, p):
+        return bool(mosfet_flicker_reference(p, None, probe=True))
+
+    def nominal_reference(self, p, op):
+        return mosfet_flicker_reference(p, op)
 
     def _bias(self, p):
         """(bias current at vs, resistance from source to v_low) for either bias choice."""
@@ -85,7 +94,7 @@ class SourceFollower(StageKind):
         """The channel noise current flows from the drain (AC ground) into the
         source, the output node: exact, Cgs/Cgd included.  The source resistor's
         4kT/RS or the sink's noise current enter the same node."""
-        out = [NoiseSource("channel", mosfet_channel_psd(p, s, op.values["gm_s"], temp_k), out_i=1.0)]
+        out = [NoiseSource("channel", mosfet_channel_psd(p, s, op.values, temp_k), out_i=1.0)]
         return out + [follower_low_side_noise(p, s, temp_k, "r_s")]
 
     def abcd(self, p, s, op):
