@@ -27,6 +27,7 @@ BUDGET_HOOKS: list[str] = [
     "chainplan.engine.step:attach_to_budget",
     "chainplan.engine.startup:attach_to_budget",
     "chainplan.engine.power:attach_to_budget",
+    "chainplan.engine.validity:attach_to_budget",
     "chainplan.studies.requirements:attach_to_budget",
 ]
 
