@@ -41,14 +41,20 @@ class StartupResult:
         return SETTLE_TAUS * np.nan_to_num(self.worst_tau_s, nan=0.0)
 
 
-def _node_admittance(chain, params, ops, s):
-    """Y(s) at every node for real or complex s of shape (S, K) or (1, K)."""
+def _node_admittance(chain, params, ops, s, columns=None):
+    """Y(s) at every node for real or complex s of shape (S, K) or (1, K); with
+    ``columns`` ({node: column}) each node's Y only at its own column, (S,)."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         ac = run_ac(chain, params, ops, None, s=s)
         out = {}
-        for n in chain.nodes:
+        for n in (chain.nodes if columns is None else columns):
             a, b = ac.row[n]
-            out[n] = (a + b * ac.node_y[n]) / b
+            y = ac.node_y[n]
+            if columns is not None:
+                j = columns[n]
+                a, b, y = (np.broadcast_to(x, np.shape(ac.node_y[n]))[:, j] if np.ndim(x) == 2 else x
+                           for x in (a, b, y))
+            out[n] = (a + b * y) / b
     return out
 
 
@@ -66,22 +72,27 @@ def analyse_startup(ev) -> StartupResult | None:
         y = np.real(np.broadcast_to(y, (ev.samples, n)))
         root = _lowest_zero(sigma, y)
         taus[node] = root
-    # refine every node's root with secant steps on the per-sample σ
-    for node in list(taus):
-        sig = taus[node]
-        ok = np.isfinite(sig)
-        if not ok.any():
-            continue
-        s0 = np.where(ok, sig, sigma[0])
+    # refine every node's root with secant steps on the per-sample σ: all nodes in one
+    # cascade pass per step (node j's σ in column j; the cascade is elementwise per column)
+    found = [node for node in taus if np.isfinite(taus[node]).any()]
+    if found:
+        cols = {node: j for j, node in enumerate(found)}
+        oks = {node: np.broadcast_to(np.isfinite(taus[node]), (ev.samples,)) for node in found}
+        s0 = np.stack([np.where(oks[node], taus[node], sigma[0]) * np.ones(ev.samples) for node in found], axis=1)
         s1 = s0 * 1.001
-        y0 = np.real(_node_admittance(chain, ev.params, ev.dc.ops, -s0[:, None] + 0j)[node][:, 0])
+
+        def y_at(sig):
+            ys = _node_admittance(chain, ev.params, ev.dc.ops, -sig + 0j, cols)
+            return np.stack([np.real(np.broadcast_to(ys[node], (ev.samples,))) for node in found], axis=1)
+        y0 = y_at(s0)
         for _ in range(3):
-            y1 = np.real(_node_admittance(chain, ev.params, ev.dc.ops, -s1[:, None] + 0j)[node][:, 0])
+            y1 = y_at(s1)
             with np.errstate(divide="ignore", invalid="ignore"):
                 s2 = s1 - y1 * (s1 - s0) / (y1 - y0)
             good = np.isfinite(s2) & (s2 > 0) & (np.abs(s2 / s1 - 1) < 0.5)
             s0, y0, s1 = s1, y1, np.where(good, s2, s1)
-        taus[node] = np.where(ok, 1.0 / s1, np.nan)
+        for node in found:
+            taus[node] = np.where(oks[node], 1.0 / s1[:, cols[node]], np.nan)
     stack = np.stack([np.broadcast_to(taus[k], (ev.samples,)) for k in taus])
     filled = np.where(np.isnan(stack), -np.inf, stack)
     idx = np.argmax(filled, axis=0)
