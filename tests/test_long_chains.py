@@ -108,3 +108,46 @@ def test_long_tables_show_first_last_and_marked_rows():
     assert text.count("\n") < 4 * (MAX_ROWS + 20)
     tight = b.tightest_node.name
     assert any(line.split()[:1] == [tight] for line in text.splitlines())   # marked rows show, even mid-chain
+
+
+def test_ten_thousand_stage_spec_is_read_and_stays_finite(spec_file):
+    """4 999 sections (9 999 stages, the source makes the 10 000 of the stage limit),
+    written out plainly (about 50 000 values, well past the 100 000 values aliases may
+    stand for once the mappings count): the bounded reader reads it, and gains, noise,
+    SNR and ENOB are numbers; the gain at the lowest point, where the plain product
+    does not overflow, equals it to 1e-12."""
+    from chainplan.spec.loader import load_chain
+    chain = load_chain(spec_file(ladder(4999, points=10)))
+    assert len(chain.stages) == 9999
+    ev = evaluate(chain)
+    h = ev.ac.node_h[ev.output]
+    assert np.all(np.isfinite(h)) and ev.ac.row_exp
+    with np.errstate(all="ignore"):
+        gains, _, _, _ = reference_ac(chain, ev.params, ev.dc.ops, ev.f_hz[:2])
+    ref = gains[ev.output]
+    assert np.all(np.isfinite(ref[:, :1])) and _rel(h[:, :1], ref[:, :1]) < 1e-12
+    nr = analyse_noise(ev, powers_only=True)
+    for x in (nr.out_vrms, nr.in_vrms, nr.snr_db, nr.enob_bits):
+        assert np.all(np.isfinite(x))
+
+
+def test_loops_of_a_long_chain_share_one_refinement_pass(monkeypatch):
+    """Every op-amp's crossover and phase margin refined in shared passes (brackets side
+    by side, repeated brackets once, split by the memory bound) equal a separate local
+    pass per stage, the straightforward way; and a follower of a 1 GHz op-amp driving
+    the next RC section crosses over near its GBW with about 90° (a single-pole loop,
+    common practice)."""
+    from chainplan.engine import loop
+    chain = chain_from(ladder(30, points=40))
+    ev = evaluate(chain)
+    shared = loop.analyse_loops(ev)
+    monkeypatch.setattr(loop, "LOCAL_PASS_BYTES", 1.0)          # one bracket per pass
+    one_each = loop.analyse_loops(ev)
+    monkeypatch.setattr(loop, "_shared_local_ac", lambda ev, brackets: (
+        [loop._local_ac(ev, b) for b in brackets], [(i, slice(None)) for i in range(len(brackets))]))
+    separate = loop.analyse_loops(ev)
+    assert len(shared) == 30
+    for a, b, c in zip(shared, one_each, separate):
+        for x in (a, b):
+            assert _rel(x.f_cross_hz, c.f_cross_hz) < 1e-12 and _rel(x.pm_deg, c.pm_deg) < 1e-12
+        assert 0.5e9 < float(c.f_cross_hz[0]) < 1.1e9 and 80 < float(c.pm_deg[0]) <= 90.5

@@ -230,6 +230,47 @@ def _local_ac(ev, f_loc):
         return run_ac(ev.chain, ev.params, ev.dc.ops, None, s=2j * np.pi * f_loc)
 
 
+#: memory of one shared refinement pass (bytes): brackets beyond it go into further passes
+LOCAL_PASS_BYTES = 64e6
+
+
+def _shared_local_ac(ev, brackets):
+    """The cascade at every bracket's per-sample frequencies: brackets side by side in
+    as few passes as the memory bound allows, a bracket that repeats another exactly
+    (a long chain of equal stages) computed once.  The cascade is elementwise per
+    column, so a bracket's columns are what a pass on that bracket alone gives.
+    Returns (passes, where): ``where[i]`` = (pass index, column slice) of bracket i."""
+    n_s, k = ev.samples, brackets[0].shape[1]
+    per_column = 16 * 12 * n_s * (len(ev.chain.stages) + 1)      # ~12 complex (S,) arrays per stage
+    per_pass = max(1, int(LOCAL_PASS_BYTES // (per_column * k)))  # brackets per pass
+    seen, unique, where = {}, [], []
+    for b in brackets:
+        b = np.ascontiguousarray(np.broadcast_to(b, (n_s, k)))
+        key = b.tobytes()
+        if key not in seen:
+            seen[key] = len(unique)
+            unique.append(b)
+        j = seen[key]
+        where.append((j // per_pass, slice((j % per_pass) * k, (j % per_pass + 1) * k)))
+    passes = [_local_ac(ev, np.concatenate(unique[i:i + per_pass], axis=1))
+              for i in range(0, len(unique), per_pass)]
+    return passes, where
+
+
+def _stage_columns(local, st, i):
+    """What the loop analysis of stage ``st`` reads of the shared passes, on bracket ``i``'s columns."""
+    from .cascade import AcResult, NodeGains
+    passes, where = local
+    j, col = where[i]
+    ac = passes[j]
+    take = lambda x: x[:, col] if np.ndim(x) == 2 else x  # noqa: E731
+    rows = {st.name: tuple(take(v) for v in ac.row[st.name])} if st.name in ac.row else {}
+    ny = {st.name: take(ac.node_y[st.name])}
+    br = {st.name: tuple(take(v) for v in ac.branch_row[st.name])}
+    ex = {n: take(ac.row_exp[n]) for n in (st.name, st.parent) if n in ac.row_exp}
+    return AcResult(ac.f_hz[col], NodeGains(rows, ny, ex), ny, rows, br, {}, {}, ex)
+
+
 def _bracket_grid(f, k_lo, k_hi, n):
     """(S, n) log grids from f[k_lo] to f[k_hi] per sample."""
     lf = np.log10(f)
@@ -262,7 +303,8 @@ def analyse_loops(ev, ac=None, fixes: bool = False, target_pm_deg: float | None 
     f = ac.f_hz
     n_s = ev.samples
     rows = np.arange(n_s)
-    out = []
+    todo = []                       # per stage: what the coarse grid gave, and the brackets to refine
+    brackets = []                   # (S, REFINE_POINTS) per-sample grids, all refined in one pass
     for st in stages:
         if st.name in cached:
             t = cached[st.name]
@@ -272,8 +314,9 @@ def analyse_loops(ev, ac=None, fixes: bool = False, target_pm_deg: float | None 
             resp, t = _response(st, ev, ac)
         resp = np.broadcast_to(resp, (n_s, f.size))
         notes = []
+        job = {"st": st, "t": t, "resp": resp, "notes": notes}
         if t is not None:
-            t = np.broadcast_to(t, (n_s, f.size))
+            t = job["t"] = np.broadcast_to(t, (n_s, f.size))
             ph = unwrapped_phase(t)
             fc, pm = crossover(f, t, ph)
             p = ev.params[st.name]
@@ -284,25 +327,41 @@ def analyse_loops(ev, ac=None, fixes: bool = False, target_pm_deg: float | None 
             has = np.isfinite(fc)
             if refine and has.any():
                 k = np.clip(np.searchsorted(f, np.where(has, fc, f[0])) - 1, 0, f.size - 2)
-                f_loc = _bracket_grid(f, k, k + 1, REFINE_POINTS)
-                _, t_loc = _response(st, ev, _local_ac(ev, f_loc), s=2j * np.pi * f_loc)
-                t_loc = np.broadcast_to(t_loc, f_loc.shape)
-                fc2, pm2 = _local_crossover(f_loc, t_loc, ph[rows, k])
-                good = has & np.isfinite(fc2)
-                fc, pm = np.where(good, fc2, fc), np.where(good, pm2, pm)
+                job["cross"] = (len(brackets), has, ph[rows, k])
+                brackets.append(_bracket_grid(f, k, k + 1, REFINE_POINTS))
         else:
             fc = pm = np.full(n_s, np.nan)
+        job["fc"], job["pm"] = fc, pm
         pk, fpk = peak_of(f, resp)
         if refine and np.any(pk > 0):
             k = np.clip(np.argmax(np.abs(resp), axis=1), 1, f.size - 2)
-            f_loc = _bracket_grid(f, k - 1, k + 1, REFINE_POINTS)
-            r_loc = np.broadcast_to(_response(st, ev, _local_ac(ev, f_loc), s=2j * np.pi * f_loc)[0], f_loc.shape)
+            job["peak"] = len(brackets)
+            brackets.append(_bracket_grid(f, k - 1, k + 1, REFINE_POINTS))
+        job["pk"], job["fpk"] = pk, fpk
+        todo.append(job)
+    local = _shared_local_ac(ev, brackets) if brackets else None
+    out = []
+    for job in todo:
+        st, t, resp, fc, pm, pk, fpk = (job[k] for k in ("st", "t", "resp", "fc", "pm", "pk", "fpk"))
+        if "cross" in job:
+            i, has, ph_k = job["cross"]
+            f_loc = brackets[i]
+            _, t_loc = _response(st, ev, _stage_columns(local, st, i), s=2j * np.pi * f_loc)
+            t_loc = np.broadcast_to(t_loc, f_loc.shape)
+            fc2, pm2 = _local_crossover(f_loc, t_loc, ph_k)
+            good = has & np.isfinite(fc2)
+            fc, pm = np.where(good, fc2, fc), np.where(good, pm2, pm)
+        if "peak" in job:
+            i = job["peak"]
+            f_loc = brackets[i]
+            r_loc = np.broadcast_to(_response(st, ev, _stage_columns(local, st, i), s=2j * np.pi * f_loc)[0],
+                                    f_loc.shape)
             with np.errstate(divide="ignore"):
                 ref = 20 * np.log10(np.abs(resp[:, 0]))
             pk2, fpk2 = _local_peak(f_loc, r_loc, ref)
             pk = np.where(pk > 0, pk2, pk)
             fpk = np.where(pk > 0, fpk2, fpk)
-        out.append(LoopResult(st.name, st.kind, f, t, resp, fc, pm, pk, fpk, f_minus3db(f, resp), notes))
+        out.append(LoopResult(st.name, st.kind, f, t, resp, fc, pm, pk, fpk, f_minus3db(f, resp), job["notes"]))
     if fixes:
         target = DEFAULT_PM_DEG if target_pm_deg is None else target_pm_deg
         fine = None

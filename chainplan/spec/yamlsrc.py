@@ -33,7 +33,7 @@ _Loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 #: Bounds on the work one spec file may ask for (docs/spec.md, "Limits").
 MAX_SPEC_BYTES = 1 << 20          # 1 MiB of text per file
 MAX_DEPTH = 64                    # nesting of mappings and lists
-MAX_VALUES = 100_000              # values after YAML aliases are expanded
+MAX_VALUES = 100_000              # values YAML aliases stand for (copies of what their anchors built)
 
 
 def _line(event) -> int:
@@ -44,11 +44,13 @@ def _compose(loader, path):
     """The document as LDict/LList/scalars, built from the parser's events in one
     loop (no recursion: nesting is bounded by MAX_DEPTH, not by the Python stack).
     An alias reuses the value its anchor built; every value it stands for counts
-    towards MAX_VALUES, so an alias bomb is refused after 100 000 values instead of
-    being expanded to gigabytes (the safe loaders' alias counting)."""
+    towards MAX_VALUES, so an alias bomb is refused after 100 000 copied values instead
+    of being expanded to gigabytes (the safe loaders' alias counting).  Values written
+    out in the text do not count: MAX_SPEC_BYTES bounds them (a value takes at least
+    two bytes), so a 10 000-stage chain written plainly is read."""
     anchors: dict = {}
     stack: list = []                      # [container, pending key, start event, values it stands for]
-    total = 0
+    total = 0                             # values the aliases stand for
     root = None
     loader.get_event()                    # StreamStart
     if loader.check_event(yaml.StreamEndEvent):
@@ -69,7 +71,6 @@ def _compose(loader, path):
             else:
                 c.item_lines = []
             stack.append([c, None, ev, 1])
-            total += 1
             continue
         if isinstance(ev, (yaml.MappingEndEvent, yaml.SequenceEndEvent)):
             value, _, ev, count = stack.pop()
@@ -86,11 +87,11 @@ def _compose(loader, path):
                                                                    ev.style)), 1
             if ev.anchor is not None:
                 anchors[ev.anchor] = (value, 1)
-            total += 1
         else:                                  # DocumentEnd
             break
         if total > MAX_VALUES:
-            raise SpecError(f"the spec stands for more than {MAX_VALUES} values (YAML aliases expand to copies); "
+            raise SpecError(f"the YAML aliases of the spec stand for more than {MAX_VALUES} values (each expands to a "
+                            "copy of its anchor's value); "
                             "write it out plainly", path, _line(ev))
         if not stack:
             root = value
