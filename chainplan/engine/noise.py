@@ -117,11 +117,13 @@ def analyse_noise(ev: Evaluation, bandwidth_hz=None, powers_only: bool = False) 
     need_white = conv is not None
     contributors, powers, in_powers, stage_of, total = [], {}, {}, {}, None
     if powers_only:
-        gens = output_powers(ev, w, bw)
-        referred = dict((nm, p) for _, nm, p in output_powers(ev, w_ref * inv_h2, bw))
-        analog_all = sum((p for st, nm, p in output_powers(ev, w_all, bw) if not is_power(st, nm)), np.zeros(n)) \
+        weights = [w, w_ref * inv_h2] + ([w_all] if need_white else []) + ([w_fold] if w_fold is not None else [])
+        walk = output_powers(ev, weights, bw)            # one walk over the generators, every weighting
+        gens = [(st, nm, p[0]) for st, nm, p in walk]
+        referred = dict((nm, p[1]) for _, nm, p in walk)
+        analog_all = sum((p[2] for st, nm, p in walk if not is_power(st, nm)), np.zeros(n)) \
             if need_white else np.zeros(n)
-        folded = sum((p for st, nm, p in output_powers(ev, w_fold, bw) if not is_power(st, nm)), np.zeros(n)) \
+        folded = sum((p[-1] for st, nm, p in walk if not is_power(st, nm)), np.zeros(n)) \
             if w_fold is not None else np.zeros(n)
         for stage, name, power in gens:
             powers[name], stage_of[name] = np.broadcast_to(power, (n,)), stage
@@ -347,18 +349,21 @@ def output_psds(ev: Evaluation, bandwidth: float) -> list:
     return res
 
 
-def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
+def output_powers(ev: Evaluation, w, bandwidth: float) -> list:
     """Every generator's power at the output integrated with the weights ``w`` over the
     span: [(stage, name, power (S,) V²)], the same generators and transfers as
     :func:`output_psds` (converter powers alike) but summed at once:
     ``Σ_f w·psd·|H|²·|ΔVs|²``, with ``w·|H|²`` formed once and each ``|ΔVs|²`` summed
     against it as a real dot product over (Re, Im) pairs — no complex transfer or
-    density array is kept per generator."""
+    density array is kept per generator.  ``w`` a list of weightings: one walk over
+    the generators, [(stage, name, [power per weighting])]."""
+    many = isinstance(w, list)
     chain, ac, ws = ev.chain, ev.ac, ev.ws
     out = ev.output
     s = (2j * np.pi * ev.f_hz)[None, :]
     h = ac.node_h.scaled(out)[:, 1:]          # with rows in the output's scale (long chains)
-    hw2 = np.repeat((h.real ** 2 + h.imag ** 2) * w, 2, axis=1)      # w·|H|² beside Re and Im
+    h2 = h.real ** 2 + h.imag ** 2
+    hw2s = [np.repeat(h2 * wk, 2, axis=1) for wk in (w if many else [w])]     # w·|H|² beside Re and Im
     n = max(h.shape[0], ev.samples)     # the transfer may be one row while a power varies per sample
     on_path, conv, in_band = _carried(ev, bandwidth)
     span = lambda x: x[:, 1:] if np.ndim(x) == 2 and np.shape(x)[1] > 1 else x  # noqa: E731
@@ -366,8 +371,8 @@ def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
     for st, name, g in _carried_generators(ev, on_path, s):
         if g.power_v2 is not None:
             if st.name == conv and np.any(np.asarray(g.power_v2) > 0):
-                res.append((st.name, name, np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float))
-                                                           * in_band, (n,))))
+                p = np.broadcast_to(np.ravel(np.asarray(g.power_v2, dtype=float)) * in_band, (n,))
+                res.append((st.name, name, [p] * len(hw2s)))
             continue
         if not np.any(np.asarray(g.psd) != 0):
             continue
@@ -378,8 +383,8 @@ def output_powers(ev: Evaluation, w: np.ndarray, bandwidth: float) -> list:
         else:
             dvs = _sub(_terms(((ac.y_in[st.name], g.in_v),), span, ws), _terms(((1.0, g.in_i),), span, ws), ws)
             dvs = wsa.mul(wsa.mul(span(ac.row[st.parent][1]), ac.scale_between(st.parent, out)), dvs, ws)
-        res.append((st.name, name, _weighted_power(dvs, span(np.asarray(g.psd, dtype=float)), hw2, n, ws)))
-    return res
+        res.append((st.name, name, _weighted_powers(dvs, span(np.asarray(g.psd, dtype=float)), hw2s, n, ws)))
+    return res if many else [(st, nm, p[0]) for st, nm, p in res]
 
 
 def _rows_at(ac, st, out):
@@ -411,17 +416,23 @@ def _sub(x, y, ws):
     return np.subtract(x, y, out=wsa.lend(ws, x, y))
 
 
-def _weighted_power(dvs, psd, hw2, n, ws):
-    """Σ_f psd·hw·|dvs|² per sample, with hw2 = w·|H|² repeated beside Re and Im."""
-    dvs = np.broadcast_to(np.asarray(dvs, dtype=complex), (n, hw2.shape[1] // 2))
+def _weighted_powers(dvs, psd, hw2s, n, ws):
+    """Σ_f psd·hw·|dvs|² per sample for each hw2 of ``hw2s`` (w·|H|² repeated beside Re
+    and Im): |dvs|² formed once."""
+    width = hw2s[0].shape[1]
+    dvs = np.broadcast_to(np.asarray(dvs, dtype=complex), (n, width // 2))
     if dvs.strides[1] != dvs.itemsize:                               # (Re, Im) pairs must be adjacent
         dvs = np.ascontiguousarray(dvs)
     q = dvs.view(float)
     lend = (lambda shape: None) if ws is None else (lambda shape: ws.empty(shape, float))  # noqa: E731
     q2 = np.square(q, out=lend(q.shape))
     if np.ndim(psd) == 2 and np.shape(psd)[1] > 1:                   # a density with a 1/f corner
-        return _rowdot(q2, np.multiply(hw2, np.repeat(psd, 2, axis=1), out=lend(hw2.shape)))
-    return np.ravel(psd) * _rowdot(q2, hw2) if np.ndim(psd) else psd * _rowdot(q2, hw2)
+        psd2 = np.repeat(psd, 2, axis=1)
+        return [_rowdot(q2, np.multiply(hw2, psd2, out=lend(np.broadcast_shapes(hw2.shape, psd2.shape))))
+                for hw2 in hw2s]
+    if np.ndim(psd):
+        return [np.ravel(psd) * _rowdot(q2, hw2) for hw2 in hw2s]
+    return [psd * _rowdot(q2, hw2) for hw2 in hw2s]
 
 
 #: Σ_j x_ij·y_ij per row (numpy ≥ 2 has it built in)
