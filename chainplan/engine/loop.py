@@ -225,9 +225,10 @@ def _columns(ac, col, f_hz):
 
 
 def _local_ac(ev, f_loc):
-    """The cascade at per-sample frequencies f_loc (S, K)."""
+    """The cascade at per-sample frequencies f_loc (S, K), in the evaluation's workspace
+    if it has one (what the loop analysis keeps is computed from it afresh)."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        return run_ac(ev.chain, ev.params, ev.dc.ops, None, s=2j * np.pi * f_loc)
+        return run_ac(ev.chain, ev.params, ev.dc.ops, None, s=2j * np.pi * f_loc, ws=ev.ws)
 
 
 #: memory of one shared refinement pass (bytes): brackets beyond it go into further passes

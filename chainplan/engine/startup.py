@@ -41,11 +41,13 @@ class StartupResult:
         return SETTLE_TAUS * np.nan_to_num(self.worst_tau_s, nan=0.0)
 
 
-def _node_admittance(chain, params, ops, s, columns=None):
+def _node_admittance(chain, params, ops, s, columns=None, ws=None):
     """Y(s) at every node for real or complex s of shape (S, K) or (1, K); with
-    ``columns`` ({node: column}) each node's Y only at its own column, (S,)."""
+    ``columns`` ({node: column}) each node's Y only at its own column, (S,).  The
+    cascade's arrays come from the workspace ``ws`` (a Monte Carlo chunk's), if any:
+    only the freshly computed Y is returned."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        ac = run_ac(chain, params, ops, None, s=s)
+        ac = run_ac(chain, params, ops, None, s=s, ws=ws)
         out = {}
         for n in (chain.nodes if columns is None else columns):
             a, b = ac.row[n]
@@ -66,7 +68,7 @@ def analyse_startup(ev) -> StartupResult | None:
         return None
     n = int(math.ceil(math.log10(f_hi / F_SCAN_LOW_HZ) * SCAN_PER_DECADE)) + 1
     sigma = 2 * np.pi * np.geomspace(F_SCAN_LOW_HZ, f_hi, n)
-    ys = _node_admittance(chain, ev.params, ev.dc.ops, -sigma[None, :] + 0j)
+    ys = _node_admittance(chain, ev.params, ev.dc.ops, -sigma[None, :] + 0j, ws=ev.ws)
     taus = {}
     for node, y in ys.items():
         y = np.real(np.broadcast_to(y, (ev.samples, n)))
@@ -82,7 +84,7 @@ def analyse_startup(ev) -> StartupResult | None:
         s1 = s0 * 1.001
 
         def y_at(sig):
-            ys = _node_admittance(chain, ev.params, ev.dc.ops, -sig + 0j, cols)
+            ys = _node_admittance(chain, ev.params, ev.dc.ops, -sig + 0j, cols, ev.ws)
             return np.stack([np.real(np.broadcast_to(ys[node], (ev.samples,))) for node in found], axis=1)
         y0 = y_at(s0)
         for _ in range(3):
