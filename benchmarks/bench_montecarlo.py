@@ -21,6 +21,22 @@ with 25 toleranced parts, rail tolerances and a supply corner, 200 frequencies:
 
 Figures are printed; nothing is asserted.
 
+``--parts``: where one chunk's time goes (thread CPU time per sample of each piece of
+``studies.montecarlo._chunk``, best of 5), to see what a further speed-up must attack.
+
+Issue 17, 2026-12-02 14:57 UTC (load average 10.9 → 10.7 on the 2 shared cores, so
+wall times are ~3× CPU times; CPU figures are the comparable ones): 20 000 samples,
+one thread, no noise 12.1 s CPU (606 µs/sample), with noise 14.0 s (noise on/off
+1.17); engine evaluate (DC + AC) 2.0× the full 2×2 floor, the whole Monte Carlo 16×
+it: since the BEFORE figures below the chunk also computes the dynamics metrics
+(start-up scan at 217 points on the negative real axis, loops, step) and the corner
+pass runs on the whole grid (a band-edge requirement without ``mid_band``).  Paired
+against main before the session's changes (fede825), same load: 722–751 vs
+873–925 µs/sample with noise.  ``--parts`` at 14:59 (µs/sample, load ~11): evaluate
+(DC + AC) 80, noise powers 97, start-up 162, corner evaluate (2 corners × 200 points)
+159, loops 34, step 18, requirements 5; whole chunk 558 — the start-up scan and the
+corner pass are what stands between this and the issue's 30× ngspice.
+
 Issue 17, BEFORE (main at 06:22 UTC 2026-12-02, load average 0.06 → 0.83, 2 cores):
 100 000 samples, one thread, no noise 7.77 s (77.7 µs/sample), two threads 4.59 s,
 with noise 10.30 s (1.33×); row × ABCD floor 0.92 s (full run 8.4× it); ngspice
@@ -255,6 +271,50 @@ def spice_run(n: int, print_gain: bool = False):
     return dt, gains, d
 
 
+def parts_run(samples: int = 454) -> None:
+    """Thread CPU time per sample of each piece of one chunk (best of 5; a fresh workspace
+    recycled after each piece, as the Monte Carlo does)."""
+    from chainplan.engine.budget import evaluate, frequency_grid
+    from chainplan.engine.loop import analyse_loops
+    from chainplan.engine.noise import analyse_noise
+    from chainplan.engine.startup import analyse_startup
+    from chainplan.engine.step import analyse_step
+    from chainplan.engine.workspace import Workspace
+    from chainplan.studies import montecarlo as mc
+    from chainplan.studies.requirements import evaluate_requirements
+    from chainplan.studies.tolerances import at_corners, corner_points, draw
+    chain = load()
+    d = draw(chain, samples, seed=1)
+    sl = slice(0, samples)
+    corners = corner_points(chain)
+    others = [c for c in corners if not c.nominal]
+    f_corner = mc.requirement_frequencies(chain, frequency_grid(chain))
+    ws = Workspace()
+
+    def cpu(fn):
+        best = float("inf")
+        for _ in range(5):
+            t0 = time.thread_time()
+            fn()
+            best = min(best, time.thread_time() - t0)
+            ws.recycle()
+        return best
+    p = d.params(sl)
+    ev = evaluate(chain, p, ws=ws)
+    pieces = {"evaluate (DC + AC)": lambda: evaluate(chain, p, ws=ws),
+              "requirements": lambda: evaluate_requirements(ev),
+              "noise powers": lambda: analyse_noise(ev, powers_only=True),
+              "loops": lambda: analyse_loops(ev), "step": lambda: analyse_step(ev),
+              "start-up": lambda: analyse_startup(ev)}
+    if others:
+        pc = at_corners(d, sl, others)
+        pieces[f"corner evaluate ({len(others)} corners, {len(f_corner)} points)"] = \
+            lambda: evaluate(chain, pc, f_hz=f_corner, ws=ws)
+    pieces["whole chunk"] = lambda: mc._chunk(d, sl, corners, f_corner)
+    for name, fn in pieces.items():
+        print(f"{name:44s} {1e6 * cpu(fn) / samples:8.1f} µs/sample")
+
+
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--samples", type=int, default=100_000)
@@ -263,7 +323,10 @@ def main():
     ap.add_argument("--child", type=int, help=argparse.SUPPRESS)
     ap.add_argument("--no-noise", action="store_true", help=argparse.SUPPRESS)
     ap.add_argument("--workers", type=int, default=1, help=argparse.SUPPRESS)
+    ap.add_argument("--parts", action="store_true", help="only the per-piece CPU time of one chunk")
     a = ap.parse_args()
+    if a.parts:
+        return parts_run()
     if a.child:
         return child_run(a.child, noise=not a.no_noise, workers=a.workers)
     from chainplan.studies.montecarlo import has_noise
