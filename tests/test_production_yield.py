@@ -98,6 +98,25 @@ def test_band_edges_against_the_whole_span_need_the_whole_grid():
     assert len(requirement_frequencies(chain, f_full)) == len(f_full)
 
 
+def test_corner_work_split_within_a_chunk_matches_every_unit_at_every_corner():
+    """Without mid_band the corners take the whole grid, so a chunk's corner work is split
+    into calls of chunk·F/((C − 1)·F_corner) units (here 300 units, 2 other corners: 150 a
+    call) while the nominal chunk stays whole; every unit's pass/fail at every corner equals
+    the plain engine's evaluation of all units at each corner in one call."""
+    chain = chain_from(BAND.format(extra=""))
+    res = run(chain, 300, seed=4, chunk=300, workers=1)
+    from chainplan.studies.tolerances import at_corners, draw
+    d = draw(chain, 300, seed=4)
+    for c, corner in enumerate(res.corners):
+        if corner.nominal:
+            continue
+        ev = evaluate(chain, at_corners(d, slice(0, 300), [corner]))
+        for j, r in enumerate(evaluate_requirements(ev)):
+            np.testing.assert_array_equal(res.corner_pass[j, :, c], np.broadcast_to(r.passed, (300,)))
+        np.testing.assert_array_equal(res.corner_ok[:, c], np.broadcast_to(ev.valid, (300,)) & d.valid)
+    assert 0 < res.yield_all < 1
+
+
 @pytest.mark.parametrize("extra", [", mid_band: 100 Hz", ", signal_band: [50 Hz, 200 Hz]"])
 def test_corner_frequencies_decide_band_edges_as_the_full_grid_does(extra):
     """The corner evaluation keeps only the passband's columns and the grid from there to the

@@ -6,7 +6,9 @@ Production yield: a unit passes when it meets every requirement at every
 corner of its operating range (supply × temperature grid,
 chainplan.studies.tolerances.corner_points).  The corners are folded into the
 sample axis — one engine call evaluates a chunk's units at all the other
-corners at once (sample ``u·C + c``) — and that call uses only the
+corners at once (sample ``u·C + c``; split into calls of fewer units when the
+corner samples would not fit the memory of one chunk, the chunk itself kept
+whole) — and that call uses only the
 frequencies the requirements read (:func:`requirement_frequencies`): the
 reference frequency, any ``at:``/``band:`` points, and for a band-edge limit
 the grid from f_ref up to (or down to) the limit, which decides pass or fail
@@ -342,10 +344,11 @@ def requirement_frequencies(chain: Chain, f_hz: np.ndarray) -> np.ndarray:
     return np.concatenate(([f_ref], span[keep]))
 
 
-def _chunk(d: Draws, sl: slice, corners: list, f_corner):
+def _chunk(d: Draws, sl: slice, corners: list, f_corner, corner_units: int | None = None):
     """(metrics, requirement results, validity, corner passes (R, n, C), corner validity (n, C))
-    of units ``sl``: the full analysis at nominal conditions, then every other corner in one
-    engine call on the frequencies the requirements read."""
+    of units ``sl``: the full analysis at nominal conditions, then every other corner at once
+    (one engine call per ``corner_units`` units, all corners of a unit in the same call) on
+    the frequencies the requirements read."""
     ws = _workspace()
     n = sl.stop - sl.start
     wide = lambda x: np.array(np.broadcast_to(x, (n,)))  # noqa: E731 - nothing varied: one sample stands for all
@@ -369,13 +372,18 @@ def _chunk(d: Draws, sl: slice, corners: list, f_corner):
                 cpass[j, :, i] = r.passed
     if others:
         k = len(others)
-        try:
-            ev_c = evaluate(d.chain, at_corners(d, sl, [corners[i] for i in others]), f_hz=f_corner, ws=ws)
-            cok[:, others] = np.broadcast_to(ev_c.valid, (n * k,)).reshape(n, k) & d.valid[sl, None]
-            for j, r in enumerate(evaluate_requirements(ev_c)):
-                cpass[j][:, others] = np.broadcast_to(r.passed, (n * k,)).reshape(n, k)
-        finally:
-            ws.recycle()
+        per = corner_units or n        # units per corner call: the memory of one nominal chunk
+        for a in range(0, n, per):
+            b = min(a + per, n)
+            sub = slice(sl.start + a, sl.start + b)
+            try:
+                ev_c = evaluate(d.chain, at_corners(d, sub, [corners[i] for i in others]), f_hz=f_corner, ws=ws)
+                m = b - a
+                cok[a:b, others] = np.broadcast_to(ev_c.valid, (m * k,)).reshape(m, k) & d.valid[sub, None]
+                for j, r in enumerate(evaluate_requirements(ev_c)):
+                    cpass[j][a:b, others] = np.broadcast_to(r.passed, (m * k,)).reshape(m, k)
+            finally:
+                ws.recycle()
     return (mets, reqs, valid, cpass, cok)
 
 
@@ -390,15 +398,16 @@ def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, 
     f_full = frequency_grid(d.chain)
     f_corner = requirement_frequencies(d.chain, f_full)
     chunk = chunk or chunk_size(d.chain)
-    # the corner call holds chunk·(C − 1) samples on f_corner: keep it within the memory of one chunk
+    # a corner call holds units·(C − 1) samples on f_corner: keep it within the memory of one
+    # chunk by splitting the chunk's corner work, not the chunk (the nominal analysis — noise,
+    # step, start-up — has a cost per call that small chunks would pay many times over)
     others = sum(1 for c in corners if not c.nominal)
-    if others:
-        chunk = max(1, min(chunk, int(chunk * len(f_full) / (others * len(f_corner)))))
+    corner_units = max(1, min(chunk, int(chunk * len(f_full) / (others * len(f_corner))))) if others else None
     slices = [slice(i, min(i + chunk, d.n)) for i in range(0, d.n, chunk)]
     workers = min(workers or os.cpu_count() or 1, MAX_WORKERS, max(len(slices), 1))
     parts_m, parts_r, parts_v, parts_cp, parts_ck = [], [], [], [], []
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        for sl, (m, r, v, cp, ck) in zip(slices, pool.map(lambda sl: _chunk(d, sl, corners, f_corner), slices)):
+        for sl, (m, r, v, cp, ck) in zip(slices, pool.map(lambda sl: _chunk(d, sl, corners, f_corner, corner_units), slices)):
             parts_m.append(m)
             parts_r.append(r)
             parts_v.append(v)
