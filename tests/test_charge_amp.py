@@ -215,3 +215,26 @@ def test_loop_crosses_at_gbw_over_the_noise_gain():
     assert float(res.f_cross_hz[0]) == pytest.approx(GBW * beta, rel=0.01)
     # the dominant pole at GBW/A0 lies far below the crossover: PM = 90° − atan(f_p/f_c)
     assert float(res.pm_deg[0]) == pytest.approx(90 - math.degrees(math.atan(GBW / A0 / (GBW * beta))), abs=0.2)
+
+
+def test_a_series_resistor_in_front_of_a_virtual_ground_keeps_its_voltage_loss():
+    """A series resistor into a transimpedance stage is an inverting amplifier's input
+    resistor: it turns the voltage into the current, so the sensor → resistor interface keeps
+    its voltage divider loss 20·log10((Rs + R)/R) (the TIA's input ≈ 0 Ω; Ohm's law), and only
+    the resistor → TIA interface is a current transfer, referred to the short-circuit current
+    at the resistor's output, ≈ 100 %."""
+    chain = chain_from("""
+        name: inv
+        temperature: 300 K
+        rails: {vdd: 3 V}
+        source: {name: s, kind: sensor, amplitude: 10 mV, dc: 1.5 V, r: 10k}
+        stages:
+          - {name: rin, kind: series_r, r: 10k}
+          - {name: tia, kind: opamp_transimpedance, r_f: 100k, gbw: 10 MHz, a0: 140 dB, ref: 1.5 V,
+             v_pos: 3 V, swing_low: 0 V, swing_high: 0 V}
+        analysis: {f_ref: 100 Hz, f_start: 10 Hz, f_stop: 1 MHz, points: 61}
+        """)
+    b = analyse(chain)
+    rows = {r.to: r for r in b.interfaces}
+    assert rows["rin"].loading and rows["rin"].loss_db == pytest.approx(20 * math.log10(2), abs=1e-3)
+    assert rows["tia"].mode == "current" and rows["tia"].transfer == pytest.approx(1.0, abs=1e-5)

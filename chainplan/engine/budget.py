@@ -139,21 +139,21 @@ class Evaluation:
         return [st.name for st in self.chain.stages if st.name not in vg]
 
     def input_transfer(self, stage: str, col=slice(None)):
-        """At a virtual-ground input (or a passive stage in front of one: the share at the
-        amplifier at its end): the share of the source's short-circuit current (or,
+        """At a virtual-ground input (or a shunt-path passive stage in front of one: the share
+        at the amplifier at its end): the share of the source's short-circuit current (or,
         alike, of its charge, Q = I/s) that reaches the stage's feedback network, complex (S, F+1).
         From the engine's own figures: I_fb = V_in·(Yin − Ysh) with V_in the node's
         response to the source signal X and Ysh the op-amp's input shunt
         (``StageKind.input_shunt``); the reference is the short-circuit current X/B of the
-        row (A, B) at the sensor — or at the active stage that drives the node through passive
-        stages only (a Thevenin row X = A·V + B·I: V = 0 gives I = X/B).  For a piezo (Cs)
+        row (A, B) at the node that drives the current path (:func:`driving_node`: the sensor,
+        or the stage before a cable; a Thevenin row X = A·V + B·I: V = 0 gives I = X/B).  For a piezo (Cs)
         through a cable (Cc) into a charge amplifier of open-loop gain A this is the textbook
         charge transfer (1 + A)·Cf/(Cs + Cc + Cin + (1 + A)·Cf) (Gautschi, *Piezoelectric
         Sensorics*, charge amplifier chapter, from memory).  NaN where the source has no
         short-circuit current to refer to (an ideal voltage source, B = 0)."""
         chain, ac = self.chain, self.ac
         st = chain.stage(self.virtual_grounds[stage][1])     # the amplifier at the end of a passive front
-        ref = driving_node(chain, st.parent)
+        ref = driving_node(chain, st.parent, self.virtual_grounds)
         b_ref = np.asarray(ac.full_row(ref)[1] + 0.0 * self.f_hz)[:, col]
         h = ac.node_h.at(st.parent, col)
         y = np.asarray(ac.y_in[st.name])[:, col]
@@ -201,15 +201,17 @@ def virtual_grounds(chain: Chain) -> dict:
     holds its input there (``StageKind.input_mode`` 'current' or 'charge'; the amplifier is the
     stage itself), and the passive stages (a cable, a filter) whose node only such an input
     reads, through passive stages alone (a piezo → cable → charge amplifier: the cable's input
-    is in the charge path too; the amplifier is the one at its end).  One pass from the last
-    stage up (the chain is in order), so it is linear in the chain's length."""
-    from ..stages.passive import Passive
+    is in the charge path too; the amplifier is the one at its end).  Only shunt-path passive
+    kinds count (``Passive.shunt_path``: a cable, a shunt R or C — they divert part of the
+    current, which the transfer shows); a series resistor or capacitor turns a voltage into the
+    current and keeps its voltage loading loss.  One pass from the last stage up (the chain is
+    in order), so it is linear in the chain's length."""
     out: dict = {}
     for st in reversed(chain.stages):
         mode = getattr(st.model, "input_mode", "voltage")
         if mode != "voltage":
             out[st.name] = (mode, st.name)
-        elif isinstance(st.model, Passive):
+        elif getattr(st.model, "shunt_path", False):
             readers = chain.readers(st.name)
             if len(readers) == 1 and readers[0].name in out:
                 out[st.name] = out[readers[0].name]
@@ -222,16 +224,14 @@ def virtual_ground(chain: Chain, stage: str) -> str | None:
     return virtual_grounds(chain).get(stage, (None,))[0]
 
 
-def driving_node(chain: Chain, node: str) -> str:
+def driving_node(chain: Chain, node: str, vg: dict | None = None) -> str:
     """The node whose Thevenin row a virtual-ground input's transfer refers to: up from
-    ``node`` through passive stages (cables, filters, couplings) to the sensor or to the
-    first active stage's output."""
-    from ..stages.passive import Passive
-    while node != chain.source.name:
-        st = chain.stage(node)
-        if not isinstance(st.model, Passive):
-            break
-        node = st.parent
+    ``node`` through the shunt-path passive stages in front of the amplifier (a cable: the
+    ones :func:`virtual_grounds` counts into the charge path) to the node that drives them —
+    the sensor, or whatever stage comes before (a series resistor, an active stage)."""
+    vg = virtual_grounds(chain) if vg is None else vg
+    while node != chain.source.name and node in vg:
+        node = chain.stage(node).parent
     return node
 
 

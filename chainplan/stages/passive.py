@@ -64,6 +64,11 @@ def ladder_dc_load(sections, load: DcLoad) -> DcLoad:
 class Passive(StageKind):
     """A passive ladder; subclasses only say which sections they are made of."""
 
+    #: shunt elements only, in effect (a cable's series R is its conductor): in front of a
+    #: virtual-ground input such a stage is part of the current path, whose transfer the
+    #: budget reports instead of a loading loss (engine/budget.py: virtual_grounds)
+    shunt_path: bool = False
+
     def sections(self, p) -> list[Section]:  # pragma: no cover - abstract
         raise NotImplementedError
 
@@ -108,6 +113,7 @@ class SeriesR(Passive):
 
 class ShuntR(Passive):
     kind, title = "shunt_r", "shunt resistor"
+    shunt_path = True        # in front of a virtual ground: part of the current path (engine/budget.py)
     FIELDS = {"r": Field(doc="resistance", required=True, **_R),
               "ref": Field("V", "voltage the resistor returns to", default="0 V", rail_ok=True)}
 
@@ -117,6 +123,7 @@ class ShuntR(Passive):
 
 class ShuntC(Passive):
     kind, title = "shunt_c", "shunt capacitor"
+    shunt_path = True        # in front of a virtual ground: part of the current path (engine/budget.py)
     FIELDS = {"c": Field(doc="capacitance", required=True, **_C)}
 
     def sections(self, p):
@@ -164,6 +171,7 @@ class AcCoupling(Passive):
 
 class Cable(Passive):
     kind, title = "cable", "cable as one lumped L-section (series R, shunt C·length)"
+    shunt_path = True        # in front of a virtual ground: part of the current path (engine/budget.py)
     FIELDS = {"length": Field("m", "cable length", required=True, positive=True),
               "c_per_m": Field("F/m", "capacitance per metre", required=True, positive=True),
               "r_per_m": Field("ohm/m", "conductor resistance per metre (both conductors)",
