@@ -237,3 +237,83 @@ def test_cli_tables_fit_100_columns(tmp_path, capsys, monkeypatch):
     out = capsys.readouterr().out
     assert max(len(line) for line in out.splitlines()) <= 100
     assert "needed" in out and "opamp_micro" in out
+
+
+# -- the spec's requirements in advice mode ------------------------------------------------
+
+def make_with(tmp_path, requirements: str, **kw):
+    """The test chain with a requirements: block appended."""
+    chain = make(tmp_path, **kw)
+    f = tmp_path / "chain.yaml"
+    f.write_text(f.read_text(encoding="utf-8") + "requirements:\n" + requirements, encoding="utf-8")
+    return load_chain(str(f))
+
+
+def test_a_candidate_over_the_power_limit_is_marked_and_never_picked(tmp_path):
+    # hydrophone_direct says max_buffer_power: 500 µW.  A 500 µA follower on a 3.3 V rail draws at least
+    # I·V = 1.65 mW (P = I·V, common practice), so it breaks the limit; it used to be the pick at the element.
+    a = advise(load_chain(str(REPO / "chains" / "hydrophone_direct.yaml")))
+    for row in a.interfaces:
+        for e in row.candidates:
+            if e.valid and e.power_w > 500e-6:
+                (b,) = [b for b in e.breaks if b.key == "max_buffer_power"]
+                assert b.limit == pytest.approx(500e-6, rel=1e-12)
+                assert b.value == pytest.approx(e.power_w, rel=1e-9)        # the only follower in the chain
+                assert b.excess == pytest.approx(e.power_w - 500e-6, rel=1e-9)
+                assert not e.usable and e.candidate != row.best
+    lead = next(i for i in a.interfaces if i.reader == "lead")
+    big = next(e for e in lead.candidates if e.candidate == "nmos_500u_gate")
+    assert big.power_w >= 500e-6 * 3.3 and big.breaks          # I·V of its 500 µA sink on the 3.3 V rail
+    assert lead.verdict == "needed" and lead.best == "nmos_50u_gate"   # same price, within the power limit
+    assert next(e for e in lead.candidates if e.candidate == lead.best).power_w <= 500e-6
+
+
+def test_breaks_only_what_held_without_the_buffer(tmp_path):
+    # 100 kΩ into 10 kΩ loses 20.8 dB: min_gain fails without a buffer, so no candidate 'breaks' it even
+    # where it still fails; max_buffer_power holds without a buffer (no follower: 0 W) and is broken by
+    # every candidate drawing more than 100 µW.
+    chain = make_with(tmp_path, "  - min_gain: 40 dB\n  - max_buffer_power: 100 µW\n")
+    (row,) = advise(chain).interfaces
+    for e in row.candidates:
+        if not e.valid:
+            continue
+        assert all(b.key != "min_gain" for b in e.breaks)
+        assert any(b.key == "max_buffer_power" for b in e.breaks) == (e.power_w > 100e-6)
+    assert row.best is not None
+    best = next(e for e in row.candidates if e.candidate == row.best)
+    assert best.power_w <= 100e-6 and not best.breaks
+
+
+def test_verdict_against_spec_when_every_helpful_candidate_breaks_a_requirement(tmp_path):
+    # the op-amp followers draw 82.5 µW and more, the MOSFET followers 165 µW and more (I·V): under a
+    # 1 µW limit nothing may be inserted, however much it would win back
+    chain = make_with(tmp_path, "  - max_buffer_power: 1 µW\n")
+    (row,) = advise(chain).interfaces
+    assert row.verdict == "against spec" and row.best is None
+    assert "breaks max_buffer_power" in row.reason
+
+
+def test_a_buffer_that_takes_headroom_below_the_limit_breaks_min_headroom(tmp_path):
+    # on the 1.65 V node (1.6 V of headroom with 50 mV of signal) a source follower's output sits VGS below
+    # its gate (VGS above the 0.55 V threshold: the follower's bias, Sedra & Smith) and its current sink
+    # needs compliance, so its node has well under 1.2 V of headroom; an op-amp follower keeps the level
+    chain = make_with(tmp_path, "  - min_headroom: 1.2 V\n")
+    (row,) = advise(chain).interfaces
+    nmos = next(e for e in row.candidates if e.candidate == "nmos_500u")
+    assert nmos.valid and nmos.dc_shift_v < -0.55
+    (b,) = [b for b in nmos.breaks if b.key == "min_headroom"]
+    own = next(h for h in nmos.headroom if h.node == nmos.buffer)
+    assert b.value == pytest.approx(own.after_v, rel=1e-12) and b.value < 1.2
+    assert b.excess == pytest.approx(1.2 - b.value, rel=1e-9)
+    assert not nmos.usable and row.best != "nmos_500u"
+    opamp = next(e for e in row.candidates if e.candidate == "opamp_micro")
+    assert abs(opamp.dc_shift_v) < 1e-3 and not opamp.breaks
+    assert row.verdict == "needed" and row.best.startswith("opamp")
+
+
+def test_cli_marks_the_broken_requirement_in_the_candidate_row(tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("COLUMNS", "100")
+    monkeypatch.setenv("NO_COLOR", "1")
+    assert main(["buffers", str(REPO / "chains" / "hydrophone_direct.yaml")]) == 0
+    out = capsys.readouterr().out
+    assert "breaks max_buffer_power" in out and "1.69 mW" in out

@@ -24,9 +24,18 @@ of the chain as it is and of a copy with the buffer inserted by
   noise analysis is installed), and the buffer's supply power at its operating
   point there.
 
+The spec's requirements are evaluated on every re-analysis as on the chain
+itself (``chainplan.studies.requirements``).  A candidate *breaks* a
+requirement when the requirement holds without it and fails with it
+(``max_buffer_power`` by a follower that draws too much, ``min_snr`` by one
+that adds too much noise, ``min_headroom``, ``max_loading_loss`` at the
+buffer's own interfaces...); a requirement that fails either way is not its
+doing.  Each break is kept with the value, the limit and the excess.
+
 Verdict per interface (thresholds in :data:`THRESHOLDS`, documented in
-docs/buffers.md).  A candidate is *usable* when its device holds its bias and
-it makes no node clip that did not clip before (its own output included).
+docs/buffers.md).  A candidate is *usable* when its device holds its bias,
+it makes no node clip that did not clip before (its own output included) and
+it breaks no requirement of the spec; only a usable candidate is ever picked.
 It *helps* when it gives back at least ``helps_db`` of loading loss or widens
 the band by ``band_gain`` (10 %).
 
@@ -37,6 +46,8 @@ the band by ``band_gain`` (10 %).
   ``snr_loss_db`` (1 dB) of SNR;
 * would clip — some candidates would help, but every one of them clips a node
   or cannot be biased at this node's DC level;
+* against spec — some candidates would help and hold their bias without
+  clipping, but every such one breaks a requirement of the spec;
 * not worth it — otherwise: little to recover, and what a buffer gives back is
   eaten by its own gain below one.
 """
@@ -71,6 +82,18 @@ class NodeChange:
 
 
 @dataclass
+class Break:
+    """A requirement of the spec that holds without the candidate and fails with it."""
+    requirement: str             # its name (as in the spec's requirements: block)
+    key: str                     # its spec key, e.g. 'max_buffer_power'
+    value: float                 # the figure with the candidate (SI; dB, Hz, V, W, bits)
+    limit: float
+    unit: str                    # display symbol
+    sense: str                   # 'min' or 'max'
+    excess: float                # how far past the limit, positive (value − limit for a max, limit − value for a min)
+
+
+@dataclass
 class CandidateEffect:
     candidate: str
     kind: str
@@ -95,10 +118,11 @@ class CandidateEffect:
     count: int
     headroom: list[NodeChange] = field(default_factory=list)
     new_clips: list[str] = field(default_factory=list)
+    breaks: list[Break] = field(default_factory=list)
 
     @property
     def usable(self) -> bool:
-        return self.valid and not self.new_clips
+        return self.valid and not self.new_clips and not self.breaks
 
     @property
     def worst_headroom(self) -> NodeChange | None:
@@ -166,15 +190,29 @@ class _Figures:
     f_high: float | None
     headroom: dict
     snr_db: float | None
+    requirements: list           # ReqResult per requirement of the spec (empty without a requirements: block)
 
 
 def _figures(ev: Evaluation, with_noise: bool) -> _Figures:
+    from ..studies.requirements import evaluate_requirements
     f_lo, f_hi = ev.band_edges()
     room = {n: float(ev.headroom(n)[0]) for n in ev.chain.nodes}
     snr = None
     if with_noise and bool(ev.valid[0]):
         snr = _snr_db(ev)
-    return _Figures(ev, float(20 * np.log10(np.abs(ev.gain()[0, 0]))), _edge(f_lo), _edge(f_hi), room, snr)
+    return _Figures(ev, float(20 * np.log10(np.abs(ev.gain()[0, 0]))), _edge(f_lo), _edge(f_hi), room, snr,
+                    evaluate_requirements(ev) if bool(ev.valid[0]) else [])
+
+
+def breaks_of(before: list, after: list) -> list[Break]:
+    """The requirements that hold ``before`` (results without the candidate) and fail ``after``."""
+    held = {r.name for r in before if bool(r.passed[0])}
+    out = []
+    for r in after:
+        if r.name in held and not bool(r.passed[0]):
+            v = float(r.value[0])
+            out.append(Break(r.name, r.requirement.key, v, r.limit, r.unit, r.sense, -float(r.margin[0])))
+    return out
 
 
 def _snr_db(ev: Evaluation) -> float | None:
@@ -236,6 +274,7 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
         change = after - before if before is not None and math.isfinite(after) and math.isfinite(before) else None
         out.headroom.append(NodeChange(n, before, after, change))
     out.new_clips = [h.node for h in out.headroom if h.after_v < 0 and (h.before_v is None or h.before_v >= 0)]
+    out.breaks = breaks_of(base.requirements, fig.requirements)
     return out
 
 
@@ -336,6 +375,11 @@ def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str,
         return "worth it", f"loses {lost:.2f} dB now; " + why, e.candidate
     helpful = [e for e in effects if e.valid and _helps(e)]
     if helpful and not any(e.usable for e in helpful) or (lost >= t["needed_loss_db"] and not usable):
+        held = [e for e in (helpful or effects) if e.valid and not e.new_clips and e.breaks]
+        if held:
+            return "against spec", (f"loses {lost:.2f} dB now; every candidate that would help breaks a "
+                                    "requirement of the spec: " + "; ".join(
+                                        f"{e.candidate} {break_text(e.breaks[0])}" for e in held[:3])), None
         return "would clip", (f"loses {lost:.2f} dB now, but no candidate works here"
                                + (f" (the node sits at {_volts(node_dc_v)} DC)" if node_dc_v is not None else "")
                                + ": " + _why_not(effects)), None
@@ -346,6 +390,14 @@ def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str,
                             f"end-to-end gain by {_signed(best.net_gain_db)}"
                             + (f" (its own gain is {_signed(best.buffer_gain_db)})"
                                if best.buffer_gain_db is not None else "")), None
+
+
+def break_text(b: Break) -> str:
+    """'breaks max_buffer_power: 1.69 mW > 500 µW (1.19 mW over)'."""
+    from ..studies.requirements import show
+    op = "<" if b.sense == "min" else ">"
+    side = "under" if b.sense == "min" else "over"
+    return f"breaks {b.requirement}: {show(b.value, b.unit)} {op} {show(b.limit, b.unit)} ({show(b.excess, b.unit)} {side})"
 
 
 def _why_not(effects: list[CandidateEffect]) -> str:

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import math
 
-from ..placement.advisor import Advice, CandidateEffect
+from ..placement.advisor import Advice, CandidateEffect, break_text
 from ..placement.optimiser import Measured, Plan, Shortfall, target_text
 from ..spec.numbers import figure, figures, loss
 from .console import db, eng
@@ -16,7 +16,8 @@ from .json_out import clean
 from .layout import Col, print_table
 from .tables import chain_heading
 
-VERDICT_STYLE = {"needed": "bold green", "worth it": "green", "would clip": "bold red", "not worth it": None}
+VERDICT_STYLE = {"needed": "bold green", "worth it": "green", "would clip": "bold red", "against spec": "bold red",
+                 "not worth it": None}
 
 
 # -- advice ------------------------------------------------------------------------------
@@ -67,6 +68,9 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
         for e in i.candidates:
             if not e.valid:
                 console.print(f"  {e.candidate}: no bias here: {e.problem}")
+            elif e.breaks:
+                console.print(Text(f"  {e.candidate}: " + "; ".join(break_text(b) for b in e.breaks)
+                                   + " (never picked)", style="red"))
 
 
 def _bias_text(e: CandidateEffect) -> str:
@@ -123,6 +127,9 @@ def _effect_dict(e: CandidateEffect) -> dict:
         "f_high_before_hz": e.f_high_before_hz, "f_high_after_hz": e.f_high_after_hz,
         "snr_before_db": e.snr_before_db, "snr_after_db": e.snr_after_db, "snr_change_db": e.snr_change_db,
         "power_w": e.power_w, "price": e.price, "count": e.count, "new_clips": e.new_clips,
+        "breaks": [{"requirement": b.requirement, "key": b.key, "value": b.value, "limit": b.limit,
+                    "unit": b.unit, "sense": b.sense, "excess": b.excess} for b in e.breaks],
+        "usable": e.usable,
         "worst_headroom": None if w is None else {"node": w.node, "change_v": w.change_v, "after_v": w.after_v},
         "headroom": [{"node": h.node, "before_v": h.before_v, "after_v": h.after_v, "change_v": h.change_v}
                      for h in e.headroom],
