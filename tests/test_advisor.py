@@ -233,10 +233,12 @@ def test_cli_json_has_every_figure(tmp_path, capsys):
 def test_cli_tables_fit_100_columns(tmp_path, capsys, monkeypatch):
     monkeypatch.setenv("COLUMNS", "100")
     make(tmp_path, stages="  - name: lead\n    kind: cable\n    length: 10 m\n    c_per_m: 100 pF/m\n")
-    assert main(["buffers", str(tmp_path / "chain.yaml")]) == 0
-    out = capsys.readouterr().out
-    assert max(len(line) for line in out.splitlines()) <= 100
-    assert "needed" in out and "opamp_micro" in out
+    for extra in ([], ["--details"]):
+        assert main(["buffers", str(tmp_path / "chain.yaml"), *extra]) == 0
+        out = capsys.readouterr().out
+        assert max(len(line) for line in out.splitlines()) <= 100
+        assert "needed" in out
+    assert "opamp_micro" in out
 
 
 # -- the spec's requirements in advice mode ------------------------------------------------
@@ -317,3 +319,53 @@ def test_cli_marks_the_broken_requirement_in_the_candidate_row(tmp_path, capsys,
     assert main(["buffers", str(REPO / "chains" / "hydrophone_direct.yaml")]) == 0
     out = capsys.readouterr().out
     assert "breaks max_buffer_power" in out and "1.69 mW" in out
+
+
+# -- the compact advice screen ----------------------------------------------------------------
+
+@pytest.mark.parametrize("width", [80, 100])
+def test_compact_advice_fits_and_says_each_fact_once(capsys, monkeypatch, width):
+    monkeypatch.setenv("COLUMNS", str(width))
+    monkeypatch.setenv("NO_COLOR", "1")
+    assert main(["buffers", str(REPO / "chains" / "hydrophone_direct.yaml")]) == 0
+    out = capsys.readouterr().out
+    lines = out.splitlines()
+    assert max(len(line) for line in lines) <= width
+    assert "\x1b[" not in out                                     # piped: plain text
+    assert "…" not in out                                         # no cell cut by rich
+    # one row per interface, no per-interface candidate tables, no verdict sentences
+    assert sum(line.startswith("element → lead ") for line in lines) == 1
+    assert "each candidate inserted" not in out and "Loses 18.12 dB now" not in out
+    # the legend explains every column the table shows, with its unit
+    head = lines.index(next(line for line in lines if line.startswith("interface")))
+    legend = out[out.index("Legend"):]
+    shown = ["loss", "verdict", "buffer", "back", "net", "power"] + (["SNR Δ", "DC shift"] if width >= 100 else [])
+    for name in shown:
+        assert name in lines[head] or name in lines[head - 1]
+        assert f"\n{name}" in legend
+    assert "SNR Δ dB  change in the SNR at the converter, dB" in legend
+    assert "DC shift  the buffer's output DC level minus the node's, V" in legend
+    assert "held back" in out.lower() and "breaks max_buffer_power" in out
+    assert "--details" in out
+
+
+def test_details_show_every_candidate_and_the_reasons(capsys, monkeypatch):
+    monkeypatch.setenv("COLUMNS", "100")
+    monkeypatch.setenv("NO_COLOR", "1")
+    assert main(["buffers", str(REPO / "chains" / "hydrophone_direct.yaml"), "--details"]) == 0
+    out = capsys.readouterr().out
+    assert "Loses 18.12 dB now" in out and "each candidate inserted" in out
+    assert out.count("nmos_500u_gate: breaks max_buffer_power: 1.69 mW > 500 µW (1.19 mW over)") >= 2
+    assert "no bias here" in out
+
+
+def test_wide_tables_are_never_cut_on_a_narrow_console(capsys, monkeypatch):
+    # --wide prints a table at its own width even when the console is narrower (rich caps a print's width
+    # at the console's, which folded the figures: '+17.61 d' / 'B')
+    monkeypatch.setenv("COLUMNS", "60")
+    monkeypatch.setenv("NO_COLOR", "1")
+    assert main(["buffers", str(REPO / "chains" / "hydrophone_direct.yaml"), "--interface", "lead", "--wide"]) == 0
+    out = capsys.readouterr().out
+    row = next(line for line in out.splitlines() if line.startswith("nmos_50u_gate "))
+    assert row.split() == ["nmos_50u_gate", "+17.61", "dB", "−0.01", "dB", "+2.66", "V", "−345", "mV", "antialias",
+                           "90.3", "kHz", "+19.10", "dB", "169", "µW", "+17.60", "dB"]

@@ -17,6 +17,8 @@ def add_arguments(p):
                    help="a parts file of candidate buffers, in addition to the spec's include:/candidates:")
     p.add_argument("--interface", metavar="STAGE", help="show the candidate table of this interface only "
                    "(named by the stage that reads it)")
+    p.add_argument("--details", action="store_true", help="advice: also every candidate at every interface "
+                   "(its figures, why it cannot be biased or what it breaks) and the reason of each verdict")
     g = p.add_argument_group("placement (the optimiser)")
     g.add_argument("--place", action="store_true", help="find the cheapest placement meeting the targets "
                    "(implied by the target options, --targets and --write)")
@@ -76,7 +78,7 @@ def _advise(chain, args) -> int:
     else:
         from ..render.advisor_tables import advice_tables
         from ..render.console import make_console
-        advice_tables(a, make_console(wide=args.wide), only=args.interface)
+        advice_tables(a, make_console(wide=args.wide), only=args.interface, details=args.details)
     return 0
 
 

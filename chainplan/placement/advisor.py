@@ -158,9 +158,33 @@ class InterfaceAdvice:
     z_load_ohm: float
     loss_now_db: float
     candidates: list[CandidateEffect]
-    verdict: str                 # 'needed', 'worth it', 'not worth it', 'would clip'
+    verdict: str                 # 'needed', 'worth it', 'not worth it', 'would clip', 'against spec'
     reason: str
     best: str | None             # the candidate the verdict recommends
+
+    def effect_of(self, name: str | None) -> CandidateEffect | None:
+        return next((e for e in self.candidates if e.candidate == name), None)
+
+    @property
+    def shown(self) -> CandidateEffect | None:
+        """The candidate whose figures stand for this interface: the pick, else the usable one that
+        raises the end-to-end gain most, to 0.01 dB, the cheaper first (not recommended: the verdict
+        says why)."""
+        if self.best is not None:
+            return self.effect_of(self.best)
+        return min((e for e in self.candidates if e.usable),
+                   key=lambda e: (-round(e.net_gain_db or 0.0, 2), e.price or 0.0, e.power_w or 0.0), default=None)
+
+    @property
+    def held_back(self) -> list[CandidateEffect]:
+        """Candidates that hold their bias and would do more than the shown one (end to end, by
+        ``helps_db``, or where nothing is shown, any that helps) but are not usable: they clip a node
+        or break a requirement."""
+        ref = self.shown
+        floor = (ref.net_gain_db or 0.0) if ref is not None else -math.inf
+        out = [e for e in self.candidates if e.valid and not e.usable and _helps(e)
+               and (e.net_gain_db or 0.0) > floor + THRESHOLDS["helps_db"] * 0.1]
+        return sorted(out, key=lambda e: -(e.net_gain_db or 0.0))
 
 
 @dataclass

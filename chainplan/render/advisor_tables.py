@@ -22,29 +22,74 @@ VERDICT_STYLE = {"needed": "bold green", "worth it": "green", "would clip": "bol
 
 # -- advice ------------------------------------------------------------------------------
 
-def advice_tables(a: Advice, console, only: str | None = None) -> None:
-    from rich.text import Text
+def advice_tables(a: Advice, console, only: str | None = None, details: bool = False) -> None:
+    """The advice: one table (a row per interface, the figures of its best usable candidate), what was
+    held back and why, a legend of the columns; with ``details`` (or ``only``) the long form: every
+    candidate at every interface (or at ``only``), with the reason of each verdict."""
     c = a.chain
     chain_heading(c, console)
-    cands = ", ".join(f"{e.candidate} ({e.kind}{_bias_text(e)})"
-                      for e in (a.interfaces[0].candidates if a.interfaces else []))
-    if not a.interfaces and a.candidates:
-        cands = ", ".join(f"{c.name} ({c.kind})" for c in a.candidates)
-    console.print(f"candidates: {cands or 'none'}; ranked by {a.cost_basis}; at {eng(a.f_ref_hz, 'Hz')}, "
-                  f"end-to-end gain now {db(a.gain_db)} to '{a.output}'")
+    n = len(a.interfaces[0].candidates) if a.interfaces else len(a.candidates)
+    console.print(f"{n} candidate{'s' if n != 1 else ''}, ranked by {a.cost_basis}, each inserted in turn and the "
+                  f"whole chain re-analysed; at {eng(a.f_ref_hz, 'Hz')}, end-to-end gain now {db(a.gain_db)} "
+                  f"to '{a.output}'")
+    if only is None:
+        _advice_table(a, console)
+        _held_back(a, console)
+        _left_alone(a, console)
+        _legend(a, console)
+    if not (details or only is not None):
+        console.print("--details: every candidate at every interface, and the reason of each verdict")
+        return
+    _details(a, console, only)
 
+
+def _advice_table(a: Advice, console) -> None:
     ifs = a.interfaces
-    print_table(console, [Col("from", wrap=True), Col("to", wrap=True), Col("Z source", right=True),
-                          Col("Z load", right=True), Col("loss now", right=True), Col("verdict"),
-                          Col("pick", wrap=True)],
-                list(zip([i.source for i in ifs], [i.reader for i in ifs], figures([i.z_source_ohm for i in ifs], "Ω"),
-                         figures([i.z_load_ohm for i in ifs], "Ω"), [loss(i.loss_now_db, 2) for i in ifs],
-                         [i.verdict for i in ifs], [i.best or "—" for i in ifs])),
-                title="Interfaces: loading loss now (dB lost) and the verdict",
+    shown = [i.shown for i in ifs]
+    get = lambda attr: [getattr(e, attr) if e is not None else None for e in shown]  # noqa: E731
+    names = [("—" if e is None else e.candidate if i.best is not None else f"({e.candidate})")
+             for i, e in zip(ifs, shown)]
+    cols = [Col("interface", wrap=2, whole=True), Col("loss dB", right=True), Col("verdict"),
+            Col("buffer", wrap=1),
+            Col("back dB", right=True), Col("net dB", right=True),
+            *([Col("SNR Δ dB", right=True, drop=1)] if a.noise else []),
+            Col("DC shift", right=True, drop=2), Col("power", right=True),
+            Col("Z source", right=True, wide=True), Col("Z load", right=True, wide=True)]
+    rows = list(zip([f"{i.source} → {i.reader}" for i in ifs], [_bare(loss(i.loss_now_db, 2)) for i in ifs],
+                    [i.verdict for i in ifs], names, [_bare(_num(x)) for x in get("recovered_db")],
+                    [_bare(_num(x)) for x in get("net_gain_db")],
+                    *([[_bare(_num(x)) for x in get("snr_change_db")]] if a.noise else []),
+                    [_signed_v(x) for x in get("dc_shift_v")], figures(get("power_w"), "W"),
+                    figures([i.z_source_ohm for i in ifs], "Ω"), figures([i.z_load_ohm for i in ifs], "Ω")))
+    print_table(console, cols, [list(r) for r in rows],
+                title="Buffer advice: the best usable candidate at each interface",
                 styles=[VERDICT_STYLE[i.verdict] for i in ifs])
-    for i in ifs:
-        console.print(Text(f"{i.source} → {i.reader}: {i.verdict}. ", style=VERDICT_STYLE[i.verdict] or ""),
-                      Text(i.reason[0].upper() + i.reason[1:] + "."))
+
+
+def _bare(text: str) -> str:
+    """A dB figure without its unit, for a column whose header carries it ('+17.61 dB' -> '+17.61')."""
+    return text[:-3] if text.endswith(" dB") else text
+
+
+def _held_back(a: Advice, console) -> None:
+    """Candidates that would do more than the one shown but clip or break a requirement, and why
+    nothing is shown where no candidate works."""
+    from rich.text import Text
+    lines = []
+    for i in a.interfaces:
+        for e in i.held_back[:3]:
+            lines.append(f"{i.source} → {i.reader}: {e.candidate} (net {_num(e.net_gain_db)}) {_not_usable(e)}")
+        if i.shown is None and not i.held_back and i.verdict != "not worth it":
+            lines.append(f"{i.source} → {i.reader}: {i.reason}")
+    if lines:
+        console.print(Text("Held back (never picked):", style="bold"))
+        for ln in lines:
+            console.print(Text("  " + ln, style="red"))
+
+
+def _left_alone(a: Advice, console) -> None:
+    """The interfaces at a virtual ground, which the advice leaves alone, and why."""
+    from rich.text import Text
     for node, reader, mode, amp in a.virtual_ground:
         held = f"'{amp}' holds its input" if amp == reader else f"'{reader}' feeds '{amp}', which holds its input"
         console.print(Text(f"{node} → {reader}: left alone. "),
@@ -52,19 +97,53 @@ def advice_tables(a: Advice, console, only: str | None = None) -> None:
                            f"voltage, so the source and cable capacitance barely matter; its {mode} transfer is "
                            "not a loading loss, and no buffer is advised here."))
 
-    console.print("Each candidate inserted in turn, the whole chain re-analysed.  back: loading loss given "
-                  "back (dB); own: the buffer's open-circuit gain (dB); room Δ: the largest headroom drop, at "
-                  "node; f high: upper −3 dB edge after; net: end-to-end gain change (dB).")
-    for i in ifs:
+
+def _not_usable(e: CandidateEffect) -> str:
+    parts = [break_text(b) for b in e.breaks]
+    if e.new_clips:
+        parts.insert(0, "clips at " + ", ".join(e.new_clips))
+    return "; ".join(parts)
+
+
+def _legend(a: Advice, console) -> None:
+    f_ref = eng(a.f_ref_hz, "Hz")
+    rows = [
+        ["loss dB", f"loading loss at the interface now, at {f_ref}: dB lost (0: none)"],
+        ["verdict", "needed, worth it, not worth it, would clip, against spec (docs/buffers.md)"],
+        ["buffer", f"the pick: the cheapest usable candidate (by {a.cost_basis}) that earns the verdict; "
+                   "(name): the usable one that raises the gain most, not worth a part"],
+        ["back dB", "loading loss the buffer gives back, dB (positive: recovered)"],
+        ["net dB", f"end-to-end gain change at {f_ref} with the buffer in, dB"],
+        *([["SNR Δ dB", "change in the SNR at the converter, dB (positive: better)"]] if a.noise else []),
+        ["DC shift", "the buffer's output DC level minus the node's, V (a follower's VGS or VBE)"],
+        ["power", "the buffer's supply power at its operating point there, W"],
+        ["usable", "holds its bias, clips no node that did not clip, breaks no requirement of the spec"],
+    ]
+    print_table(console, [Col("column", wrap=1), Col("meaning", wrap=2)], rows, title="Legend")
+
+
+def _details(a: Advice, console, only: str | None) -> None:
+    from rich.text import Text
+    cands = ", ".join(f"{e.candidate} ({e.kind}{_bias_text(e)})"
+                      for e in (a.interfaces[0].candidates if a.interfaces else []))
+    if not a.interfaces and a.candidates:
+        cands = ", ".join(f"{c.name} ({c.kind})" for c in a.candidates)
+    console.print(f"candidates: {cands or 'none'}")
+    console.print("Every candidate at each interface; columns as in the legend, and own: the buffer's "
+                  "open-circuit gain Vth(buffer)/V(node), dB; room Δ: the largest fall in headroom, V, at node; "
+                  "f high: the upper −3 dB band edge with the buffer in.")
+    for i in a.interfaces:
         if only is not None and i.reader != only:
             continue
+        console.print(Text(f"{i.source} → {i.reader}: {i.verdict}. ", style=VERDICT_STYLE[i.verdict] or ""),
+                      Text(i.reason[0].upper() + i.reason[1:] + "."))
         cols = [Col("candidate", wrap=2), Col("back", right=True), Col("own", right=True, drop=3),
                 Col("DC shift", right=True, drop=2), Col("room Δ", right=True), Col("node", wrap=True),
                 Col("f high", right=True, drop=1), *([Col("SNR Δ", right=True)] if a.noise else []),
                 Col("power", right=True), Col("net", right=True)]
         print_table(console, cols, [_effect_row(e, a.noise) for e in i.candidates],
                     title=f"{i.source} → {i.reader} (loading loss {loss(i.loss_now_db, 2)}): each candidate inserted",
-                    styles=["bold red" if e.valid and e.new_clips else None for e in i.candidates])
+                    styles=["bold red" if e.valid and (e.new_clips or e.breaks) else None for e in i.candidates])
         for e in i.candidates:
             if not e.valid:
                 console.print(f"  {e.candidate}: no bias here: {e.problem}")

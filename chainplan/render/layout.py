@@ -29,6 +29,7 @@ class Col:
     wrap: int = 0           # a label that may wrap (left-aligned); 2: narrowed before the 1s
     drop: int = 0           # 0: always shown; higher numbers are left out first when the table is too wide
     wide: bool = False      # shown only with --wide
+    whole: bool = False     # a wrapping label kept whole while columns with a drop number can be left out
 
 
 def is_wide(console) -> bool:
@@ -59,7 +60,8 @@ def layout(cols: list[Col], rows: list[list[str]], width: int, wide: bool):
     total = lambda idx, k: sum(nat[i][k] for i in idx) + GAP * (len(idx) - 1)  # noqa: E731
     if wide:
         return keep, [nat[i][0] for i in keep], hidden
-    while total(keep, 1) > width:
+    whole = lambda i, k: nat[i][0] if k == 1 and cols[i].whole else nat[i][k]  # noqa: E731
+    while sum(whole(i, 1) for i in keep) + GAP * (len(keep) - 1) > width:
         droppable = [i for i in keep if cols[i].drop > 0]
         if not droppable:
             break
@@ -154,6 +156,11 @@ def print_table(console, *args, **kw) -> None:
     t = fit_table(console, *args, **kw)
     if is_wide(console):
         width = sum(c.width or 0 for c in t.columns) + GAP * (len(t.columns) - 1)
-        console.print(t, width=max(console.width, width))
+        before = console.width          # console.print(width=) is capped at the console's width:
+        console.width = max(before, width)   # widen the console itself, or rich folds the cells
+        try:
+            console.print(t)
+        finally:
+            console.width = before
     else:
         console.print(t)
