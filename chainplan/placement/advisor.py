@@ -35,7 +35,8 @@ doing.  Each break is kept with the value, the limit and the excess.
 Verdict per interface (thresholds in :data:`THRESHOLDS`, documented in
 docs/buffers.md).  A candidate is *usable* when its device holds its bias,
 it makes no node clip that did not clip before (its own output included) and
-it breaks no requirement of the spec; only a usable candidate is ever picked.
+it breaks no requirement of the spec and no placement rule keeps it from the
+interface; only a usable candidate is ever picked.
 It *helps* when it gives back at least ``helps_db`` of loading loss or widens
 the band by ``band_gain`` (10 %).
 
@@ -48,6 +49,8 @@ the band by ``band_gain`` (10 %).
   or cannot be biased at this node's DC level;
 * against spec — some candidates would help and hold their bias without
   clipping, but every such one breaks a requirement of the spec;
+* ruled out — the spec's placement rules (``placement:``, chainplan.spec.rules)
+  keep every candidate that would help from this interface;
 * not worth it — otherwise: little to recover, and what a buffer gives back is
   eaten by its own gain below one.
 """
@@ -62,6 +65,7 @@ from ..engine.budget import Evaluation, check_operating_points, evaluate
 from ..spec.insert import insert_buffers
 from ..spec.model import Chain
 from ..spec.parts import Candidate, candidates_of, default_cost_basis, supply_power
+from ..spec.rules import excluded
 
 THRESHOLDS = {
     "needed_loss_db": 3.0,     # an interface losing this much or more needs a buffer...
@@ -119,10 +123,11 @@ class CandidateEffect:
     headroom: list[NodeChange] = field(default_factory=list)
     new_clips: list[str] = field(default_factory=list)
     breaks: list[Break] = field(default_factory=list)
+    rule: str | None = None      # why a placement rule of the spec keeps it from this interface
 
     @property
     def usable(self) -> bool:
-        return self.valid and not self.new_clips and not self.breaks
+        return self.valid and not self.new_clips and not self.breaks and self.rule is None
 
     @property
     def worst_headroom(self) -> NodeChange | None:
@@ -201,6 +206,7 @@ class Advice:
     #: (a transimpedance or charge amplifier takes the current or charge; a buffer there is wrong advice)
     virtual_ground: list = field(default_factory=list)
     candidates: list = field(default_factory=list)   # (name, kind, bias text) of the candidates tried
+    rules: list = field(default_factory=list)   # chainplan.spec.rules.rules_summary: the spec's placement rules
 
 
 # -- analysis ----------------------------------------------------------------------
@@ -275,7 +281,7 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
     x = chain.stage(reader).parent
     with np.errstate(all="ignore"):
         ev = evaluate(new)
-        out = CandidateEffect(
+        out = CandidateEffect(rule=excluded(chain, reader, cand),
             candidate=cand.name, kind=cand.kind, buffer=buf, bias_stage=bias, input_bias=input_bias_of(cand),
             valid=bool(ev.valid[0]), problem=None,
             loss_after_db=None, recovered_db=None, buffer_gain_db=None, dc_shift_v=None, net_gain_db=None,
@@ -341,8 +347,9 @@ def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
                                       float(np.ravel(ev0.dc.node_v[st.parent])[0]))
         rows.append(InterfaceAdvice(st.parent, st.name, _z(b[:, 0] / a[:, 0]), 1 / abs(y) if y != 0 else math.inf,
                                     _loss_db(ev0, st.name), effects, verdict, reason, best))
+    from ..spec.rules import rules_summary
     return Advice(chain, chain.analysis.f_ref_hz, ev0.output, base.gain_db, basis, rows, dict(THRESHOLDS),
-                  base.snr_db is not None, skipped, list(cands))
+                  base.snr_db is not None, skipped, list(cands), rules_summary(chain, cands))
 
 
 # -- verdicts ------------------------------------------------------------------------
@@ -399,7 +406,11 @@ def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str,
         return "worth it", f"loses {lost:.2f} dB now; " + why, e.candidate
     helpful = [e for e in effects if e.valid and _helps(e)]
     if helpful and not any(e.usable for e in helpful) or (lost >= t["needed_loss_db"] and not usable):
-        held = [e for e in (helpful or effects) if e.valid and not e.new_clips and e.breaks]
+        ruled = [e for e in (helpful or effects) if e.rule is not None]
+        if ruled and all(e.rule is not None for e in (helpful or effects)):
+            return "ruled out", (f"loses {lost:.2f} dB now; the spec's placement rules keep every candidate that "
+                                 f"would help from here: {ruled[0].rule}"), None
+        held = [e for e in (helpful or effects) if e.valid and not e.new_clips and e.breaks and e.rule is None]
         if held:
             return "against spec", (f"loses {lost:.2f} dB now; every candidate that would help breaks a "
                                     "requirement of the spec: " + "; ".join(

@@ -31,6 +31,7 @@ from ..engine.budget import evaluate, nominal_params, virtual_grounds
 from ..spec.insert import bias_names, buffer_names
 from ..spec.model import Analysis, Chain, Stage
 from ..spec.parts import Candidate
+from ..spec.rules import banned
 from .switch import MODEL, PASS, TERMINAL, Element, Switch
 
 #: Kinds that cut the chain (unilateral input and output; DC from the input node voltage only).
@@ -112,6 +113,7 @@ class Regions:
 
     def __init__(self, chain: Chain, cands: list[Candidate], basis: str, grid: np.ndarray, lb_of):
         self.chain, self.cands, self.basis, self.grid = chain, cands, basis, grid
+        self.banned = banned(chain, cands)             # (reader, candidate) pairs placement rules forbid
         self.lb_of = lb_of                               # candidate index -> a lower bound of its cost
         self.names, self.bias_at = buffer_names(chain), bias_names(chain)
         self.by_name = {st.name: st for st in chain.all_stages}
@@ -226,6 +228,8 @@ class Regions:
             out_at = w.node[buf_sw] if q.role == "load" else w.node[q_sw]
         out = []
         for o in [-1] if q.name in self.vground else [-1, *range(len(cands))]:
+            if o >= 0 and (q.name, o) in self.banned:      # the spec's placement rules keep it out of here
+                continue
             assign, terms, bufs = {}, [], []
             if o >= 0:
                 if cands[o].input_bias is not None:

@@ -17,7 +17,7 @@ from .layout import Col, print_table
 from .tables import chain_heading
 
 VERDICT_STYLE = {"needed": "bold green", "worth it": "green", "would clip": "bold red", "against spec": "bold red",
-                 "not worth it": None}
+                 "ruled out": "bold red", "not worth it": None}
 
 
 # -- advice ------------------------------------------------------------------------------
@@ -33,6 +33,7 @@ def advice_tables(a: Advice, console, only: str | None = None, details: bool = F
                   f"whole chain re-analysed; at {eng(a.f_ref_hz, 'Hz')}, end-to-end gain now {db(a.gain_db)} "
                   f"to '{a.output}'")
     if only is None:
+        rules_block(a.chain, a.rules, console)
         _advice_table(a, console)
         _held_back(a, console)
         _left_alone(a, console)
@@ -77,7 +78,12 @@ def _held_back(a: Advice, console) -> None:
     from rich.text import Text
     lines = []
     for i in a.interfaces:
-        for e in i.held_back[:3]:
+        held = i.held_back
+        if held and all((e.rule or "").startswith("nothing active") for e in held):
+            lines.append(f"{i.source} → {i.reader}: ruled out, {held[0].rule}; {held[0].candidate} would have "
+                         f"given net {_num(held[0].net_gain_db)}")
+            continue
+        for e in held[:3]:
             lines.append(f"{i.source} → {i.reader}: {e.candidate} (net {_num(e.net_gain_db)}) {_not_usable(e)}")
         if i.shown is None and not i.held_back and i.verdict != "not worth it":
             lines.append(f"{i.source} → {i.reader}: {i.reason}")
@@ -98,8 +104,16 @@ def _left_alone(a: Advice, console) -> None:
                            "not a loading loss, and no buffer is advised here."))
 
 
+def rules_block(chain, summary: list, console) -> None:
+    """The spec's placement rules: where nothing active may go, which candidates each place keeps out."""
+    from ..spec.rules import summary_rows
+    if summary:
+        print_table(console, [Col("interfaces", wrap=2), Col("rule", wrap=2), Col("keeps out", wrap=1)],
+                    summary_rows(chain, summary), title="Placement rules (the spec's placement:)")
+
+
 def _not_usable(e: CandidateEffect) -> str:
-    parts = [break_text(b) for b in e.breaks]
+    parts = ([f"ruled out: {e.rule}"] if e.rule else []) + [break_text(b) for b in e.breaks]
     if e.new_clips:
         parts.insert(0, "clips at " + ", ".join(e.new_clips))
     return "; ".join(parts)
@@ -109,7 +123,7 @@ def _legend(a: Advice, console) -> None:
     f_ref = eng(a.f_ref_hz, "Hz")
     rows = [
         ["loss dB", f"loading loss at the interface now, at {f_ref}: dB lost (0: none)"],
-        ["verdict", "needed, worth it, not worth it, would clip, against spec (docs/buffers.md)"],
+        ["verdict", "needed, worth it, not worth it, would clip, against spec, ruled out (docs/buffers.md)"],
         ["buffer", f"the pick: the cheapest usable candidate (by {a.cost_basis}) that earns the verdict; "
                    "(name): the usable one that raises the gain most, not worth a part"],
         ["back dB", "loading loss the buffer gives back, dB (positive: recovered)"],
@@ -117,7 +131,8 @@ def _legend(a: Advice, console) -> None:
         *([["SNR Δ dB", "change in the SNR at the converter, dB (positive: better)"]] if a.noise else []),
         ["DC shift", "the buffer's output DC level minus the node's, V (a follower's VGS or VBE)"],
         ["power", "the buffer's supply power at its operating point there, W"],
-        ["usable", "holds its bias, clips no node that did not clip, breaks no requirement of the spec"],
+        ["usable", "holds its bias, clips no node that did not clip, breaks no requirement of the spec"
+                   + (" and no placement rule keeps it out" if a.rules else "")],
     ]
     print_table(console, [Col("column", wrap=1), Col("meaning", wrap=2)], rows, title="Legend")
 
@@ -143,13 +158,20 @@ def _details(a: Advice, console, only: str | None) -> None:
                 Col("power", right=True), Col("net", right=True)]
         print_table(console, cols, [_effect_row(e, a.noise) for e in i.candidates],
                     title=f"{i.source} → {i.reader} (loading loss {loss(i.loss_now_db, 2)}): each candidate inserted",
-                    styles=["bold red" if e.valid and (e.new_clips or e.breaks) else None for e in i.candidates])
+                    styles=["bold red" if e.valid and (e.new_clips or e.breaks) or e.rule else None
+                            for e in i.candidates])
+        common = {e.rule for e in i.candidates}
+        common = common.pop() if len(common) == 1 else None
+        if common is not None:
+            console.print(Text(f"  every candidate: ruled out: {common} (never picked)", style="red"))
         for e in i.candidates:
             if not e.valid:
                 console.print(f"  {e.candidate}: no bias here: {e.problem}")
-            elif e.breaks:
-                console.print(Text(f"  {e.candidate}: " + "; ".join(break_text(b) for b in e.breaks)
-                                   + " (never picked)", style="red"))
+                continue
+            why = ([f"ruled out: {e.rule}"] if e.rule is not None and common is None else []) + \
+                [break_text(b) for b in e.breaks]
+            if why:
+                console.print(Text(f"  {e.candidate}: " + "; ".join(why) + " (never picked)", style="red"))
 
 
 def _bias_text(e: CandidateEffect) -> str:
@@ -185,6 +207,7 @@ def advice_dict(a: Advice) -> dict:
         "chain": a.chain.name, "file": a.chain.path, "hazards": a.chain.hazards,
         "caution": safety_notice(a.chain.hazards), "f_ref_hz": a.f_ref_hz, "output": a.output,
         "gain_db": a.gain_db, "cost_basis": a.cost_basis, "thresholds": a.thresholds,
+        "rules": a.rules,
         "interfaces": [{
             "from": i.source, "to": i.reader, "z_source_ohm": i.z_source_ohm, "z_load_ohm": i.z_load_ohm,
             "loading_loss_db": i.loss_now_db, "verdict": i.verdict, "reason": i.reason, "pick": i.best,
@@ -208,7 +231,7 @@ def _effect_dict(e: CandidateEffect) -> dict:
         "power_w": e.power_w, "price": e.price, "count": e.count, "new_clips": e.new_clips,
         "breaks": [{"requirement": b.requirement, "key": b.key, "value": b.value, "limit": b.limit,
                     "unit": b.unit, "sense": b.sense, "excess": b.excess} for b in e.breaks],
-        "usable": e.usable,
+        "usable": e.usable, "rule": e.rule,
         "worst_headroom": None if w is None else {"node": w.node, "change_v": w.change_v, "after_v": w.after_v},
         "headroom": [{"node": h.node, "before_v": h.before_v, "after_v": h.after_v, "change_v": h.change_v}
                      for h in e.headroom],
@@ -221,6 +244,7 @@ def plan_tables(p: Plan, console, requirements=None, report_only=()) -> None:
     from rich.text import Text
     chain_heading(p.chain, console)
     console.print("targets: " + "; ".join(target_text(p.targets, k) + _origin(p, k) for k in p.targets.kinds()))
+    rules_block(p.chain, _rules(p), console)
     if p.conflicts:
         console.print(Text("The targets contradict each other; nothing was searched:", style="bold red"))
         for line in p.conflicts:
@@ -274,6 +298,12 @@ def plan_tables(p: Plan, console, requirements=None, report_only=()) -> None:
     st = p.stats
     console.print(f"search: {st.get('states', 0)} states, {st.get('analyses', 0)} region analyses in "
                   f"{st.get('engine_calls', 0)} engine calls, {st.get('seconds', 0.0):.2f} s")
+
+
+def _rules(p: Plan) -> list:
+    from ..spec.parts import candidates_of
+    from ..spec.rules import rules_summary
+    return rules_summary(p.chain, candidates_of(p.chain))
 
 
 def _stop_text(p: Plan) -> str:
@@ -338,7 +368,7 @@ def plan_dict(p: Plan, requirements=None) -> dict:
         "chain": p.chain.name, "file": p.chain.path, "hazards": p.chain.hazards,
         "caution": safety_notice(p.chain.hazards), "feasible": p.feasible, "cost_basis": p.cost_basis,
         "cost": p.cost, "n_buffers": p.n_buffers, "proven": p.proven, "lower_bound": p.lower_bound,
-        "gap": p.gap, "ties": p.ties, "conflicts": p.conflicts,
+        "gap": p.gap, "ties": p.ties, "conflicts": p.conflicts, "rules": _rules(p),
         "targets": {"min_gain_db": [{"f_hz": f, "db": v} for f, v in t.min_gain_db.items()],
                     "max_gain_db": [{"f_hz": f, "db": v} for f, v in t.max_gain_db.items()],
                     "min_headroom_v": t.min_headroom_v, "node_headroom_v": t.node_headroom_v,

@@ -24,7 +24,7 @@ from .yamlsrc import LDict, LList, load_file, load_text
 
 HAZARDS = ("mains", "high_voltage", "patient")
 TOP_KEYS = ("name", "description", "hazards", "temperature", "t_nom", "rails", "source", "stages", "analysis",
-            "requirements", "include", "candidates", "corners", "accuracy", "power", "ambient")
+            "requirements", "include", "candidates", "corners", "accuracy", "power", "ambient", "placement")
 ANALYSIS_KEYS = {"f_ref": "Hz", "f_start": "Hz", "f_stop": "Hz", "points": "1", "output": None,
                  "noise_band": "Hz", "signal_band": "Hz", "mid_band": "Hz"}
 NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
@@ -47,6 +47,7 @@ SECTION_PARSERS: dict[str, str] = {
     "corners": "chainplan.studies.tolerances:parse_corners",
     "include": "chainplan.spec.parts:parse_include",
     "candidates": "chainplan.spec.parts:parse_candidates",
+    "placement": "chainplan.spec.rules:parse_section",          # after the candidates: it names stages only
 }
 
 

@@ -13,6 +13,9 @@ A parts file is a YAML mapping::
           c: 100 nF                          # coupling capacitor from the node it reads
           r_bias: 100M                       # bias resistor from the input to...
           bias: vdd                          # ...this voltage or rail of the including chain
+        rating:                              # optional: where it may go (placement: rules, spec.rules)
+          temperature: [-40 °C, 85 °C]
+          supply: [1.8 V, 5.5 V]
         cost:                                # optional
           price: 0.35                        # a plain number in your currency
           count: 2                           # parts it adds to the board (default 1)
@@ -69,6 +72,7 @@ class Candidate:
     power_w: float | None = None     # fixed power, overriding the operating point's
     tolerances: dict = field(default_factory=dict)
     input_bias: Stage | None = None  # an ac_coupling stage inserted right before the follower
+    rating: dict = field(default_factory=dict)   # 'temperature': (lo, hi) K, 'supply': (lo, hi) V (spec.rules)
 
     @property
     def biased(self) -> bool:
@@ -226,7 +230,7 @@ def _add_candidates(chain, node, line, path) -> None:
         if "from" in item:
             raise SpecError("a candidate is not connected to anything; the advisor decides where it goes "
                             "(remove 'from:')", path, item.line_of("from"), "from")
-        own = ("cost", "input_bias")
+        own = ("cost", "input_bias", "rating")
         body = LDict((k, v) for k, v in item.items() if k not in own)
         body.line, body.key_lines = item.line, {k: v for k, v in item.key_lines.items() if k not in own}
         tolerances: dict = {}
@@ -240,6 +244,9 @@ def _add_candidates(chain, node, line, path) -> None:
             cand.input_bias = _input_bias(chain, cand, item["input_bias"], item.line_of("input_bias"), path)
         if "cost" in item:
             _cost(cand, item["cost"], item.line_of("cost"), path)
+        if "rating" in item:
+            from .rules import parse_rating
+            cand.rating = parse_rating(item["rating"], item.line_of("rating"), path, f"{cand.name}.rating")
         names[st.name] = cand
         have.append(cand)
 
