@@ -181,3 +181,31 @@ def test_dynamics_figure_marks_the_phase_margin_and_settling():
     for gid in ("loop:tia", "loop-phase:tia", "margin:tia", "step", "settling"):
         assert f'id="{gid}' in svg, gid
     assert "PM 38°" in svg
+
+
+def test_advice_strip_draws_the_advice_numbers(tmp_path):
+    from chainplan.cli import main
+    from chainplan.placement.advisor import advise
+    a = advise(load_chain(str(REPO / "chains" / "hydrophone_direct.yaml")))
+    fig = plots.advice_strip(a)
+    ax = fig.axes[0]
+    for i in a.interfaces:
+        key = f"{i.source}>{i.reader}"
+        (lost,) = [p for p in ax.patches if p.get_gid() == f"lost:{key}"]
+        assert lost.get_height() == pytest.approx(max(0.0, i.loss_now_db), abs=1e-12)
+        back = [p for p in ax.patches if p.get_gid() == f"back:{key}"]
+        if i.shown is not None and abs(i.shown.recovered_db) >= 0.005:
+            assert back[0].get_height() == pytest.approx(max(0.0, i.shown.recovered_db), abs=1e-12)
+            colour = plots.GIVEN_BACK if i.best is not None else plots.NOT_PICKED
+            assert back[0].get_facecolor()[:3] == pytest.approx(_rgb(colour))
+        (verdict,) = _by_gid(fig, f"verdict:{i.reader}")
+        assert verdict.get_text().startswith(i.verdict)
+        if i.best is not None:
+            assert i.best in verdict.get_text()
+    lead = next(i for i in a.interfaces if i.reader == "lead")
+    assert lead.best == "nmos_50u_gate"               # the spec's 500 µW keeps the 1.69 mW follower out
+    for st in a.chain.all_stages:
+        _by_gid(fig, f"stage:{st.name}")
+    assert main(["buffers", str(REPO / "chains" / "hydrophone_direct.yaml"), "--plot", str(tmp_path)]) == 0
+    for ext in ("png", "svg"):
+        assert (tmp_path / f"hydrophone_direct-advice.{ext}").stat().st_size > 1000

@@ -17,6 +17,9 @@ def add_arguments(p):
                    help="a parts file of candidate buffers, in addition to the spec's include:/candidates:")
     p.add_argument("--interface", metavar="STAGE", help="show the candidate table of this interface only "
                    "(named by the stage that reads it)")
+    p.add_argument("--plot", metavar="FOLDER", help="advice: also draw it as a picture, FOLDER/<spec>-advice.png "
+                   "and .svg (the chain as a strip, each interface's loading loss and what the advised buffer "
+                   "gives back; needs matplotlib)")
     p.add_argument("--details", action="store_true", help="advice: also every candidate at every interface "
                    "(its figures, why it cannot be biased or what it breaks) and the reason of each verdict")
     g = p.add_argument_group("placement (the optimiser)")
@@ -61,6 +64,10 @@ def run(args) -> int:
     if args.write or args.in_place:
         from ..render.files import check_target
         check_target(args.write or args.file, replaces=args.file if args.in_place else None)
+    if args.plot is not None and (args.place or args.write or args.in_place or any(
+            x is not None for x in (args.min_gain, args.min_headroom, args.min_bandwidth, args.max_power,
+                                    args.targets))):
+        raise UsageError("--plot draws the advice (without targets); the placement has no picture yet")
     place = args.place or args.write or args.in_place or any(
         x is not None for x in (args.min_gain, args.min_headroom, args.min_bandwidth, args.max_power, args.targets))
     if args.headroom_nodes and args.min_headroom is None:
@@ -70,7 +77,18 @@ def run(args) -> int:
 
 def _advise(chain, args) -> int:
     from ..placement.advisor import advise
+    if args.plot is not None:
+        import importlib.util
+        if importlib.util.find_spec("matplotlib") is None:
+            raise UsageError("--plot needs matplotlib, which is not installed: pip install matplotlib")
+        from ..render.files import check_folder
+        check_folder(args.plot)                  # refuse a bad folder before any work
     a = advise(chain)
+    written = []
+    if args.plot is not None:
+        from ..render import plots
+        stem = os.path.splitext(os.path.basename(args.file))[0]
+        written = plots.save({"advice": plots.advice_strip(a)}, args.plot, stem)
     if args.json:
         from ..render.advisor_tables import advice_dict
         from ..render.json_out import dumps
@@ -79,6 +97,8 @@ def _advise(chain, args) -> int:
         from ..render.advisor_tables import advice_tables
         from ..render.console import make_console
         advice_tables(a, make_console(wide=args.wide), only=args.interface, details=args.details)
+        for path in written:
+            print(f"wrote {path}")
     return 0
 
 

@@ -25,6 +25,7 @@ import textwrap
 import numpy as np
 
 from ..engine.budget import Budget
+from ..spec.numbers import figure
 from ..spec.numbers import loss as loss_text
 from .console import interface_cell
 from ..spec.units import fmt
@@ -485,6 +486,86 @@ def comparison_plot(old: Budget, new: Budget, noise_old=None, noise_new=None, la
         ax.set_xlabel("frequency, Hz")
     _title(fig, f"{new.chain.name}: before (dashed) and after (solid)")
     _finish(fig, hazardous)
+    return fig
+
+
+# -- buffer advice -------------------------------------------------------------------
+
+GIVEN_BACK = "#2e7d32"          # what the pick gives back
+NOT_PICKED = "#a5d6a7"          # what the best usable candidate would give back, not worth a part
+
+
+def advice_strip(a):
+    """The buffer advice as a picture: the chain as a strip of stages, and at each interface its
+    loading loss now (red bar, dB lost) beside what the advised buffer gives back (green bar, dB:
+    solid for the pick, pale for the best usable candidate where none is worth a part), labelled
+    with the candidate and the verdict.  Reads a ``chainplan.placement.advisor.Advice`` only."""
+    chain = a.chain
+    cols = chain.all_stages
+    x_of = {st.name: i for i, st in enumerate(cols)}
+    fig = _figure(max(7.5, 1.6 * len(cols) + 1.8), 5.4)
+    margin = _caution_margin(fig, chain)
+    gs = fig.add_gridspec(2, 1, height_ratios=[3.4, 1.0], hspace=0.22, left=0.08, right=0.98,
+                          top=0.86, bottom=0.05 + margin)
+    ax, strip = fig.add_subplot(gs[0]), fig.add_subplot(gs[1])
+    top = max([i.loss_now_db for i in a.interfaces] +
+              [(i.shown.recovered_db or 0.0) for i in a.interfaces if i.shown is not None] + [0.1])
+    ax.set_ylim(0, 1.35 * top)
+    ax.set_xlim(-0.6, len(cols) - 0.4)
+    for i in a.interfaces:
+        x = x_of[i.reader] - 0.5             # just before its reader: fan-out branches keep apart
+        lost = max(0.0, i.loss_now_db)
+        colour = CLIP if lost >= LOSS_RED_DB else TIGHT if lost >= LOSS_AMBER_DB else QUIET
+        ax.bar(x - 0.13, lost, width=0.24, color=colour, zorder=3, gid=f"lost:{i.source}>{i.reader}")
+        inside = lost > 0.15 * top           # a tall bar carries its figure inside, clear of its neighbour
+        ax.text(x - 0.13, lost - 0.02 * top if inside else lost + 0.02 * top, loss_text(lost, 2), fontsize=7,
+                color="white" if inside else colour, ha="center", va="top" if inside else "bottom", zorder=4,
+                rotation=90 if inside else 0, gid=f"lost-text:{i.source}>{i.reader}")
+        e = i.shown
+        picked = i.best is not None
+        if e is not None and e.recovered_db is not None and abs(e.recovered_db) >= 0.005:
+            back = e.recovered_db
+            ax.bar(x + 0.13, max(back, 0.0), width=0.24, color=GIVEN_BACK if picked else NOT_PICKED, zorder=3,
+                   gid=f"back:{i.source}>{i.reader}")
+            ax.text(x + 0.13, max(back, 0.0) + 0.02 * top, figure(back, "dB"), fontsize=7,
+                    color=GIVEN_BACK if picked else QUIET, ha="center", va="bottom",
+                    gid=f"back-text:{i.source}>{i.reader}")
+        name = "" if e is None else e.candidate if picked else f"({e.candidate})"
+        if i.candidates and all(c.rule is not None for c in i.candidates):
+            name = "(placement rule)"
+        ax.text(x, -0.04 * top, f"{i.verdict}\n{name}".rstrip(), fontsize=7.2, ha="center", va="top",
+                color=CLIP if i.verdict in ("would clip", "against spec", "ruled out") else
+                GIVEN_BACK if i.verdict in ("needed", "worth it") else QUIET,
+                weight="bold" if i.verdict in ("needed", "worth it") else "normal", gid=f"verdict:{i.reader}")
+    ax.set_xticks([])
+    ax.set_ylabel("dB")
+    ax.grid(axis="y", color="#e6e6e6", lw=0.6, zorder=0)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    from matplotlib.patches import Patch
+    ax.legend(handles=[Patch(facecolor=CLIP, label="loading loss now (dB lost)"),
+                       Patch(facecolor=GIVEN_BACK, label="given back by the advised buffer (dB)"),
+                       Patch(facecolor=NOT_PICKED, label="best usable, not worth a part")],
+              loc="lower left", bbox_to_anchor=(0.0, 1.01), ncol=3, fontsize=7.5, frameon=False,
+              borderaxespad=0.2, handlelength=1.4, columnspacing=1.0)
+    # the chain as a strip: one box per stage, an arrow per interface (fan-out on lanes of their own)
+    lanes: dict[str, int] = {}
+    for i in a.interfaces:
+        lane = lanes.get(i.source, 0)
+        lanes[i.source] = lane + 1
+        x0, x1 = x_of[i.source], x_of[i.reader]
+        strip.annotate("", xy=(x1 - 0.4, -lane), xytext=(x0 + 0.4, -lane),
+                       arrowprops=dict(arrowstyle="-|>", color=QUIET, lw=1.1, shrinkA=0, shrinkB=0))
+    for st in cols:
+        strip.text(x_of[st.name], 0, f"{st.name}\n{st.kind}", fontsize=7, ha="center", va="center",
+                   bbox=dict(boxstyle="round,pad=0.3", fc="white", ec=QUIET, lw=0.8), gid=f"stage:{st.name}")
+    depth = max(lanes.values(), default=1)
+    strip.set_ylim(-depth + 0.4, 0.6)
+    strip.set_xlim(-0.6, len(cols) - 0.4)
+    strip.axis("off")
+    _title(fig, f"{chain.name}: loading loss at each interface and what a buffer gives back "
+                f"(at {fmt(a.f_ref_hz, 'Hz')}, by {a.cost_basis})")
+    _finish(fig, chain)
     return fig
 
 
