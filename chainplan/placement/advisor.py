@@ -246,12 +246,14 @@ def breaks_of(before: list, after: list) -> list[Break]:
 
 
 def _snr_db(ev: Evaluation) -> float | None:
-    """SNR at the converter when the noise analysis is installed, else None."""
+    """SNR at the converter when the noise analysis is installed, else None: the powers-only
+    analysis, cached on the evaluation and shared with the SNR/ENOB requirements (it agrees with
+    the density path to 1e-12, tests/test_engine_reference.py)."""
     try:
-        from ..engine.noise import analyse_noise
+        from ..engine.noise import noise_powers
     except ImportError:
         return None
-    return float(np.ravel(analyse_noise(ev).snr_db)[0])
+    return float(np.ravel(noise_powers(ev).snr_db)[0])
 
 
 def _edge(x) -> float | None:
