@@ -21,6 +21,7 @@ BUDGET_HOOKS: list[str] = [
     "chainplan.engine.aliasing:attach_to_budget",
     "chainplan.engine.dcerror:attach_to_budget",
     "chainplan.engine.measurand:attach_to_budget",
+    "chainplan.engine.commonmode:attach_to_budget",
     "chainplan.engine.loop:attach_to_budget",
     "chainplan.engine.slew:attach_to_budget",
     "chainplan.engine.sampling:attach_to_budget",

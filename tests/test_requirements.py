@@ -98,7 +98,7 @@ def test_power_of_followers():
 
 
 def test_every_kind_accepts_its_spec_form():
-    from chainplan.studies.requirements import DYNAMICS_KINDS, KINDS, NOISE_KINDS
+    from chainplan.studies.requirements import COMMON_MODE_KINDS, DYNAMICS_KINDS, KINDS, NOISE_KINDS
     text = """
   - min_gain: -10 dB
   - max_gain: 0 dB
@@ -121,7 +121,8 @@ def test_every_kind_accepts_its_spec_form():
 """
     reqs = rc_with(text).extra["requirements"]
     assert {r.key for r in reqs} == (set(KINDS) - set(NOISE_KINDS) - {"min_alias_rejection"}  # tests/test_aliasing.py
-                                     - set(DYNAMICS_KINDS))                                    # tests/test_stability.py
+                                     - set(DYNAMICS_KINDS)                                     # tests/test_stability.py
+                                     - set(COMMON_MODE_KINDS))                                 # tests/test_differential.py
     assert [r.kind for r in reqs][:2] == ["min_gain_db", "max_gain_db"]
 
 

@@ -65,7 +65,7 @@ def test_an_unknown_source_kind_lists_the_source_kinds(cli, spec_file):
     assert rc == 2 and "unknown source kind 'photodiode'" in err
     assert "current_sensor" in err and "sensor" in err and "opamp" not in err and "cable" not in err
     rc, _, err = cli("budget", spec_file(_spec(kind="sensr")))
-    assert rc == 2 and "did you mean 'sensor'" in err and "source kinds: current_sensor, sensor" in err
+    assert rc == 2 and "did you mean 'sensor'" in err and "source kinds: bridge, current_sensor, sensor" in err
 
 
 def test_an_emitter_follower_without_a_bias_path_says_so(cli, spec_file):

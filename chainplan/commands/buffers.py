@@ -72,6 +72,10 @@ def run(args) -> int:
         x is not None for x in (args.min_gain, args.min_headroom, args.min_bandwidth, args.max_power, args.targets))
     if args.headroom_nodes and args.min_headroom is None:
         raise UsageError("--headroom-nodes needs --min-headroom")
+    if place and any(getattr(st.model, "reads_differential", False) for st in chain.stages):
+        raise UsageError("buffer placement does not search chains with a differential pair yet (a bridge read by a "
+                         "difference amplifier); 'chainplan buffers' without targets advises the single-ended "
+                         "interfaces")
     return _place(chain, args) if place else _advise(chain, args)
 
 

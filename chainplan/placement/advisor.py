@@ -344,9 +344,14 @@ def advise(chain: Chain, candidates: list[Candidate] | None = None) -> Advice:
             continue
         a, b = ev0.ac.branch_row[st.name]
         y = ev0.ac.y_in[st.name][0, 0]
-        effects = [effect(chain, base, st.name, c, with_noise) for c in cands]
-        verdict, reason, best = judge(_loss_db(ev0, st.name), effects, basis,
-                                      float(np.ravel(ev0.dc.node_v[st.parent])[0]))
+        if getattr(st.model, "reads_differential", False):      # a pair: no single-ended buffer goes here
+            effects, verdict, best = [], "not worth it", None
+            reason = ("a differential pair: a single-ended buffer cannot go between the bridge and its "
+                      "difference amplifier")
+        else:
+            effects = [effect(chain, base, st.name, c, with_noise) for c in cands]
+            verdict, reason, best = judge(_loss_db(ev0, st.name), effects, basis,
+                                          float(np.ravel(ev0.dc.node_v[st.parent])[0]))
         rows.append(InterfaceAdvice(st.parent, st.name, _z(b[:, 0] / a[:, 0]), 1 / abs(y) if y != 0 else math.inf,
                                     _loss_db(ev0, st.name), effects, verdict, reason, best))
     from ..spec.rules import rules_summary

@@ -246,6 +246,54 @@ def _current_sensor(b: _Builder, st: Stage, p, _in):
     return node
 
 
+def _bridge(b: _Builder, st: Stage, p, _in):
+    """Both legs of a Wheatstone bridge: the excitation, each leg's two arms of 2·R_leg
+    (so its Thevenin resistance is R_leg and its level half the excitation), and the
+    differential EMF ``AC 1`` in series with the + leg (V+ − V− = Vd; the common mode
+    then moves by Vd/2, which the difference amplifier rejects).  The legs are
+    ``b.pairs[name]``; the node returned (chainplan's node of the bridge) is V+ − V−, made by
+    a unity VCVS that loads nothing."""
+    a = b.chain.analysis
+    r_p, r_n, vcm = st.model.legs(p)
+    exc = b.volts(p["excitation"], st)
+    legs = []
+    for tag, r_leg in (("p", r_p), ("n", r_n)):
+        tap = b.new_node(f"{st.name}_{tag}_tap")
+        b.r(f"{st.name}_{tag}_top", exc, tap, 2 * _val(r_leg))
+        b.r(f"{st.name}_{tag}_bot", tap, "0", 2 * _val(r_leg))
+        legs.append(tap)
+    plus = b.new_node(f"{st.name}_p")
+    b.source_elem = b.elem("V", st.name, plus, legs[0], "DC", _num(p["dc"]), "AC 1",
+                           f"SIN({_num(p['dc'])} {_num(p['amplitude'])} {_num(a.f_ref_hz)})")
+    b.__dict__.setdefault("pairs", {})[st.name] = (plus, legs[1])
+    diff = b.new_node(f"{st.name}_d")
+    b.elem("E", f"{st.name}_d", diff, "0", plus, legs[1], "1")
+    return diff
+
+
+def _difference_amplifier(b: _Builder, st: Stage, p, node_in):
+    """The op-amp macro with the four resistors: R1 from the − terminal to the (−) input, R2
+    back from the output, R3 from the + terminal to the (+) input, R4 from it to ``ref``."""
+    pair = b.__dict__.get("pairs", {}).get(st.parent)
+    if pair is None:
+        raise _cannot(b.chain, st, "it reads no differential pair")
+    node_in, minus_term = pair
+    r1, r2, r3, r4 = st.model.resistors(p)
+    a0 = 10.0 ** (_val(p["a0"]) / 20.0)
+    ref = b.volts(p["ref"], st)
+    out, core = _output_nodes(b, st, p)
+    plus, minus = b.new_node(f"{st.name}_inp"), b.new_node(f"{st.name}_inm")
+    b.r(f"{st.name}_1", minus_term, minus, r1)
+    b.r(f"{st.name}_2", out, minus, r2)
+    b.r(f"{st.name}_3", node_in, plus, r3)
+    b.r(f"{st.name}_4", plus, ref, r4)
+    if "cmrr" in p or _val(p.get("match", 0.0)) > 0:
+        b.note(f"{st.name}: the op-amp's own CMRR and the 'match' worst case are the common-mode budget's; "
+               "the netlist has the nominal resistors and an ideal-CMRR op-amp")
+    sense = _input_noise(b, st, p, plus, minus)
+    return _drive(b, st, p, out, core, ref, sense, minus, a0, _val(p["gbw"]) / a0)
+
+
 def _passive(b: _Builder, st: Stage, p, node_in):
     """Any passive ladder from its own section list (series R/C, shunt R to a reference, shunt C)."""
     secs = st.model.sections(p)
@@ -492,6 +540,8 @@ def _common_emitter(b: _Builder, st: Stage, p, node_in):
 
 EXPORTERS = {
     "sensor": _sensor,
+    "bridge": _bridge,
+    "difference_amplifier": _difference_amplifier,
     "current_sensor": _current_sensor,
     "opamp_transimpedance": _opamp_transimpedance,
     "charge_amplifier": _opamp_transimpedance,      # the same circuit; r_f absent: no DC bleed (see below)

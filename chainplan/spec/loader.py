@@ -202,7 +202,31 @@ def _stages(ctx, doc, rails, tolerances, source):
                           line, "from")
     if explicit:
         stages = _topological(ctx, source, stages)
+    _check_pairs(ctx, source, stages, seen)
+    for st in stages:
+        tol = [k for k in ("r1", "r2", "r3", "r4") if (st.name, k) in tolerances]
+        if getattr(st.model, "reads_differential", False) and st.params.get("match", 0.0) > 0 and tol:
+            raise ctx.err(f"'match' is the worst case of resistors without their own tolerance, but {', '.join(tol)} "
+                          "carry one (a tolerance run draws them): give one or the other",
+                          st.field_lines.get("match", st.line), f"{st.name}.match")
     return stages
+
+
+def _check_pairs(ctx, source, stages, seen) -> None:
+    """A differential source (a bridge) is read only by stages that take a pair (a
+    difference amplifier), and those read only a differential source: the single-ended
+    stages carry one conductor (docs/models.md, "Differential pairs")."""
+    for st in stages:
+        parent = seen[st.parent]
+        pair_in = getattr(st.model, "reads_differential", False)
+        pair_out = getattr(parent.model, "differential", False)
+        line = st.field_lines.get("from", st.line)
+        if pair_out and not pair_in:
+            raise ctx.err(f"'{parent.name}' ({parent.kind}) drives a differential pair; '{st.name}' ({st.kind}) reads "
+                          "one conductor: read the pair with a difference_amplifier", line, st.name)
+        if pair_in and not pair_out:
+            raise ctx.err(f"'{st.name}' ({st.kind}) reads a differential pair; '{parent.name}' ({parent.kind}) drives "
+                          "one conductor: place it right after a bridge source", line, st.name)
 
 
 def _topological(ctx, source, stages):
@@ -248,7 +272,7 @@ def _stage(ctx, node: LDict, rails, tolerances, default_name, is_source=False) -
         raise ctx.err(f"unknown {what} '{kind}'" + hint, node.line_of("kind"), "kind")
     model = REGISTRY[kind]
     if is_source and model.role != "source":
-        raise ctx.err(f"the source must be a sensor (kind sensor or current_sensor), not '{kind}'",
+        raise ctx.err(f"the source must be a sensor (kind sensor, current_sensor or bridge), not '{kind}'",
                       node.line_of("kind"), "kind")
     if not is_source and model.role == "source":
         raise ctx.err("a sensor is the chain's source: describe it under 'source:'", node.line_of("kind"), "kind")

@@ -73,6 +73,10 @@ KINDS: dict[str, Kind] = {k.key: k for k in (
          "gain drop from f_ref to the first frequency the ADC folds into the band"),
     Kind("max_rail_current", "max_rail_current_a", "A", "A", "max", ("rails",),
          "current drawn from each rail (or rails:), engine/power.py"),
+    Kind("min_cmrr", "min_cmrr_db", "dB", "dB", "min", (),
+         "common-mode rejection as connected at every differential interface, engine/commonmode.py"),
+    Kind("max_common_mode_error", "max_common_mode_error_v", "V", "V", "max", (),
+         "output error of the common mode at every differential interface, engine/commonmode.py"),
     # DC accuracy (engine/dcerror.py): limits in V, LSB, % (of full scale; of the gain for
     # max_gain_error) or the sensor unit of accuracy.sensitivity; 'rule: rss' for the RSS total
     Kind("max_offset_error", "max_offset_error", "error", "", "max", ("rule",),
@@ -87,6 +91,7 @@ KINDS: dict[str, Kind] = {k.key: k for k in (
 ERROR_KINDS = {"max_offset_error": "offset", "max_gain_error": "gain", "max_drift": "drift",
                "max_total_error": "total"}
 NOISE_KINDS = ("min_snr", "min_enob")
+COMMON_MODE_KINDS = ("min_cmrr", "max_common_mode_error")     # need a differential interface
 DYNAMICS_KINDS = ("min_phase_margin", "max_peaking", "min_slew_margin", "min_settled_bits", "max_settling_time",
                   "max_startup_time")
 
@@ -206,6 +211,11 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
         from ..engine.aliasing import sampling_adc
         if sampling_adc(chain) is None:
             raise err("min_alias_rejection needs an ADC with 'f_sample' reading the output node", k.key)
+    if k.key in ("min_cmrr", "max_common_mode_error"):
+        if not any(getattr(st.model, "reads_differential", False) for st in chain.stages):
+            raise err(f"{k.key} needs a differential interface (a bridge read by a difference_amplifier)", k.key)
+        if k.key == "max_common_mode_error" and limit < 0:
+            raise err(f"{k.key} cannot be negative", k.key)
     at = _freq(item, "at", err) if "at" in item else None
     band = None
     if k.key == "flatness":
@@ -541,6 +551,18 @@ def _rail_current(v: _Views, r):
     return _worst(rows, names, np.argmax)
 
 
+def _common_mode(v: _Views, r):
+    """The worst differential interface's CMRR (lowest) or common-mode error (largest), per sample."""
+    from ..engine.commonmode import analyse_common_mode
+    res = analyse_common_mode(v.ev.chain, v.ev.params, v.n)
+    if not res:
+        return np.full(v.n, np.inf if r.key == "min_cmrr" else 0.0), None
+    names = [x.amplifier for x in res]
+    if r.key == "min_cmrr":
+        return _worst(np.stack([x.cmrr_db for x in res]), names, np.argmin)
+    return _worst(np.stack([x.error_out_v for x in res]), names, np.argmax)
+
+
 def _dc_error(v: _Views, r):
     """The budget's figure (engine/dcerror.py) in the requirement's unit: the nominal chain's
     worst case (or RSS), the same for every sample of a run."""
@@ -554,7 +576,7 @@ def _dc_error(v: _Views, r):
 _VALUE = {"min_gain": _gain_db, "max_gain": _gain_db, "flatness": _flatness, "min_f_high": _f_high,
           "max_f_low": _f_low, "min_headroom": _headroom, "max_loading_loss": _loading, "min_snr": _snr,
           "min_enob": _enob, "max_buffer_power": _power, "min_alias_rejection": _alias,
-          "max_rail_current": _rail_current,
+          "max_rail_current": _rail_current, "min_cmrr": _common_mode, "max_common_mode_error": _common_mode,
           **{k: _dc_error for k in ERROR_KINDS},
           "min_phase_margin": _phase_margin, "max_peaking": _peaking, "min_slew_margin": _slew,
           "min_settled_bits": _settled_bits, "max_settling_time": _settling_time, "max_startup_time": _startup}
