@@ -21,6 +21,8 @@ COMMANDS = {
     "check": ("chainplan.commands.check", "check the requirements of one or more chains (exit 1 if any fails)"),
     "spread": ("chainplan.commands.spread", "tolerance Monte Carlo: distributions, production yield over the "
                "corners, what drives the spread"),
+    "rare": ("chainplan.commands.rare", "production failure rate at the ppm level: importance sampling "
+             "around the failure regions, the most likely failure point"),
     "temperature": ("chainplan.commands.temperature", "the budget from cold to hot: gain, DC levels, headroom and "
                     "noise at a list of temperatures, with the drift per kelvin"),
     "compare": ("chainplan.commands.compare", "what a change did to the budget: two specs, or one at two git revisions"),

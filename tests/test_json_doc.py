@@ -20,6 +20,7 @@ COMMANDS = {
     "chainplan noise --json": ["noise"],
     "chainplan check --json": ["check"],
     "chainplan spread --json": ["spread", "-n", "40"],
+    "chainplan rare --json": ["rare", "-n", "200", "--explore", "200"],
     "chainplan compare --json": ["compare", "{other}"],
     "chainplan buffers --json": ["buffers"],
     "chainplan buffers --place --json": ["buffers", "--place"],

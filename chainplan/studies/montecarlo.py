@@ -371,20 +371,30 @@ def _chunk(d: Draws, sl: slice, corners: list, f_corner, corner_units: int | Non
             for j, r in enumerate(reqs):
                 cpass[j, :, i] = r.passed
     if others:
-        k = len(others)
         per = corner_units or n        # units per corner call: the memory of one nominal chunk
+        picked = [corners[i] for i in others]
         for a in range(0, n, per):
             b = min(a + per, n)
-            sub = slice(sl.start + a, sl.start + b)
-            try:
-                ev_c = evaluate(d.chain, at_corners(d, sub, [corners[i] for i in others]), f_hz=f_corner, ws=ws)
-                m = b - a
-                cok[a:b, others] = np.broadcast_to(ev_c.valid, (m * k,)).reshape(m, k) & d.valid[sub, None]
-                for j, r in enumerate(evaluate_requirements(ev_c)):
-                    cpass[j][a:b, others] = np.broadcast_to(r.passed, (m * k,)).reshape(m, k)
-            finally:
-                ws.recycle()
+            cpass[:, a:b, others], cok[a:b, others] = corner_passes(
+                d, slice(sl.start + a, sl.start + b), picked, f_corner, ws)
     return (mets, reqs, valid, cpass, cok)
+
+
+def corner_passes(d: Draws, sl: slice, corners: list, f_hz: np.ndarray, ws: Workspace | None = None):
+    """(requirement passes (R, n, C), operating point holds (n, C)) of units ``sl`` at
+    ``corners``, in one engine call on the frequencies ``f_hz`` (requirement_frequencies)."""
+    n, k = sl.stop - sl.start, len(corners)
+    n_req = len(d.chain.extra.get("requirements", []))
+    cpass = np.zeros((n_req, n, k), dtype=bool)
+    try:
+        ev = evaluate(d.chain, at_corners(d, sl, corners), f_hz=f_hz, ws=ws)
+        cok = np.broadcast_to(ev.valid, (n * k,)).reshape(n, k) & d.valid[sl, None]
+        for j, r in enumerate(evaluate_requirements(ev)):
+            cpass[j] = np.broadcast_to(r.passed, (n * k,)).reshape(n, k)
+    finally:
+        if ws is not None:
+            ws.recycle()
+    return cpass, cok
 
 
 def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None,

@@ -260,21 +260,56 @@ def draw(chain: Chain, samples: int, seed: int) -> Draws:
                               _physical(stage.model.FIELDS.get(fld)))
         rejected |= bad
         d.inputs[name] = d.assign[(st, fld)] = v
+    _assemble(d, lambda name, dist: unit_draw(dist, _stream(seed, name), samples))
+    d.valid &= ~rejected
+    return d
+
+
+def sources(chain: Chain) -> list[tuple[str, str]]:
+    """(name, distribution) of every independent draw that makes a unit, in drawing order:
+    the part tolerances, the tempco spreads (one per tracking group), the rail tolerances."""
+    out = [(f"{st}.{fld}", tol.dist) for (st, fld), tol in chain.extra.get("tolerances", {}).items()]
+    for stage in chain.all_stages:
+        for fld, tc in (stage.raw.get("__tempco__") or {}).items():
+            name = f"tracks.{tc.group}" if tc.group else f"{stage.name}.{fld}.tc"
+            if tc.spread and (name, "uniform") not in out:
+                out.append((name, "uniform"))
+    return out + [(f"rails.{rail}", tol.dist) for rail, tol in chain.extra.get("rail_tolerances", {}).items()]
+
+
+def draw_from_units(chain: Chain, units: dict, n: int | None = None) -> Draws:
+    """The units whose draws are given, each source's values in units of its tolerance's width
+    (as :func:`unit_draw` makes them; ``sources(chain)`` names them).  Nothing is drawn
+    again: a value outside its field's physical range rejects its unit.  ``n``: the number
+    of units (needed when nothing is varied)."""
+    n = n if n is not None else len(next(iter(units.values())))
+    d = Draws(chain, n)
+    for (st, fld), tol in chain.extra.get("tolerances", {}).items():
+        name = f"{st}.{fld}"
+        d.inputs[name] = d.assign[(st, fld)] = spread(chain.stage(st).params[fld], tol, units[name])
+    _assemble(d, lambda name, dist: units[name])
+    return d
+
+
+def _assemble(d: Draws, unit_of) -> None:
+    """The tempco spreads and rail tolerances of ``d`` from ``unit_of(name, dist)`` (values in
+    units of the limit), the rails to every field naming them, then the physical limits."""
+    chain = d.chain
+    drawn = {}
     for stage in chain.all_stages:
         for fld, tc in (stage.raw.get("__tempco__") or {}).items():
             if tc.spread:
                 name = f"tracks.{tc.group}" if tc.group else f"{stage.name}.{fld}.tc"
-                u = _stream(seed, name).uniform(-1.0, 1.0, samples)    # one stream per group: shared draws
+                if name not in drawn:                # one draw per tracking group: shared
+                    drawn[name] = unit_of(name, "uniform")
+                u = drawn[name]
                 d.inputs[name] = u if tc.group else abs(tc.value) * u
                 d.assign[(stage.name, f"{fld}@tc")] = abs(tc.value) * u
     rails = {}
     for rail, tol in chain.extra.get("rail_tolerances", {}).items():
         name = f"rails.{rail}"
-        rails[rail] = d.inputs[name] = spread(chain.rails[rail], tol,
-                                              unit_draw(tol.dist, _stream(seed, name), samples))
+        rails[rail] = d.inputs[name] = spread(chain.rails[rail], tol, unit_of(name, tol.dist))
     _apply_shared(d, rails, None)
-    d.valid &= ~rejected
-    return d
 
 
 def at_corners(d: Draws, sl: slice, corners: list[Corner]) -> dict:
