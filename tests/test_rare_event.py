@@ -114,3 +114,18 @@ def test_cli_table_json_and_gate(cli, tmp_path):
     assert code == 0 and "met" in out
     code, out, err = cli("rare", str(path), "--max-failure", "ten")
     assert code == 2 and "not a failure rate" in err and "Traceback" not in err
+
+
+def test_geophone_demo_at_parts_per_million():
+    """The demo's ±0.024 dB gain window: every unit of 20 000 brute-force draws passes, the
+    importance-sampling estimate is a few ppm with a resolved interval (30 or more failing
+    samples), and the failure point puts the gain and filter parts near their limits."""
+    from chainplan.spec.loader import load_chain
+    from conftest import REPO
+    chain = load_chain(REPO / "chains" / "geophone_production.yaml")
+    res = estimate(chain, samples=20000, explore=2000, seed=1)
+    lo, hi = res.interval
+    assert 1e-6 < lo < res.p_fail < hi < 1e-4 and res.failures >= 30
+    moved = {name for name, z, u, x, x0 in res.point[:4]}
+    assert moved == {"gain.r_f", "gain.r_g", "antialias.r", "antialias.c"}
+    assert all(abs(u) > 0.5 for name, z, u, x, x0 in res.point[:4])      # beyond half their limits

@@ -35,7 +35,9 @@ def rare_tables(res: RareResult, console, gate=None) -> None:
     c = res.chain
     chain_heading(c, console)
     n_c = len(res.corners)
-    console.print(f"{res.samples} weighted units after {res.explored} exploring ones, seed {res.seed}; "
+    run = (f"{res.samples} weighted units after {res.explored} exploring ones" if res.regions
+           else f"{res.explored} exploring units")
+    console.print(f"{run}, seed {res.seed}; "
                   f"{len(res.names)} varied input{'s' * (len(res.names) != 1)}; each unit at {n_c} operating "
                   f"corner{'s' * (n_c != 1)}")
     for note in res.notes:

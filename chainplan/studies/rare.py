@@ -17,15 +17,21 @@ memory), in three steps:
    is ``u = z/3`` with z restricted to |z| < 3, a ``σ`` one is ``u = z``.  The
    density of a unit is then ``p(z) = Π φ(z_i)`` (times 1/(1 − 2Φ(−3)) per
    truncated coordinate, zero beyond).
-2. **Exploration** (scaled-sigma sampling: z ~ N(0, s²·I), s = 3, then 4.5 and 6
-   while no unit fails): for every requirement that some unit fails, the failing
-   unit nearest the nominal (smallest |z|), then the failure boundary along the
-   ray from the nominal to it (a grid of 32 points, refined by 16).  The nearest
-   boundary point over all requirements is the **most likely failure point**
-   found (its |z| is the reliability index β: a one-sided normal tail Φ(−β)).
-3. **Importance sampling** from ``q(z) = λ·p(z) + (1 − λ)/K·Σ_k φ(z − μ_k)``,
-   one unit-variance normal centred on each boundary point μ_k, λ = 0.1.  Each
-   unit is weighted ``w = p(z)/q(z) ≤ 1/λ``; the failure probability among the
+2. **Exploration** (scaled-sigma sampling: z ~ N(0, s²·I), the truncated coordinates
+   kept inside their limit; s = 6 first — nothing failing there ends the run — then
+   s = 3, else 4.5, the narrowest scale that finds failing units): a normal
+   distribution is fitted to the failing units of each way of failing (each
+   requirement, and the operating point) with their weights p/q — the
+   cross-entropy update of a normal family (Rubinstein and Kroese, *The
+   Cross-Entropy Method*, Springer 2004, from memory) — its covariance widened
+   by INFLATE, then refitted once on draws from the mixture.  Along the ray from
+   the nominal to the nearest failing unit of each way of failing, the boundary
+   is found on a grid (32 points, refined by 16): the nearest boundary point
+   is the **most likely failure point** found (its |z| is the reliability index
+   β: a one-sided normal tail Φ(−β) where the boundary is a plane).
+3. **Importance sampling** from ``q(z) = λ·p(z) + (1 − λ)/K·Σ_k N_k(z)``, the
+   fitted normals and the units' own distribution, λ = 0.1.  Each unit is
+   weighted ``w = p(z)/q(z) ≤ 1/λ``; the failure probability among the
    accepted units is the ratio ``Σ w·fail / Σ w·accepted``, its standard error
    from the delta method, and its 95 % interval the normal one (±1.96 σ), which
    needs enough failing samples (a warning below MIN_FAILURES).  The equivalent
@@ -54,12 +60,16 @@ from ..engine.budget import frequency_grid
 from .montecarlo import MAX_WORKERS, Z95, _workspace, chunk_size, corner_passes, requirement_frequencies
 from .tolerances import corner_points, draw_from_units, sources
 
-#: scale factors of the exploration draws, tried in turn while no unit fails
-EXPLORE_SCALES = (3.0, 4.5, 6.0)
+#: scale factors of the exploration draws: the widest first (nothing fails there: no estimate
+#: is needed, one round spent), then the narrowest that finds failing units (its weights
+#: locate the regions best)
+EXPLORE_SCALES = (6.0, 3.0, 4.5)
 #: weight of the unit's own distribution in the sampling mixture (defensive part)
 DEFENSIVE = 0.1
 #: points of the coarse and the refining grid along each ray to a failing unit
 RAY_POINTS = (32, 16)
+#: a failure rate above this is not a rare event (the note says so)
+NOT_RARE = 1e-2
 #: failing importance samples below which the normal interval is flagged as rough
 MIN_FAILURES = 30
 #: truncation of a 'normal' tolerance, in σ of its latent coordinate (the 3σ limit)
@@ -248,7 +258,7 @@ def estimate(chain: Chain, samples: int = 20000, explore: int = 4000, seed: int 
         comps, seen = _explore(ev, rng, trunc, explore, res)
         if not comps:
             res.p_fail, res.std_err, res.explored = 0.0, 0.0, ev.count
-            res.notes.append(f"no unit failed in {ev.count} draws scaled up to {EXPLORE_SCALES[-1]:g}σ: the "
+            res.notes.append(f"no unit failed in {ev.count} draws scaled up to {max(EXPLORE_SCALES):g}σ: the "
                              "failure probability is below what this run resolves (no estimate)")
             return res
         res.regions = _boundaries(ev, seen)
@@ -259,6 +269,9 @@ def estimate(chain: Chain, samples: int = 20000, explore: int = 4000, seed: int 
     res.p_fail, res.std_err = _ratio(w, fail, acc)
     res.requirements = [(name, *_ratio(w, f, acc)) for name, f in every.items()
                         if name != "operating point" or f.any()]
+    if res.p_fail > NOT_RARE and res.method != "plain Monte Carlo":
+        res.notes.append(f"failures are not rare here ({100 * res.p_fail:.3g} %): plain Monte Carlo "
+                         "(`chainplan spread`) measures this as precisely, with the distributions")
     if res.failures < MIN_FAILURES:
         res.notes.append(f"only {res.failures} failing units among the {samples} weighted ones: the interval "
                          f"is rough (the normal approximation wants {MIN_FAILURES} or more); raise -n")
@@ -274,20 +287,23 @@ def estimate(chain: Chain, samples: int = 20000, explore: int = 4000, seed: int 
 
 
 def _explore(ev, rng, trunc, n, res):
-    """Scaled draws (s = 3, 4.5, 6) until some unit fails; a normal component fitted to each
+    """Scaled draws (EXPLORE_SCALES) until some unit fails; a normal component fitted to each
     way of failing (requirement or operating point), refitted once on draws from the
     mixture.  Returns (components, {what: nearest failing unit seen})."""
     dim = len(trunc)
+    found = None
     for scale in EXPLORE_SCALES:
-        z = scale * rng.standard_normal((n, dim))
-        lq = -0.5 * np.einsum("ij,ij->i", z, z) / scale ** 2 - 0.5 * dim * math.log(2 * math.pi * scale ** 2)
+        z, lq = _scaled(rng, trunc, scale, n)
         w = _weights(log_density(z, trunc), lq)
         _, every, _ = ev(z)
         if any((f & (w > 0)).any() for f in every.values()):
-            res.scale = scale
-            break
-    else:
-        return [], {}
+            found = (scale, z, w, every)
+            if scale != max(EXPLORE_SCALES):
+                break
+        elif found is None:
+            return [], {}                  # nothing fails even at the widest scale
+    scale, z, w, every = found
+    res.scale = scale
     sets = [(z, w / n, every)]
     comps = _fit(sets)
     z2, w2, (_, every2, _) = _mixture_run(ev, rng, trunc, list(comps.values()), n)
@@ -302,6 +318,20 @@ def _explore(ev, rng, trunc, n, res):
                 if what not in seen or zz[j] @ zz[j] < seen[what] @ seen[what]:
                     seen[what] = zz[j]
     return list(comps.values()), seen
+
+
+def _scaled(rng, trunc, scale: float, n: int):
+    """``n`` draws of N(0, s²·I), the truncated coordinates kept inside |z| < 3 (drawn again),
+    and the log of their density."""
+    dim = len(trunc)
+    z = scale * rng.standard_normal((n, dim))
+    for j in np.nonzero(trunc)[0]:
+        bad = np.abs(z[:, j]) >= TRUNC
+        while bad.any():
+            z[bad, j] = scale * rng.standard_normal(int(bad.sum()))
+            bad = np.abs(z[:, j]) >= TRUNC
+    lq = -0.5 * np.einsum("ij,ij->i", z, z) / scale ** 2 - 0.5 * dim * math.log(2 * math.pi * scale ** 2)
+    return z, lq - int(trunc.sum()) * math.log(math.erf(TRUNC / (scale * math.sqrt(2))))
 
 
 def _fit(sets) -> dict:
