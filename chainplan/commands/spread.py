@@ -18,6 +18,11 @@ def add_arguments(p):
                    "requirement's variance (default: the requirement with the lowest yield, else gain_db)")
     p.add_argument("--min-yield", metavar="PERCENT", help="exit 1 unless the production yield is at least this "
                    "with 95 %% confidence (the Wilson interval's lower bound decides), e.g. '99 %%'")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run the chunks on dask.distributed: 'local' starts a "
+                   "local cluster for the run, else the address of a running scheduler, e.g. tcp://10.0.0.5:8786 "
+                   "(needs pip install -e '.[cluster]'); the same seed gives the same numbers either way")
+    p.add_argument("--workers", type=int, metavar="N", help="worker processes of --scheduler local "
+                   "(default: one per core)")
     add_analysis_options(p)
 
 
@@ -40,8 +45,15 @@ def run(args) -> int:
     nominal = evaluate(chain)
     check_operating_points(chain, nominal.dc)
     _check_rank(chain, args.rank)
-    with _Progress(args.samples) as tick:
-        res = run_mc(chain, args.samples, args.seed, progress=tick, key=args.rank)
+    if args.workers is not None and not (1 <= args.workers <= 1024 and args.scheduler == "local"):
+        raise UsageError("--workers goes with --scheduler local and is a whole number from 1 to 1024")
+    if args.scheduler is not None:
+        from ..studies.cluster import connect
+        with connect(args.scheduler, args.workers) as client, _Progress(args.samples) as tick:
+            res = run_mc(chain, args.samples, args.seed, progress=tick, key=args.rank, client=client)
+    else:
+        with _Progress(args.samples) as tick:
+            res = run_mc(chain, args.samples, args.seed, progress=tick, key=args.rank)
     from ..studies.montecarlo import nominal_unit_at_corners
     corners = nominal_unit_at_corners(chain, res.corners)
     gate = None

@@ -97,12 +97,24 @@ def sine_integral_step(f_hz, h, h0, w1, t):
     return np.where(t[None, :] > 0, s, 0.0)
 
 
+def _time_scale(ev, node: str) -> tuple[float, float]:
+    """(f_low, f_high) that set the time window and the frequency grid: the band edges of
+    the chain as specified (nominal parts, its own temperature), so that every sample of a
+    tolerance run is integrated on the same grid whatever the other samples of its chunk
+    (a sample's settling time must not depend on the chunk size or the workers)."""
+    if any(np.ndim(v) for p in ev.params.values() for v in p.values()):   # drawn or swept values
+        from .budget import evaluate
+        ev = evaluate(ev.chain, f_hz=ev.f_hz)
+    lo_e, hi_e = (np.ravel(x) for x in ev.band_edges(node))
+    f_hi = float(hi_e[0]) if np.isfinite(hi_e[0]) else np.nan
+    f_lo = float(lo_e[0]) if np.isfinite(lo_e[0]) else np.nan
+    return f_lo, f_hi
+
+
 def analyse_step(ev, node: str | None = None, error: float = DEFAULT_ERROR) -> StepResult | None:
     chain = ev.chain
     node = node or ev.output
-    lo_e, hi_e = ev.band_edges(node)
-    f_hi = float(np.nanmedian(hi_e)) if np.any(np.isfinite(hi_e)) else np.nan
-    f_lo = float(np.nanmedian(lo_e)) if np.any(np.isfinite(lo_e)) else np.nan
+    f_lo, f_hi = _time_scale(ev, node)
     if not np.isfinite(f_hi):
         return None                     # no upper edge in the span: nothing sets the time scale
     lo, hi = step_range(f_hi, f_lo)

@@ -279,11 +279,13 @@ def chunk_size(chain: Chain) -> int:
 
 
 def run(chain: Chain, samples: int, seed: int = 1, chunk: int | None = None, progress=None,
-        key: str | None = None, workers: int | None = None) -> McResult:
+        key: str | None = None, workers: int | None = None, client=None) -> McResult:
     """Monte Carlo over every tolerance and corner of ``chain``.  ``progress(done, total)``
     is called after each chunk; ``key`` names the metric or requirement to rank inputs for
-    (default: the requirement with the lowest yield, else the gain)."""
-    return run_draws(draw(chain, samples, seed), seed, chunk, progress, key, workers, corners=corner_points(chain))
+    (default: the requirement with the lowest yield, else the gain); ``client``: a dask
+    client to run the chunks on (chainplan.studies.cluster), else threads in this process."""
+    return run_draws(draw(chain, samples, seed), seed, chunk, progress, key, workers, corners=corner_points(chain),
+                     client=client)
 
 
 _local = threading.local()
@@ -397,8 +399,13 @@ def corner_passes(d: Draws, sl: slice, corners: list, f_hz: np.ndarray, ws: Work
     return cpass, cok
 
 
+def _remote_chunk(part: Draws, corners: list, f_corner, corner_units):
+    """One chunk on a cluster worker: ``part`` holds just the chunk's draws."""
+    return _chunk(part, slice(0, part.n), corners, f_corner, corner_units)
+
+
 def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, key: str | None = None,
-              workers: int | None = None, corners: list | None = None) -> McResult:
+              workers: int | None = None, corners: list | None = None, client=None) -> McResult:
     """Evaluate prepared draws (a Monte Carlo set or the corner combinations) in chunks.
     Chunks run on ``workers`` threads (default: one per core, at most 4): numpy releases
     the interpreter lock in its array arithmetic, and results are collected in order,
@@ -416,8 +423,14 @@ def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, 
     slices = [slice(i, min(i + chunk, d.n)) for i in range(0, d.n, chunk)]
     workers = min(workers or os.cpu_count() or 1, MAX_WORKERS, max(len(slices), 1))
     parts_m, parts_r, parts_v, parts_cp, parts_ck = [], [], [], [], []
+    if client is not None:
+        from .cluster import map_in_order
+        results = map_in_order(client, _remote_chunk, [d.take(sl) for sl in slices], corners=corners,
+                               f_corner=f_corner, corner_units=corner_units)
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        for sl, (m, r, v, cp, ck) in zip(slices, pool.map(lambda sl: _chunk(d, sl, corners, f_corner, corner_units), slices)):
+        if client is None:
+            results = pool.map(lambda sl: _chunk(d, sl, corners, f_corner, corner_units), slices)
+        for sl, (m, r, v, cp, ck) in zip(slices, results):
             parts_m.append(m)
             parts_r.append(r)
             parts_v.append(v)

@@ -147,6 +147,11 @@ class Draws:
     valid: np.ndarray | None = None
     labels: list | None = None         # corner runs: a label per sample
 
+    def take(self, sl: slice) -> "Draws":
+        """The units ``sl`` alone (what a cluster worker needs of them; no ``inputs``)."""
+        return Draws(self.chain, sl.stop - sl.start, assign={k: v[sl] for k, v in self.assign.items()},
+                     valid=self.valid[sl])
+
     def params(self, sl: slice = slice(None)) -> dict:
         """Per-stage parameter dicts for samples ``sl``; varied values are ``(n, 1)`` arrays."""
         p = nominal_params(self.chain)
