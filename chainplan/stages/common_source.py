@@ -15,11 +15,11 @@ from ..devices import mosfet
 from ..devices.solve import bisect
 from .device_fields import MOSFET_ONE_OF, mosfet_fields
 from .base import Field, Op, StageKind, dc_source, inv, unilateral
-from .noise_sources import (NoiseSource, density, mosfet_channel_psd, mosfet_flicker_reference, mosfet_noise_fields,
-                            mosfet_noise_problems, sink_noise_field, thermal_i, thermal_v)
+from .noise_sources import (MosfetNoiseChecks, NoiseSource, density, mosfet_channel_psd, mosfet_noise_fields,
+                            sink_noise_field, thermal_i, thermal_v)
 
 
-class CommonSource(StageKind):
+class CommonSource(MosfetNoiseChecks, StageKind):
     kind, title = "common_source", "MOSFET common-source stage (NMOS)"
     FIELDS = {
         **mosfet_fields(),
@@ -32,15 +32,6 @@ class CommonSource(StageKind):
         **sink_noise_field("i_load", "current-source load"),
     }
     ONE_OF = (MOSFET_ONE_OF, ("r_d", "i_load"))
-
-    def spec_problems(self, p):
-        return mosfet_noise_problems(p)
-
-    def wants_reference(self, p):
-        return bool(mosfet_flicker_reference(p, None, probe=True))
-
-    def nominal_reference(self, p, op):
-        return mosfet_flicker_reference(p, op)
 
     def _supply(self, p):
         if p.get("r_d") is not None:

@@ -201,3 +201,18 @@ def follower_low_side_noise(p, s, temp_k, r_field: str) -> NoiseSource:
     if p.get("i_bias") is not None:
         return NoiseSource("i_bias noise", density(p["i_bias_noise"], s, 0.0), out_i=1.0)
     return NoiseSource(f"{r_field} thermal", thermal_i(p[r_field], temp_k), out_i=1.0)
+
+
+class MosfetNoiseChecks:
+    """What every MOSFET stage kind says about its flicker-noise fields: the spec checks
+    (mosfet_noise_problems) and the nominal operating point a ``flicker_corner`` is
+    defined at (mosfet_flicker_reference).  Mixed in before StageKind."""
+
+    def spec_problems(self, p):
+        return mosfet_noise_problems(p)
+
+    def wants_reference(self, p):
+        return bool(mosfet_flicker_reference(p, None, probe=True))
+
+    def nominal_reference(self, p, op):
+        return mosfet_flicker_reference(p, op)

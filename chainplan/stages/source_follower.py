@@ -16,11 +16,11 @@ from ..devices import mosfet
 from .device_fields import MOSFET_ONE_OF, mosfet_fields
 from .base import DcLoad, Field, Op, StageKind, dc_source, follower, inv
 from .dc_sources import doubled, doubling_field, limit
-from .noise_sources import (NoiseSource, follower_low_side_noise, mosfet_channel_psd, mosfet_flicker_reference,
-                            mosfet_noise_fields, mosfet_noise_problems, sink_noise_field)
+from .noise_sources import (MosfetNoiseChecks, NoiseSource, follower_low_side_noise, mosfet_channel_psd,
+                            mosfet_noise_fields, sink_noise_field)
 
 
-class SourceFollower(StageKind):
+class SourceFollower(MosfetNoiseChecks, StageKind):
     kind, title, follower_type = "source_follower", "MOSFET source follower (NMOS)", True
     FIELDS = {
         **mosfet_fields(),
@@ -37,15 +37,6 @@ class SourceFollower(StageKind):
         **doubling_field("gate"),
     }
     ONE_OF = (MOSFET_ONE_OF, ("i_bias", "r_s"))
-
-    def spec_problems(self, p):
-        return mosfet_noise_problems(p)
-
-    def wants_reference(self, p):
-        return bool(mosfet_flicker_reference(p, None, probe=True))
-
-    def nominal_reference(self, p, op):
-        return mosfet_flicker_reference(p, op)
 
     def _bias(self, p):
         """(bias current at vs, resistance from source to v_low) for either bias choice."""
