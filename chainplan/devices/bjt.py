@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .solve import bisect
+from .solve import newton_bracketed
 from ..constants import K_BOLTZMANN, Q_ELECTRON
 
 
@@ -61,15 +61,31 @@ def small_signal(i_c, i_b, va, vcb, vt):
 
 def solve_emitter(p, v_b, v_c, i_out, vt):
     """Emitter voltage with IE(VE) = IC + IB = i_out(VE); IE falls as VE rises.
-    Returns VE, IC, IB."""
+    Returns VE, IC, IB.
+
+    Solved by safeguarded Newton (``solve.newton_bracketed``) over the bracket 50 V below
+    min(VB, VC) to VB, from the diode-law guess VE = VB − VT·ln(i_out/(IS·(1 + VCB/VA)·(1 + 1/β)))
+    with i_out taken at VB − 0.65 V (Sedra & Smith, the exponential IC(VBE) inverted, from
+    memory); dIE/dVE = −IE/VT where the exponential is not clipped.  ``i_out`` is affine in VE
+    for every caller (a bias sink, a resistor and a Norton load), so its slope is the difference
+    i_out(VE + 1 V) − i_out(VE)."""
+    i_s, va, beta = p["i_s"], p["va"], p["beta"]
+    early = 1.0 + (v_c - v_b) / va
+
     def currents(ve):
-        return (collector_current(p["i_s"], v_b - ve, v_c - v_b, p["va"], vt),
-                base_current(p["i_s"], v_b - ve, p["beta"], vt))
+        e = np.exp(np.minimum((v_b - ve) / vt, 200.0))
+        return i_s * e * early, i_s / beta * e
 
     def mismatch(ve):
         ic, ib = currents(ve)
-        return ic + ib - i_out(ve)
-    ve = bisect(mismatch, np.minimum(v_b, v_c) - 50.0, v_b + 0.0)
+        ie = ic + ib
+        unclipped = (v_b - ve) / vt < 200.0
+        i_load = i_out(ve)
+        slope = np.where(unclipped, -ie / vt, 0.0) - (i_out(ve + 1.0) - i_load)
+        return ie - i_load, slope
+
+    with np.errstate(all="ignore"):
+        v0 = v_b - 0.65
+        guess = v_b - vt * np.log(i_out(v0) / (i_s * early * (1.0 + 1.0 / beta)))
+    ve = newton_bracketed(mismatch, np.minimum(v_b, v_c) - 50.0, v_b + 0.0, guess)
     return (ve, *currents(ve))
-
-

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .solve import bisect
+from .solve import newton_bracketed
 from ..constants import K_BOLTZMANN, Q_ELECTRON
 
 #: nominal temperature the parameters are stated at when nothing says otherwise (the chain default, 300 K;
@@ -97,14 +97,36 @@ def small_signal(i_d, vov, vds, lam, gamma, phi, vsb):
 def solve_source(p, v_g, v_d, v_bulk, i_out):
     """Source voltage of a follower: find VS with Id(VS) = i_out(VS), where
     i_out is the current the source node must deliver (bias plus load), an
-    increasing function of VS, and Id falls as VS rises.  Vectorised bisection
-    over a bracket 50 V below and 20 V above the gate; returns VS and Id."""
+    increasing function of VS, and Id falls as VS rises.  Returns VS, Id, Vov, Vth, VSB.
+
+    Safeguarded Newton (``solve.newton_bracketed``) over a bracket 50 V below and 20 V above the
+    gate, from the square-law guess VS = VG − Vth0 − √(2·i_out/(k'·W/L)) with i_out taken at
+    VG − Vth0 (Sedra & Smith, saturation law inverted, from memory), body effect left to Newton.
+    Slope: dId/dVS = −k'(W/L)·Vov·(1 + λVDS)·(1 + dVth/dVS) − ½k'(W/L)·Vov²·λ, with
+    dVth/dVS = γ/(2√(2φF + VSB)) (the body-effect law differentiated); ``i_out`` is affine in VS
+    for every caller (a bias sink and a Norton load), so its slope is i_out(VS + 1 V) − i_out(VS)."""
+    kp, wl, lam, gamma, phi, vth0 = p["kp"], aspect(p), p["lambda"], p["gamma"], p["phi"], p["vth0"]
+    beta = kp * wl
+
     def mismatch(vs):
         vsb = vs - v_bulk if v_bulk is not None else 0.0
-        vth = threshold(p["vth0"], p["gamma"], p["phi"], vsb)
-        i_d = drain_current(p["kp"], aspect(p), v_g - vs - vth, v_d - vs, p["lambda"])
-        return i_d - i_out(vs)
-    vs = bisect(mismatch, np.minimum(v_g, v_d) - 50.0, v_g + 20.0)
+        vth = threshold(vth0, gamma, phi, vsb)
+        vov = v_g - vs - vth
+        i_d = drain_current(kp, wl, vov, v_d - vs, lam)
+        if v_bulk is not None:
+            dvth = np.where(vsb > -0.99 * phi, gamma / (2.0 * np.sqrt(phi + np.maximum(vsb, -0.99 * phi))), 0.0)
+        else:
+            dvth = 0.0
+        on = np.maximum(vov, 0.0)
+        d_id = -beta * on * (1.0 + lam * (v_d - vs)) * (1.0 + dvth) - 0.5 * beta * on * on * lam
+        i_load = i_out(vs)
+        return i_d - i_load, d_id - (i_out(vs + 1.0) - i_load)
+
+    with np.errstate(all="ignore"):
+        v0 = v_g - vth0
+        guess = v0 - np.sqrt(2.0 * i_out(v0) / beta)
+        guess = np.where(np.isfinite(guess), guess, v0)
+    vs = newton_bracketed(mismatch, np.minimum(v_g, v_d) - 50.0, v_g + 20.0, guess)
     vsb = vs - v_bulk if v_bulk is not None else 0.0 * vs
     vth = threshold(p["vth0"], p["gamma"], p["phi"], vsb)
     vov = v_g - vs - vth
