@@ -169,7 +169,8 @@ def test_corners_block_parses_and_rejects_nonsense():
     base = "name: t\nrails: {vdd: 3 V}\nsource: {kind: sensor, amplitude: 1 V}\nstages: [{name: l, kind: load}]\n"
     c = chain_from(base + "corners: {temperature: 25 °C ±25 °C}\n")
     assert c.extra["corners"].temp_k == pytest.approx((273.15, 323.15))
-    assert [k.label for k in corner_points(c)] == ["27 °C", "0 °C", "50 °C"]     # the nominal first
+    # the nominal first: the default 300 K is 26.85 °C (t/°C = T/K − 273.15), not "27 °C"
+    assert [k.label for k in corner_points(c)] == ["26.85 °C", "0 °C", "50 °C"]
     for text, msg in (("corners: {supply: 5 V}", "percentage"), ("corners: {temperature: [50 °C, 0 °C]}", "low"),
                       ("corners: {supply: ±5 %, rails: [vcc]}", "not a declared rail"),
                       ("corners: {heat: 1}", "unknown key")):

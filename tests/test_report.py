@@ -80,6 +80,12 @@ def test_report_is_well_formed_and_self_contained(ecg_report):
     assert doc.tags.count("svg") == 5                   # levels, gain, dynamics (loop gain, step), noise, Monte Carlo
 
 
+def test_report_shows_the_temperature_as_written(ecg_report):
+    # the ECG spec says 'temperature: 34 °C': 307.15 K (t/°C = T/K − 273.15), not "307 K"
+    _, text = ecg_report
+    assert "temperature 34 °C (307.15 K)" in text
+
+
 def test_caution_comes_first_and_last(ecg_report):
     b, text = ecg_report
     note = safety_notice(b.chain.hazards)

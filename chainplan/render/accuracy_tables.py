@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 
+from ..spec.numbers import celsius
 from .console import eng, table_box
 from .tables import chain_heading
 
@@ -36,7 +37,7 @@ def accuracy_tables(r, console, reqs=()) -> None:
     bx = table_box(console)
     chain_heading(r.chain, console)
     rng = r.temp_range_k
-    span = (f"drift over {rng[0] - 273.15:.0f} to {rng[1] - 273.15:.0f} °C" if rng else "no drift range")
+    span = (f"drift over {celsius(rng[0]).removesuffix(' °C')} to {celsius(rng[1])}" if rng else "no drift range")
     console.print(f"DC error at '{r.output}'" + (f", converter '{r.converter}'" if r.converter else "") +
                   f"; initial at 25 °C, {span}; {CAL_WORDS[r.calibration]}")
     console.print(f"DC gain {r.gain_dc:.4g} V/{r.signal_unit}; gain errors at ±{eng(r.amplitude, r.signal_unit)} "

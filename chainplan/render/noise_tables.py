@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from ..spec.numbers import figure, figures
+from ..spec.numbers import figure, figures, temperature
 from .console import eng
 from .layout import Col, print_table
 from .tables import chain_heading
@@ -25,7 +25,7 @@ def noise_tables(chain, r, freqs, dens, gain, gens, console, measurand: dict | N
     chain_heading(chain, console)
     lo, hi = r.band_hz
     console.print(f"noise at '{r.output}'" + (f", converter '{r.converter}'" if r.converter else "") +
-                  f"; integrated over {eng(lo, 'Hz')} to {eng(hi, 'Hz')} at {eng(chain.temp_k, 'K')}")
+                  f"; integrated over {eng(lo, 'Hz')} to {eng(hi, 'Hz')} at {temperature(chain.temp_k, chain.temp_text)}")
 
     unit = chain.source.model.signal_unit      # input referral: to the sensor's EMF (V) or current (A)
     where, ins = [], []

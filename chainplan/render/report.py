@@ -21,7 +21,7 @@ import math
 
 from ..version import __version__
 from ..engine.budget import Budget
-from ..spec.numbers import loss
+from ..spec.numbers import loss, temperature
 from .console import db, end_gain, eng, interface_cell, stage_gain
 from ..spec.safety import safety_notice
 from .tables import _converter, _lim, _set_by
@@ -76,7 +76,7 @@ def report_html(b: Budget, noise=None, mc=None, figures: dict | None = None) -> 
         out.append(f'<div class="caution" id="safety">{_e(note)}</div>')
     out.append(f"<h1>{_e(c.name)}</h1>")
     out.append(f'<p class="meta">chainplan {_e(__version__)} · spec {_e(c.path or "—")} · '
-               f"temperature {_e(eng(c.temp_k, 'K'))} · reference frequency {_e(f_ref)}</p>")
+               f"temperature {_e(temperature(c.temp_k, c.temp_text))} · reference frequency {_e(f_ref)}</p>")
     if c.description:
         out.append(f'<div class="desc">{_e(c.description.strip())}</div>')
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 import math
 
 from ..spec.safety import safety_notice
+from ..spec.numbers import celsius
 from ..spec.units import fmt
 from ..studies.requirements import show
 from ..studies.tempsweep import Sweep
@@ -12,7 +13,7 @@ from .tables import chain_heading
 
 
 def _t(t_k: float) -> str:
-    return f"{t_k - 273.15:.4g} °C".replace("-", "−")
+    return celsius(t_k)
 
 
 def _drift(x: float, unit: str) -> str:

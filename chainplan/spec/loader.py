@@ -106,7 +106,7 @@ def build_chain(doc, path: str) -> Chain:
     stages = _stages(ctx, doc, rails, tolerances, source)
     chain = Chain(name=name, description=description, source=source, stages=stages,
                   rails={k: v for k, v in rails.items()}, temp_k=temp_k, t_nom_k=t_nom_k, hazards=hazards,
-                  path=path)
+                  path=path, temp_text=_written(doc.get("temperature")), t_nom_text=_written(doc.get("t_nom")))
     chain.analysis = _analysis(ctx, doc, chain)
     _check_work(ctx, doc, chain)
     chain.extra["tolerances"] = tolerances
@@ -126,6 +126,11 @@ def _text(ctx, node, key):
     if not isinstance(v, str) or not v.strip():
         raise ctx.err(f"'{key}' must be text", node.line_of(key), key)
     return v.strip()
+
+
+def _written(raw) -> str | None:
+    """A value as its author wrote it (for the screens), or None when absent."""
+    return None if raw is None else str(raw).strip()
 
 
 def _number(ctx, node, key, unit, default):

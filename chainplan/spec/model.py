@@ -59,6 +59,8 @@ class Chain:
     rails: dict[str, float]
     temp_k: float = 300.0
     t_nom_k: float = 300.0             # temperature the parts' values are stated at (SPICE TNOM)
+    temp_text: str | None = None       # 'temperature:' as written ('27 °C'), for the screens
+    t_nom_text: str | None = None      # 't_nom:' as written
     analysis: Analysis = field(default_factory=Analysis)
     hazards: list[str] = field(default_factory=list)
     path: str | None = None

@@ -163,3 +163,25 @@ def loss(x, decimals: int = 3) -> str:
     if abs(x) < 0.5 * 10 ** -decimals:
         return f"< {10 ** -decimals:.{decimals}f} dB" if x > 0 else "0 dB"
     return figure(x, "dB", signed=False, decimals=decimals)
+
+
+def _plain(x: float) -> str:
+    """A temperature's number with the digits it has (6 significant, trailing zeros dropped)."""
+    return f"{round(x, 6):.6g}".replace("-", MINUS)
+
+
+def celsius(t_k) -> str:
+    """A temperature in kelvin written in degrees Celsius with all its digits: 300 K is
+    '26.85 °C', 308.15 K '35 °C' (0 °C = 273.15 K exactly, SI brochure)."""
+    return f"{_plain(float(t_k) - 273.15)} °C"
+
+
+def temperature(t_k, written: str | None = None) -> str:
+    """A spec's temperature as its author wrote it: in degrees Celsius, '27 °C (300.15 K)'
+    (the kelvin the physics uses beside it); in kelvin, or not written, '300 K'."""
+    from .units import _CELSIUS_SYMBOLS
+    t_k = float(t_k)
+    if isinstance(written, str) and any(written.strip().endswith(c) for c in _CELSIUS_SYMBOLS):
+        return f"{celsius(t_k)} ({_plain(t_k)} K)"
+    return f"{_plain(t_k)} K"
+

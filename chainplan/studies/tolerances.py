@@ -48,6 +48,7 @@ import numpy as np
 from ..engine.budget import nominal_params
 from ..errors import SpecError, nearest
 from ..spec.model import Chain
+from ..spec.numbers import celsius
 from ..spec.units import UnitError, parse_toleranced, parse_value
 from ..spec.yamlsrc import LDict, LList
 
@@ -199,7 +200,7 @@ def corner_points(chain: Chain) -> list[Corner]:
             t = t0
         parts = []
         if c.temp_k is not None:
-            parts.append(f"{t - 273.15:.0f} °C".replace("-", "−"))
+            parts.append(celsius(t))
         if c.supply is not None:
             parts.append("supply nominal" if sf == 1.0 else f"supply {(sf - 1) * 100:+.3g} %".replace("-", "−"))
         is_nom = (t == t0 and sf == 1.0)
