@@ -54,7 +54,9 @@ def solve_dc(chain: Chain, params: dict, rounds: int | None = None, bad_settles_
         node_v = new_v
         if settled and rounds is None:
             break
-    return DcResult(node_v, ops, *_limits(chain, ops))
+    res = DcResult(node_v, ops, *_limits(chain, ops))
+    _no_rail_causes(chain, ops, res)
+    return res
 
 
 def _bad(ops) -> np.ndarray | None:
@@ -119,6 +121,18 @@ def _normalised(st: DcState) -> DcState:
     _, e = np.frexp(mag)
     k = np.ldexp(1.0, -e)
     return DcState(st.e * k, st.a * k, st.b * k)
+
+
+def _no_rail_causes(chain, ops, res) -> None:
+    """``limit_cause[node]`` = 'no rail' on a side left unlimited because a stage at the node
+    (its driver or a reader) is declared without a rail there (an op-amp's 'v_pos: inf')."""
+    for node in chain.nodes:
+        lo, hi = res.limits[node]
+        at = [ops[node], *(ops[rd.name] for rd in chain.readers(node))]
+        low = "no rail" if not np.any(np.isfinite(lo)) and any(o.no_rail[0] for o in at) else None
+        high = "no rail" if not np.any(np.isfinite(hi)) and any(o.no_rail[1] for o in at) else None
+        if low or high:
+            res.limit_cause[node] = (low, high)
 
 
 def _limits(chain, ops):

@@ -224,9 +224,16 @@ def analyse_power(chain: Chain, ev) -> PowerResult:
     spec = chain.extra.get("power") or PowerSpec()
     b_rails = spec.battery_rails or tuple(r for r, (v, _) in rails.items() if v[0] > 0 and r in chain.rails)
     notes = []
-    if any(not np.all(np.isfinite(d.rail_v)) for d in draws):
+    if any(np.any(np.isnan(d.rail_v)) for d in draws):
         notes.append("a converter or sensor current names no rail ('supply:' / 'excitation:'): it is listed "
                      "but not in any rail's total")
+    unbounded = [d for d in draws if np.any(np.isinf(d.rail_v)) and np.any(d.current_a != 0)]
+    if unbounded:
+        # an op-amp declared without a rail ('v_pos: inf'): its current flows, its power is not known
+        power = np.full(ev.samples, np.nan)
+        notes.append(f"{', '.join(sorted({d.stage for d in unbounded}))} declared without a rail ('v_pos: inf' "
+                     "or 'v_neg: -inf', a quick estimate): its current is listed, but no rail total holds it "
+                     "and the total power is not known")
     return PowerResult(draws, rails, power, spec.battery_c, tuple(b_rails), notes)
 
 

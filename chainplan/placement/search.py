@@ -82,7 +82,9 @@ class Search:
             return c.power_w
         p = c.stage.params
         if "i_supply" in p:
-            return float(p["i_supply"] * (p["v_pos"] - p["v_neg"]))
+            span = float(p["v_pos"] - p["v_neg"])
+            # declared without a rail (v_pos: inf): no power figure exists; counted as none
+            return float(p["i_supply"] * span) if math.isfinite(span) else 0.0
         return 0.0
 
 

@@ -45,7 +45,8 @@ def budget_dict(b: Budget) -> dict:
         "nodes": [{"name": n.name, "dc_v": n.dc_v, "peak_v": n.peak_v, "low_limit_v": n.low_v,
                    "high_limit_v": n.high_v, "headroom_v": n.headroom_v, "headroom_db": n.headroom_db,
                    "low_limit_by": n.limited_by[0], "high_limit_by": n.limited_by[1],
-                   "low_limit_cause": n.limit_cause[0], "peak_f_hz": n.f_peak_hz,
+                   "low_limit_cause": n.limit_cause[0], "high_limit_cause": n.limit_cause[1],
+                   "peak_f_hz": n.f_peak_hz,
                    "clips": n.clips} for n in b.nodes],
         **b.extra_json,
     })

@@ -36,7 +36,7 @@ def power_tables(r, chain, console) -> None:
         t.add_column(col, justify="left" if col == "rail" else "right")
     for rail, (v, i) in r.rails.items():
         t.add_row(rail, eng(v[0], "V"), eng(i[0], "A"), eng(abs(v[0] * i[0]), "W"))
-    t.add_row("total", "", "", eng(r.power_w[0], "W"))
+    t.add_row("total", "", "", eng(r.power_w[0], "W") if math.isfinite(r.power_w[0]) else "not known (no rail)")
     console.print(t)
     if r.battery_c is not None:
         console.print(f"battery {eng(r.battery_c / 3600.0, 'A')}h feeding {', '.join(r.battery_rails)}: "

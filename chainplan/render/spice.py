@@ -20,7 +20,9 @@ Every stage becomes the circuit chainplan's own model stands for:
 * the ADC or load: R ‖ C to its reference.
 
 Supplies and bias voltages are DC voltage sources, one per declared rail (a
-value nobody named gets its own source).  Macro-model resistances (an amplifier's
+value nobody named gets its own source).  The op-amp macro models are linear
+and take no supply; an op-amp declared without a rail (``v_pos: inf``) gets a
+comment saying so, never an infinite source.  Macro-model resistances (an amplifier's
 or op-amp's input and output resistance, the pole network) are written as
 voltage-controlled current sources across their own terminals — a noiseless
 conductance in any SPICE — because a part's noise is its data-sheet noise, not
@@ -612,6 +614,10 @@ def export(chain: Chain, points_per_decade: int = 100) -> Netlist:
     b.nodes[src.name] = fns[src.name](b, src, params[src.name], None)
     for st in chain.stages:
         b.lines.append(f"* --- {st.name}: {st.kind}, reads '{st.parent}'")
+        unbounded = [f for f in ("v_pos", "v_neg") if f in params[st.name] and np.any(np.isinf(params[st.name][f]))]
+        if unbounded:
+            b.lines.append(f"* {st.name} is declared without a rail ({', '.join(unbounded)} infinite: a quick "
+                           "estimate); no supply source is emitted for it")
         out = fns[st.name](b, st, params[st.name], b.nodes[st.parent])
         if out is not None:
             b.nodes[st.name] = out

@@ -60,12 +60,19 @@ def budget_tables(b: Budget, console) -> None:
         caption = "class A: a follower's bias current sets its negative swing into the load"
     ns = b.nodes
     marks = ["CLIPS" if n.clips else ("tightest" if n is tight else "") for n in ns]
-    lim = lambda vs: [x if math.isfinite(v) else "—" for x, v in zip(figures(vs, "V"), vs)]  # noqa: E731
+    def lim(vs, causes):
+        """Limits in one prefix; an infinite one reads 'no rail' where an op-amp is declared without
+        that rail (a quick estimate: no headroom figure is made up), '—' where nothing limits it."""
+        return [x if math.isfinite(v) else ("no rail" if "no rail" in cause else "—")
+                for x, v, cause in zip(figures(vs, "V"), vs, causes)]
+    no_rail = [tuple(c or "" for c in n.limit_cause) for n in ns]
     print_table(console, [Col("node", wrap=True), Col("DC", right=True), Col("peak", right=True),
                           Col("low limit", right=True), Col("high limit", right=True), Col("headroom", right=True),
                           Col("headroom dB", right=True, drop=2), Col("set by", wrap=True, drop=1), Col("")],
                 list(zip([n.name for n in ns], figures([n.dc_v for n in ns], "V"), figures([n.peak_v for n in ns], "V"),
-                         lim([n.low_v for n in ns]), lim([n.high_v for n in ns]), lim([n.headroom_v for n in ns]),
+                         lim([n.low_v for n in ns], [c[0] for c in no_rail]),
+                         lim([n.high_v for n in ns], [c[1] for c in no_rail]),
+                         lim([n.headroom_v for n in ns], [" ".join(c) for c in no_rail]),
                          [db(n.headroom_db, 1) if math.isfinite(n.headroom_db) else "—" for n in ns],
                          [_set_by(n) for n in ns], marks)),
                 title=f"Nodes (DC, signal peak {where}, limits, headroom)", caption=caption,
@@ -135,8 +142,14 @@ def _active_table(b: Budget, console) -> None:
                           Col("gm", right=True), Col("power", right=True)],
                 list(zip([s.name for s in rows], figures([s.op.get("id_a", s.op.get("ic_a")) for s in rows], "A"),
                          figures(shifts, "V", signed=True), figures([s.op.get("gm_s") for s in rows], "S"),
-                         figures([s.op["power_w"] for s in rows], "W"))),
+                         [("no rail" if _no_rail_power(b, s) else x)
+                          for s, x in zip(rows, figures([s.op["power_w"] for s in rows], "W"))])),
                 title="Active stages (operating point)")
+
+
+def _no_rail_power(b: Budget, s) -> bool:
+    """A stage's power is no figure because it is declared without a rail."""
+    return not math.isfinite(s.op["power_w"]) and any(b.ev.dc.ops[s.name].no_rail)
 
 
 def _lim(v):

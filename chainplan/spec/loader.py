@@ -384,6 +384,8 @@ def _field_value(ctx, f, raw, rails, line, where, st, key):
                           "; declare it under 'rails:' (e.g. vdd: 3.3 V)"), line, where)
         st.raw.setdefault("__rails__", {})[key] = raw
         return rails[raw], None, None
+    if f.neg_inf and isinstance(raw, str) and NEG_INF_RE.fullmatch(raw):
+        return -math.inf, None, None                 # no rail on that side (checked by the kind)
     factor = 1.0
     if key == "amplitude":
         raw, factor = amplitude_form(raw)
@@ -408,6 +410,9 @@ def _field_value(ctx, f, raw, rails, line, where, st, key):
         raise ctx.err("a gain of zero passes no signal; give a non-zero gain", line, where)
     return value, tol, tc
 
+
+#: '-inf', '−inf', '-∞', '-inf V': the one negative infinity a field with ``neg_inf`` accepts
+NEG_INF_RE = re.compile(r"\s*[-\u2212]\s*(?:inf|∞)(?:\s*V)?\s*")
 
 #: the largest bare number (no 'dB' written) a field in decibels accepts: beyond it the
 #: number is more likely a ratio ('a0: 1e6') than decibels (no op-amp has 160 dB of gain)
@@ -442,8 +447,9 @@ def _plain(v: float) -> str:
 def check_range(ctx, f, value, tol, line, where) -> None:
     """The value (and the extremes its tolerance reaches) inside the field's physically
     meaningful range (``Field.bounds``, documented in the field table)."""
-    if math.isinf(value) and not f.allow_inf:
-        raise ctx.err("must be finite here", line, where)
+    if math.isinf(value) and not (f.allow_inf if value > 0 else f.neg_inf):
+        raise ctx.err("must be finite here" + (" (only −inf is accepted: no negative rail)" if f.neg_inf else ""),
+                      line, where)
     if f.positive and not value > 0:
         raise ctx.err(f"must be greater than zero ({f.doc})", line, where)
     if f.minimum is not None and value < f.minimum:
@@ -472,7 +478,8 @@ def _show(f, v) -> str:
 
 def range_text(f) -> str:
     """The accepted range of a field as the field table and messages write it."""
-    return f.describe_range(lambda v: _show(f, v)) + (", or inf" if f.allow_inf else "")
+    return f.describe_range(lambda v: _show(f, v)) + (", or inf" if f.allow_inf else "") + \
+        (", or −inf" if f.neg_inf else "")
 
 
 def _looks_numeric(text: str) -> bool:

@@ -31,7 +31,8 @@ def _alt(items) -> str:
     return "(?:" + "|".join(re.escape(i) for i in sorted(set(items), key=lambda i: (-len(i), i))) + ")"
 
 
-def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool, amplitude: bool = False) -> str:
+def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool, amplitude: bool = False,
+                 neg_inf: bool = False) -> str:
     """A regular expression for a value text of this unit (prefixes and symbols as units.py reads them)."""
     u = UNITS[unit_id]
     prefixes = list(PREFIXES) + (["c"] if unit_id == "m" else [])
@@ -53,6 +54,8 @@ def unit_pattern(unit_id: str, allow_inf: bool, tolerable: bool, amplitude: bool
                       r"(?:\s+tracks\s+[A-Za-z_][\w\-]*)?)?")
     if allow_inf and u.allow_inf:
         value = rf"(?:{value}|(?:inf|∞)(?:\s*{re.escape(u.symbol)})?)"
+    if neg_inf:                                  # spec.loader.NEG_INF_RE: an op-amp's 'v_neg: -inf'
+        value = rf"(?:{value}|[-\u2212]\s*(?:inf|∞)(?:\s*{re.escape(u.symbol)})?)"
     return rf"^\s*{value}\s*$"
 
 
@@ -71,7 +74,8 @@ def field_schema(f, amplitude: bool = False) -> dict:
     u = UNITS[f.unit]
     low, high, _ = f.bounds()
     kinds: list[dict] = [{"type": "number", "minimum": low, "maximum": high},
-                         {"type": "string", "pattern": unit_pattern(f.unit, f.allow_inf, f.tolerable, amplitude)}]
+                         {"type": "string", "pattern": unit_pattern(f.unit, f.allow_inf, f.tolerable, amplitude,
+                                                                         f.neg_inf)}]
     if f.choices:
         kinds.append({"enum": list(f.choices)})
     if f.rail_ok:

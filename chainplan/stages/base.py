@@ -77,6 +77,7 @@ class Field:
     minimum: float | None = None   # inclusive lower bound (SI)
     positive: bool = False         # strictly > 0
     allow_inf: bool = False        # 'inf' accepted
+    neg_inf: bool = False          # '-inf' accepted (an op-amp's v_neg: no negative rail)
     tolerable: bool = True         # may carry a ±tolerance
     maximum: float | None = None   # inclusive upper bound (SI); default: the unit's (UNIT_RANGES)
     tiny: float | None = None      # smallest non-zero magnitude; default: the unit's
@@ -104,7 +105,7 @@ class Field:
         low, high, tiny = self.bounds()
         v = np.asarray(v, dtype=float)
         with np.errstate(invalid="ignore"):
-            inf_ok = np.isinf(v) & (v > 0) & self.allow_inf
+            inf_ok = np.isinf(v) & (((v > 0) & self.allow_inf) | ((v < 0) & self.neg_inf))
             bad = ~np.isfinite(v) | (v < low) | (v > high) | ((v != 0) & (np.abs(v) < tiny))
         return bad & ~inf_ok
 
@@ -308,6 +309,7 @@ class Op:
     input_load: DcLoad = NO_LOAD           # DC current the stage input draws
     problems: list[str] = field(default_factory=list)   # e.g. "out of saturation"
     bad: Any = False                       # per-sample mask: the device cannot hold this bias
+    no_rail: tuple[bool, bool] = (False, False)   # (low, high) sides declared without a supply rail
 
     def flag(self, mask, fld: str, message: str) -> bool:
         """Record a bias the device cannot hold: OR the per-sample ``mask`` into

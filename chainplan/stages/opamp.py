@@ -46,8 +46,10 @@ COMMON = {
                   allow_inf=True),
     "c_in": Field("F", "common-mode input capacitance, at each input (the − input's is in the feedback "
                   "network: it sets the noise gain and the phase margin)", default="0 F", minimum=0.0),
-    "v_pos": Field("V", "positive supply", default="vdd", rail_ok=True),
-    "v_neg": Field("V", "negative supply", default="0 V", rail_ok=True),
+    "v_pos": Field("V", "positive supply (inf: no rail, a quick estimate with unlimited headroom on that side)",
+                   default="vdd", rail_ok=True, allow_inf=True),
+    "v_neg": Field("V", "negative supply (−inf: no rail, a quick estimate with unlimited headroom on that side)",
+                   default="0 V", rail_ok=True, neg_inf=True),
     "swing_high": Field("V", "output swing limit below the positive supply", default="0.1 V", minimum=0.0),
     "swing_low": Field("V", "output swing limit above the negative supply", default="0.1 V", minimum=0.0),
     "cm_high": Field("V", "input common-mode limit below the positive supply (negative: beyond it)",
@@ -98,7 +100,15 @@ class _OpAmp(StageKind):
         return out, cm
 
     def _power(self, p):
-        return p["i_supply"] * (p["v_pos"] - p["v_neg"])
+        """i_supply·(v_pos − v_neg); not a number (no figure) when a rail is declared infinite."""
+        span = np.asarray(p["v_pos"] - p["v_neg"], dtype=float)
+        with np.errstate(invalid="ignore"):
+            return np.where(np.isfinite(span), p["i_supply"] * span, np.nan)
+
+    @staticmethod
+    def _no_rail(p) -> tuple[bool, bool]:
+        """The sides declared without a rail ('v_neg: -inf', 'v_pos: inf'): a quick estimate."""
+        return bool(np.all(np.isinf(p["v_neg"]))), bool(np.all(np.isinf(p["v_pos"])))
 
     def dc_errors(self, p, v_plus):
         """(offset at the + input, bias current into the + pin, into the − pin) of the
@@ -107,7 +117,9 @@ class _OpAmp(StageKind):
         mid-supply (common practice; the differential-chains issue widens this seam).  Bias
         currents: I± = ib ± ios/2 (Franco, *Design with Operational Amplifiers*, static
         limitations, from memory), each doubling per ib_doubling."""
-        vos = drifted(p, "vos", "vos_drift") + err(p, "cmrr") * (v_plus - 0.5 * (p["v_pos"] + p["v_neg"]))
+        # mid-supply with a rail declared infinite (no rail): 0 V, the error then referred to ground
+        mid = 0.5 * (p["v_pos"] + p["v_neg"]) if not any(self._no_rail(p)) else 0.0
+        vos = drifted(p, "vos", "vos_drift") + err(p, "cmrr") * (v_plus - mid)
         ib, half_ios = doubled(p, "ib", p["ib_doubling"]), 0.5 * doubled(p, "ios", p["ib_doubling"])
         return vos, ib + half_ios, ib - half_ios
 
@@ -186,7 +198,7 @@ class _OpAmp(StageKind):
         m = self.abcd(p, 0.0, None)
         v_open = self._v_open(p, v_in, p.get("ref", 0.0), m)
         out, cm = self._limits(p)
-        op = Op(values=dict(power_w=self._power(p)), in_range=cm, out_range=out)
+        op = Op(values=dict(power_w=self._power(p)), in_range=cm, out_range=out, no_rail=self._no_rail(p))
         railed = (v_open < out[0]) | (v_open > out[1])
         if np.any(railed):
             v = float(np.ravel(v_open + 0.0 * railed)[np.argmax(np.ravel(railed))])
