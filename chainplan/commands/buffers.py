@@ -109,7 +109,7 @@ def _advise(chain, args) -> int:
 def targets_from_args(chain, args):
     """The optimiser's targets: the command-line options plus the spec's requirements."""
     from ..placement.optimiser import Targets, check_nodes, targets_from_requirements
-    t = Targets()
+    t = Targets(gain_unit=chain.gain_db_unit)
     if args.min_gain is not None:
         t.min_gain_db[chain.analysis.f_ref_hz] = _value(args.min_gain, "dB", "--min-gain")
         t.add_origin("gain", "--min-gain")

@@ -129,6 +129,7 @@ class Targets:
     origin: dict = field(default_factory=dict)           # kind -> [where the target came from]
     skipped: list = field(default_factory=list)          # spec requirements the optimiser does not target
     report_only: list = field(default_factory=list)      # spec requirements left out of the targets (--targets)
+    gain_unit: str = "dB"                                # 'dBΩ' on a transimpedance chain (Chain.gain_db_unit)
 
     KINDS = ("gain", "max_gain", "headroom", "f_high", "f_low", "power", "loss")
 
@@ -148,7 +149,7 @@ class Targets:
 
     def only(self, kinds) -> "Targets":
         """A copy keeping only the given kinds."""
-        t = Targets(origin=self.origin)
+        t = Targets(origin=self.origin, gain_unit=self.gain_unit)
         if "gain" in kinds:
             t.min_gain_db = dict(self.min_gain_db)
         if "max_gain" in kinds:
@@ -170,6 +171,7 @@ def targets_from_requirements(chain: Chain, targets: Targets | None = None, chos
     """Add the spec's ``requirements:`` that the optimiser can target (the stricter wins); with
     ``chosen`` (a list of requirements) only those, the others are only reported."""
     t = targets or Targets()
+    t.gain_unit = chain.gain_db_unit
     for r in chain.extra.get("requirements", []):
         if chosen is not None and r not in chosen:
             t.report_only.append(r.name)
@@ -744,9 +746,9 @@ def _with_knob(targets: Targets, kind: str, x: float, base: Targets) -> Targets:
 
 def target_text(t: Targets, kind: str) -> str:
     if kind == "gain":
-        return "gain " + ", ".join(f"≥ {db:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items())
+        return "gain " + ", ".join(f"≥ {db:.2f} {t.gain_unit} at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items())
     if kind == "max_gain":
-        return "gain " + ", ".join(f"≤ {db:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items())
+        return "gain " + ", ".join(f"≤ {db:.2f} {t.gain_unit} at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items())
     if kind == "headroom":
         parts = ([f"≥ {fmt(t.min_headroom_v, 'V')} at every node"] if t.min_headroom_v is not None else []) + \
             [f"≥ {fmt(h, 'V')} at {n}" for n, h in t.node_headroom_v.items()]
@@ -762,9 +764,9 @@ def target_text(t: Targets, kind: str) -> str:
 
 def _knob_text(t: Targets, kind: str, x: float) -> str:
     if kind == "gain":
-        return ", ".join(f"{db + x:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items())
+        return ", ".join(f"{db + x:.2f} {t.gain_unit} at {fmt(f, 'Hz')}" for f, db in t.min_gain_db.items())
     if kind == "max_gain":
-        return ", ".join(f"{db - x:.2f} dB at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items())
+        return ", ".join(f"{db - x:.2f} {t.gain_unit} at {fmt(f, 'Hz')}" for f, db in t.max_gain_db.items())
     if kind == "headroom":
         base = t.min_headroom_v if t.min_headroom_v is not None else min(t.node_headroom_v.values())
         return f"{fmt(base + x, 'V')} of headroom"

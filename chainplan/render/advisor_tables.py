@@ -30,7 +30,7 @@ def advice_tables(a: Advice, console, only: str | None = None, details: bool = F
     chain_heading(c, console)
     n = len(a.interfaces[0].candidates) if a.interfaces else len(a.candidates)
     console.print(f"{n} candidate{'s' if n != 1 else ''}, ranked by {a.cost_basis}, each inserted in turn and the "
-                  f"whole chain re-analysed; at {eng(a.f_ref_hz, 'Hz')}, end-to-end gain now {db(a.gain_db)} "
+                  f"whole chain re-analysed; at {eng(a.f_ref_hz, 'Hz')}, end-to-end gain now {figure(a.gain_db, a.chain.gain_db_unit, decimals=2)} "
                   f"to '{a.output}'")
     if only is None:
         rules_block(a.chain, a.rules, console)
@@ -333,11 +333,12 @@ def _cost_text(p: Plan) -> str:
 
 def _figure_rows(p: Plan) -> list[list[str]]:
     b, a, t = p.before, p.measured, p.targets
+    g = lambda x: figure(x, p.chain.gain_db_unit, decimals=2)      # noqa: E731  (dBΩ: a transimpedance)
     rows = []
     for f in sorted(set(b.gain_db) | set(t.min_gain_db) | set(t.max_gain_db)):
-        goal = ", ".join(([f"≥ {db(t.min_gain_db[f])}"] if f in t.min_gain_db else []) +
-                         ([f"≤ {db(t.max_gain_db[f])}"] if f in t.max_gain_db else [])) or "—"
-        rows.append([f"gain at {eng(f, 'Hz')}", db(b.gain_db.get(f)), db(a.gain_db.get(f)), goal])
+        goal = ", ".join(([f"≥ {g(t.min_gain_db[f])}"] if f in t.min_gain_db else []) +
+                         ([f"≤ {g(t.max_gain_db[f])}"] if f in t.max_gain_db else [])) or "—"
+        rows.append([f"gain at {eng(f, 'Hz')}", g(b.gain_db.get(f)), g(a.gain_db.get(f)), goal])
     rows.append(["tightest headroom", _room(b), _room(a),
                  "—" if t.min_headroom_v is None else f"≥ {eng(t.min_headroom_v, 'V')}"])
     rows.append(["lower band edge", _edge(b.f_low_hz, "below"), _edge(a.f_low_hz, "below"),

@@ -6,7 +6,7 @@ import math
 from ..studies.diffing import Diff
 from ..studies.requirements import show
 from ..spec.safety import safety_notice
-from ..spec.numbers import figure
+from ..spec.numbers import figure, ratio_unit
 from .layout import Col, print_table
 
 MARK = {"worse": "worse", "clips now": "CLIPS NOW", "fails now": "FAILS NOW"}
@@ -16,8 +16,8 @@ def _delta(c) -> str:
     """new − old in the figure's unit, and relative for figures that are not in dB or bits."""
     if c.old is None or c.new is None or not (math.isfinite(c.old) and math.isfinite(c.new)):
         return ""
-    d = figure(c.new - c.old, c.unit, signed=True)
-    if c.unit not in ("dB", "bits") and c.old != 0:
+    d = figure(c.new - c.old, ratio_unit(c.unit), signed=True)
+    if c.unit not in ("dB", "dBΩ", "bits") and c.old != 0:
         d += f" ({figure((c.new - c.old) / abs(c.old), '%', signed=True)})"
     return d
 

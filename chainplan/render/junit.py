@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import xml.etree.ElementTree as ET
 
+from ..spec.numbers import ratio_unit
 from ..studies.requirements import ReqResult, show, where_of
 from ..spec.safety import safety_notice
 
@@ -14,7 +15,7 @@ from ..spec.safety import safety_notice
 def failure_text(r: ReqResult, i: int = 0) -> str:
     """'13.92 dB, needs ≥ 20.00 dB (margin −6.08 dB) at node gain'."""
     text = f"{show(float(r.value[i]), r.unit)}, needs {r.requirement.describe()} " \
-           f"(margin {show(float(r.margin[i]), r.unit)})"
+           f"(margin {show(float(r.margin[i]), ratio_unit(r.unit))})"
     w = where_of(r, i)
     return text + (f", set by {w}" if w else "")
 

@@ -21,7 +21,7 @@ import math
 
 from ..version import __version__
 from ..engine.budget import Budget
-from ..spec.numbers import loss, temperature
+from ..spec.numbers import loss, ratio_unit, temperature
 from .console import db, end_gain, eng, interface_cell, stage_gain
 from ..spec.safety import safety_notice
 from .tables import _converter, _lim, _set_by
@@ -171,8 +171,9 @@ def _requirement_rows(b: Budget):
         return None
     from ..studies.requirements import evaluate_requirements, show, where_of
     res = evaluate_requirements(b.ev)
-    rows = [(r.name, show(float(r.value[0]), r.unit), r.requirement.describe(), show(float(r.margin[0]), r.unit),
-             "pass" if r.passed[0] else "FAIL", where_of(r) or "") for r in res]
+    rows = [(r.name, show(float(r.value[0]), r.unit), r.requirement.describe(),
+             show(float(r.margin[0]), ratio_unit(r.unit)), "pass" if r.passed[0] else "FAIL", where_of(r) or "")
+            for r in res]
     return rows, ["" if r.passed[0] else "fail" for r in res]
 
 
@@ -210,7 +211,7 @@ def _montecarlo_html(mc) -> list[str]:
             continue
         label, unit, _ = metric_info(mc.chain, name)
         sigma = st.std if st.std > 1e-9 * abs(st.mean) else 0.0        # rounding noise of a fixed value
-        rows.append((label, show(st.mean, unit), show(sigma, unit),
+        rows.append((label, show(st.mean, unit), show(sigma, ratio_unit(unit)),
                      *(show(x, unit) for x in (st.p_low, st.median, st.p_high))))
     out.append(_table(["metric", "mean", "σ", "0.1 %", "median", "99.9 %"], rows))
     if mc.sensitivity:

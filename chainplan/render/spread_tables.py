@@ -5,7 +5,7 @@ import math
 
 from ..studies.montecarlo import McResult, metric_info, metrics, stats
 from ..studies.requirements import evaluate_requirements, show
-from ..spec.numbers import figure, figures
+from ..spec.numbers import figure, figures, ratio_unit
 from ..spec.safety import safety_notice
 from .layout import Col, print_table
 from .tables import chain_heading
@@ -51,7 +51,7 @@ def spread_tables(res: McResult, nominal, corners: McResult, console, gate=None)
             quiet += 1                      # interfaces that never lose a measurable amount
             continue
         nom, mean, lo, med, hi = _row_figures([n0, s.mean, s.p_low, s.median, s.p_high], unit, key)
-        rows.append([text.replace("loading loss ", "loss "), nom, mean, _sigma(s.std, s.mean, unit), lo, med, hi])
+        rows.append([text.replace("loading loss ", "loss "), nom, mean, _sigma(s.std, s.mean, ratio_unit(unit)), lo, med, hi])
     print_table(console, [Col("figure", wrap=2), Col("nominal", right=True), Col("mean", right=True, drop=2),
                           Col("σ", right=True), Col("0.1 %", right=True), Col("median", right=True, drop=1),
                           Col("99.9 %", right=True)], rows, title="Distribution (valid units, nominal conditions)",
@@ -106,7 +106,7 @@ def spread_tables(res: McResult, nominal, corners: McResult, console, gate=None)
                 (f"fails {fails[0]}{more}" if fails else ("all met" if corners.requirements else "—"))
             mark = ", ".join(m for m, on in (("nominal", cr.nominal), ("limits", i == limit)) if on)
             rows.append([cr.label, _pct(y), _ci(res, y) if res.requirements else "—",
-                         show(float(corners.metrics["gain_db"][i]), "dB"), status, mark])
+                         show(float(corners.metrics["gain_db"][i]), c.gain_db_unit), status, mark])
             styles.append("bold red" if fails or not corners.valid[i] or i == limit else None)
         print_table(console, [Col("corner", wrap=2), Col("yield", right=True), Col("95 % interval", right=True),
                               Col("gain", right=True, drop=1), Col("nominal unit", wrap=True), Col("", wrap=True)],

@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 
 from ..spec.safety import safety_notice
-from ..spec.numbers import celsius
+from ..spec.numbers import celsius, ratio_unit
 from ..spec.units import fmt
 from ..studies.requirements import show
 from ..studies.tempsweep import Sweep
@@ -20,8 +20,8 @@ def _drift(x: float, unit: str) -> str:
     """Drift per kelvin in the figure's unit (ppm/K for a frequency, relative)."""
     if not math.isfinite(x):
         return "—"
-    if unit in ("dB", "bits"):
-        return f"{x:+.4f} {unit}/K".replace("-", "−")
+    if unit in ("dB", "dBΩ", "bits"):
+        return f"{x:+.4f} {ratio_unit(unit)}/K".replace("-", "−")
     return fmt(x, unit) + "/K"          # engineering notation: a drift is small by nature
 
 

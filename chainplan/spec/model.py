@@ -67,6 +67,12 @@ class Chain:
     extra: dict[str, Any] = field(default_factory=dict)   # requirements, candidates, tolerances, ...
 
     @property
+    def gain_db_unit(self) -> str:
+        """The unit of the chain's end-to-end gain in decibels: 'dBΩ' (20·log10 |V/A| re 1 Ω)
+        when the source is a current (a transimpedance), else 'dB' (a voltage ratio)."""
+        return "dBΩ" if self.source.model.signal_unit == "A" else "dB"
+
+    @property
     def all_stages(self) -> list[Stage]:
         return [self.source, *self.stages]
 

@@ -185,3 +185,8 @@ def temperature(t_k, written: str | None = None) -> str:
         return f"{celsius(t_k)} ({_plain(t_k)} K)"
     return f"{_plain(t_k)} K"
 
+
+def ratio_unit(unit: str) -> str:
+    """The unit of a difference (a margin, a change, a spread) of figures in ``unit``: two
+    transimpedances in dBΩ differ by a ratio, in dB; every other unit is its own."""
+    return "dB" if unit == "dBΩ" else unit

@@ -246,6 +246,10 @@ def metric_info(chain: Chain, key: str) -> tuple[str, str, int]:
     """(label, unit, better direction) of a metric key, e.g. ('loading loss element → lead', 'dB', -1)."""
     base, _, target = key.partition(".")
     text, unit, better = METRICS[base]
+    if base == "gain_db":
+        unit = chain.gain_db_unit                # dBΩ for a transimpedance chain
+    if base == "noise_in_vrms":
+        unit = chain.source.model.signal_unit    # a current sensor's input noise is a current (A rms)
     if base == "loading_loss_db":
         target = f"{chain.stage(target).parent} → {target}"
     return (f"{text} {target}" if target else text), unit, better

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SpecError, nearest
-from ..spec.numbers import figure
+from ..spec.numbers import figure, ratio_unit
 from ..spec.units import UnitError, fmt, parse_value
 from ..spec.yamlsrc import LDict, LList
 
@@ -92,6 +92,7 @@ ERROR_KINDS = {"max_offset_error": "offset", "max_gain_error": "gain", "max_drif
                "max_total_error": "total"}
 NOISE_KINDS = ("min_snr", "min_enob")
 COMMON_MODE_KINDS = ("min_cmrr", "max_common_mode_error")     # need a differential interface
+GAIN_KINDS = ("min_gain", "max_gain")     # in dBΩ on a transimpedance chain
 DYNAMICS_KINDS = ("min_phase_margin", "max_peaking", "min_slew_margin", "min_settled_bits", "max_settling_time",
                   "max_startup_time")
 
@@ -143,14 +144,14 @@ class ReqResult:
 def show(x, unit: str) -> str:
     """A requirement value in its unit: dB with two decimals, bits with two, others in engineering
     notation; LSB and sensor units (DC error limits) with three significant figures."""
-    if unit not in ("V", "%", "dB", "bits", "Hz", "W", "A") and unit and x is not None and math.isfinite(x):
+    if unit not in ("V", "%", "dB", "dBΩ", "bits", "Hz", "W", "A") and unit and x is not None and math.isfinite(x):
         return f"{x:.3g} {unit}".replace("-", "−")
     return figure(x, unit, signed=False)
 
 
 def show_margin(x, unit: str) -> str:
-    """A margin, signed (positive = met): '+0.17 dB', '−94.7 mV'."""
-    return figure(x, unit, signed=True)
+    """A margin, signed (positive = met): '+0.17 dB', '−94.7 mV' (of two dBΩ figures: dB)."""
+    return figure(x, ratio_unit(unit), signed=True)
 
 
 # -- parsing -------------------------------------------------------------------
@@ -193,6 +194,8 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
     try:
         if k.unit == "error":
             limit, symbol = _error_limit(raw, chain)
+        elif k.key in GAIN_KINDS:
+            limit, symbol = _gain_limit(raw, chain)
         else:
             limit = parse_value(raw, k.unit)
     except UnitError as exc:
@@ -266,6 +269,20 @@ def _parse_item(chain, item: LDict, path, where) -> Requirement:
     name = name.strip() if name else _default_name(k.key, at, band, targets)
     return Requirement(name, k.key, k.kind, limit, symbol, k.sense, str(raw).strip(), at, band, targets,
                        item.line, rule, error)
+
+
+def _gain_limit(raw, chain):
+    """A gain limit in dB, or in dBΩ (also 'dBohm') on a chain whose gain is a transimpedance
+    (a current sensor's output over its current, V/A re 1 Ω) -> (value, the unit shown)."""
+    unit = chain.gain_db_unit
+    text = str(raw).strip()
+    for sym in ("dBΩ", "dBohm", "dBOhm"):
+        if text.endswith(sym):
+            if unit != "dBΩ":
+                raise UnitError(f"'{text}' is in dBΩ, a transimpedance, but this chain's gain is a voltage ratio "
+                                "(its source is a voltage): write the limit in dB")
+            return parse_value(text[:-len(sym)].strip() + " dB", "dB"), unit
+    return parse_value(raw, "dB"), unit
 
 
 def _error_limit(raw, chain):

@@ -62,7 +62,7 @@ def sweep(chain: Chain, temps_k) -> Sweep:
     ev = evaluate(chain, params)
     n = temps.size
     per = lambda x: np.broadcast_to(np.ravel(np.asarray(x, dtype=float)), (n,)).copy()  # noqa: E731
-    rows = [SweepRow("gain_db", "gain at f_ref", "dB", per(20 * np.log10(np.abs(ev.gain()[:, 0]))))]
+    rows = [SweepRow("gain_db", "gain at f_ref", chain.gain_db_unit, per(20 * np.log10(np.abs(ev.gain()[:, 0]))))]
     f_lo, f_hi = ev.band_edges()
     rows += [SweepRow("f_low_hz", "lower −3 dB edge", "Hz", per(f_lo)),
              SweepRow("f_high_hz", "upper −3 dB edge", "Hz", per(f_hi))]
