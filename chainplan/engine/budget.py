@@ -280,6 +280,7 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
     up the rest)."""
     nominal = params is None and ws is None
     params = params if params is not None else nominal_params(chain)
+    params_in = params
     params = {st.name: at_temperature(st.raw.get("__tempco__"), params[st.name]) for st in chain.all_stages}
     if not nominal:
         params = with_nominal_references(chain, params)
@@ -291,6 +292,7 @@ def evaluate(chain: Chain, params: dict | None = None, f_hz: np.ndarray | None =
         ac = run_ac(chain, params, dc.ops, f_hz, ws)
         class_a_limits(chain, params, dc, ac, band_columns(chain, f_hz))
     ev = Evaluation(chain, params, f_hz, dc, ac, chain.output_node(), ws)
+    ev.cache["params_in"] = params_in          # before the part tempcos (a DC error analysis redoes them)
     if nominal:
         check_finite(ev)
     return ev

@@ -366,13 +366,16 @@ def analyse_dc_errors(chain: Chain, params: dict | None = None) -> DcErrorResult
         gain_dc = 0.0
         notes.append("no DC path from the sensor to the output (AC-coupled): the errors are the output's "
                      "DC offset only; nothing is referred to the input")
+    conv = next((s for s in chain.readers(out) if s.kind == "adc"), None)
+    if conv is not None:
+        for k, src in enumerate(chain_src, start=1):
+            v = _reference_moved(v, k, src, conv, params[conv.name])
     contributors = []
     for k, src in enumerate(chain_src, start=1):
         # the source's error at each temperature (for a model's own temperature dependence the
         # row differs from the base only in that stage's temperature, so this is its drift)
         delta = v[:, k, :] - base
         contributors.append(_contributor(src, delta[0], delta[1:] - delta[0]))
-    conv = next((s for s in chain.readers(out) if s.kind == "adc"), None)
     fs = lsb = None
     if conv is not None:
         pa = params[conv.name]
@@ -404,6 +407,23 @@ def analyse_dc_errors(chain: Chain, params: dict | None = None) -> DcErrorResult
     return DcErrorResult(chain, out, conv.name if conv else None, contributors, acc.calibration, t_range,
                          float(gain_dc), amp, float(fs), lsb, acc.sensitivity, acc.sensor_unit,
                          chain.source.model.signal_unit, notes)
+
+
+def _reference_moved(v, k, src: Source, conv, pa):
+    """A source that moves the converter's reference (a rail tolerance on fs_high or fs_low):
+    the code of V is then read with the nominal span, so row ``k`` reads
+    ``fs_low + (V − fs_low')·span/span'`` — a gain error in proportion to the reading,
+    −δ·(V − fs_low) for a reference δ high (the ratiometric conversion,
+    code = (V − fs_low)/(fs_high − fs_low)·2^N).  A rail that feeds both the chain and the
+    reference moves both in the same row, so what they share cancels."""
+    moved = {f: x for (stg, f), x in src.params.items() if stg == conv.name and f in ("fs_low", "fs_high")}
+    if not moved:
+        return v
+    lo0, hi0 = float(np.ravel(pa["fs_low"])[0]), float(np.ravel(pa["fs_high"])[0])
+    lo, hi = moved.get("fs_low", lo0), moved.get("fs_high", hi0)
+    v = np.array(v)
+    v[:, k, :] = lo0 + (v[:, k, :] - lo) * (hi0 - lo0) / (hi - lo)
+    return v
 
 
 def _contributor(src: Source, init, drift) -> Contributor:
@@ -482,3 +502,124 @@ def __getattr__(name):
         "leakage": {"type": "object", "additionalProperties": amps,
                     "description": "board or capacitor leakage into nodes, e.g. 'electrode: 5 pA'"}},
         "description": "DC error budget options (docs/accuracy.md)"}}
+
+
+# -- per unit (tolerance runs) ----------------------------------------------------------
+
+#: params key prefix of an error source's per-unit draw (the signed value, studies/tolerances.py)
+UNIT_KEY = "err:"
+#: params key prefix of a rail field's value at nominal supply (set by a corner evaluation)
+CAL_KEY = "cal:"
+#: params key of the source stage marking a tolerance run (per-unit DC errors in the requirements)
+UNITS_MARK = "_units"
+
+
+def unit_sources(chain: Chain) -> list:
+    """The error sources a tolerance run draws per unit: (stage or node, key, limit), the
+    key being the stage's error field (``_err``), an ADC field, or ``_leak_a`` for a
+    node's leakage; the limit is the data-sheet magnitude (a CMRR as the ratio 10^(−dB/20))."""
+    out = []
+    for st in chain.all_stages:
+        p = st.params
+        if st.kind == "adc":
+            out += [(st.name, fld, float(p[fld])) for fld in ADC_SOURCES if p.get(fld)]
+            continue
+        for fld in FIELD_SOURCES:
+            if fld in st.model.FIELDS and p.get(fld):
+                out.append((st.name, fld, 10.0 ** (-p[fld] / 20.0) if fld == "cmrr" else float(p[fld])))
+    out += [(node, "_leak_a", i) for node, i in accuracy_of(chain).leakage.items() if i]
+    return out
+
+
+def unit_errors(chain: Chain, params: dict, n: int) -> dict:
+    """Each unit's own DC error, (n,) arrays in output volts: 'offset' (initial, at 25 °C and
+    nominal supply, after the calibration), 'gain', 'drift' and 'total' (docs/accuracy.md,
+    "Tolerance runs").  ``params``: the run's per-sample parameters before the part tempcos
+    (a unit's drawn parts, its error sources' signed draws under UNIT_KEY, its operating
+    condition: temperature and supply).
+
+    A unit is solved (engine/dcpass.py, the whole chain at once) at the zero point and one
+    amplitude away, at its calibration state (25 °C, nominal supply), at its own condition
+    and at the ends of the temperature range at its own supply; its error at a state is its
+    reading minus the ideal chain's (nominal parts, no error source, 25 °C).  A converter's
+    errors act on the reading as in the budget, and a reference that moves (a rail's
+    tolerance or the supply corner on fs_high/fs_low) rescales it: the code of V is read
+    with the nominal span, ``fs_low + (V − fs_low')·span/span'``.  The calibration removes
+    the unit's own offset (one point) and gain error (two points) at its calibration state;
+    drift is the largest change from there to the other states (|offset part| + |gain part|),
+    total the largest remaining error within ±amplitude, INL added to both totals uncorrected."""
+    from ..stages.base import at_temperature
+    acc = accuracy_of(chain)
+    out = chain.output_node()
+    src = chain.source.name
+    amp = np.broadcast_to(np.ravel(params[src]["amplitude"]), (n,))
+    t_range = temperature_range(chain)
+    own_t = np.broadcast_to(np.ravel(params[src].get("temp_k", chain.temp_k)), (n,))
+    temps = [np.full(n, T_REF_K), own_t] + [np.full(n, t) for t in (t_range or ())]
+    k = len(temps)
+    rows = 2 * k * n                                   # order: state, x (0 / amplitude), unit
+    tile = lambda v: np.tile(np.broadcast_to(np.ravel(v), (n,)), 2 * k)[:, None]  # noqa: E731
+    state = np.repeat(np.arange(k), 2 * n)
+    t_rows = np.concatenate([np.tile(t, 2) for t in temps])[:, None]
+    dx = np.tile(np.repeat([0.0, 1.0], n), k) * np.tile(amp, 2 * k)
+    adc_draw, p = {}, {}
+    for st in chain.all_stages:
+        q = {key: (tile(v) if np.ndim(v) >= 1 else v) for key, v in params[st.name].items()
+             if not key.startswith((UNIT_KEY, CAL_KEY))}
+        errs = {}
+        for key, v in params[st.name].items():
+            if key.startswith(UNIT_KEY):
+                fld = key[len(UNIT_KEY):]
+                if st.kind == "adc":
+                    adc_draw[fld] = np.broadcast_to(np.ravel(v), (n,))
+                elif fld == "_leak_a":
+                    q["_leak_a"] = tile(v)
+                else:
+                    errs[fld] = tile(v)
+            elif key.startswith(CAL_KEY):           # the rail field at nominal supply, in the calibration state
+                fld = key[len(CAL_KEY):]
+                q[fld] = np.where((state == 0)[:, None], tile(v), q[fld] if np.ndim(q[fld]) else tile(q[fld]))
+        if errs:
+            q["_err"] = errs
+        q["temp_k"] = t_rows
+        p[st.name] = at_temperature(st.raw.get("__tempco__"), q)
+    p[src]["_dx"] = dx[:, None]
+    ideal = {st.name: at_temperature(st.raw.get("__tempco__"), {**st.params, "temp_k": T_REF_K,
+                                                                 "t_nom_k": chain.t_nom_k})
+             for st in chain.all_stages}
+    amp0 = float(chain.source.params["amplitude"])
+    ideal[src]["_dx"] = np.array([[0.0], [amp0]])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        v = np.broadcast_to(np.ravel(solve_dc(chain, p).node_v[out]), (rows,)).reshape(k, 2, n)
+        v_ideal = np.broadcast_to(np.ravel(solve_dc(chain, ideal).node_v[out]), (2,))
+    inl = np.zeros(n)
+    conv = next((s for s in chain.readers(out) if s.kind == "adc"), None)
+    if conv is not None:
+        pa = p[conv.name]
+        per = lambda x: np.broadcast_to(np.ravel(x), (rows,)).reshape(k, 2, n)  # noqa: E731
+        lo, span = per(pa["fs_low"]), per(pa["fs_high"] - pa["fs_low"])
+        lo0 = float(conv.params["fs_low"])
+        span0 = float(conv.params["fs_high"] - conv.params["fs_low"])
+        dt = (t_rows[:, 0] - T_REF_K).reshape(k, 2, n)
+        g = lambda fld: adc_draw.get(fld, np.zeros(n))  # noqa: E731
+        scale = (1.0 + g("gain_error") + g("ref_tolerance") + g("ref_drift") * dt) * span0 / span
+        v = lo0 + (v + g("offset") + g("offset_drift") * dt - lo) * scale
+        inl = np.abs(g("inl")) * span0 / 2.0 ** float(conv.params["bits"])
+    e = v - v_ideal[None, :, None]
+    e0, eg = e[:, 0, :], e[:, 1, :] - e[:, 0, :]
+    k0 = e0[0] if acc.calibration != "none" else 0.0
+    kg = eg[0] if acc.calibration == "two_point" else 0.0
+    drift = np.max(np.abs(e0[1:] - e0[0]) + np.abs(eg[1:] - eg[0]), axis=0)
+    total = np.max(np.abs(e0[1:] - k0) + np.abs(eg[1:] - kg), axis=0) + inl
+    return {"offset": np.abs(e0[0] - k0) + inl, "gain": np.abs(eg[0] - kg), "drift": drift, "total": total}
+
+
+def unit_errors_of(ev, any_run: bool = False):
+    """:func:`unit_errors` of an evaluation's samples, computed once per evaluation; None
+    unless it is a tolerance run (``any_run``: the nominal design's own too, as one unit)."""
+    p = ev.cache.get("params_in") or ev.params
+    if not (p[ev.chain.source.name].get(UNITS_MARK) or any_run):
+        return None
+    if "unit_errors" not in ev.cache:
+        ev.cache["unit_errors"] = unit_errors(ev.chain, p, ev.samples)
+    return ev.cache["unit_errors"]

@@ -293,7 +293,7 @@ def generators(chain, st, p, s, op) -> list:
     if "power" not in chain.extra:
         return gens
     from .ripple import ripple_generators
-    return gens + ripple_generators(chain, st, p, s, gens)
+    return gens + ripple_generators(chain, st, p, s, gens, op)
 
 
 def _carried(ev: Evaluation, bandwidth: float):

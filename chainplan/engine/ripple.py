@@ -19,8 +19,21 @@ same rows and reported, integrated and counted in the SNR like any noise:
   so the hydrophone's gate bias off vdd reaches the gate through its own
   divider with the sensor impedance.
 
-Not carried (listed in the notes): a follower's drain-supply ripple (through
-its output resistance ro, rejected by gm·ro) and the converter's reference.
+* a follower's drain (``source_follower``) or collector (``emitter_follower``)
+  supply: the channel's (collector's) output conductance 1/ro carries the
+  supply's ripple v_d as a current v_d/ro into the output node, where the
+  channel (collector shot) noise current acts, and a MOSFET's Cgd carries
+  s·Cgd·v_d into the gate — the small-signal drain terminal driven instead of
+  grounded (i_d = gm·v_gs + gmb·v_bs + v_ds/ro; Razavi, *Design of Analog CMOS
+  Integrated Circuits*, §3.4, and Gray & Meyer, *Analysis and Design of Analog
+  Integrated Circuits*, ch. 1 (the Early effect), from memory).  The body
+  effect enters where it sets the output conductance gm + gmb + 1/ro, so the
+  rejection of an ideally biased follower is about gm·ro (plus gmb·ro); ro
+  comes from the device model (λ, or the Early voltage VA);
+
+Not carried (listed in the notes): the supply of common-source and
+common-emitter stages, and the converter's reference (its ripple would be an
+error in proportion to the reading, −(V − fs_low)/span·v_r).
 """
 from __future__ import annotations
 
@@ -65,8 +78,12 @@ def _rail_of(st, fld):
     return st.raw.get("__rails__", {}).get(fld)
 
 
-def ripple_generators(chain, st, p, s, gens) -> list:
-    """Extra generators of stage ``st`` for the declared rail ripple (``gens``: its own noise sources)."""
+FOLLOWER_SUPPLY = {"source_follower": ("drain", "channel"), "emitter_follower": ("collector", "collector shot")}
+
+
+def ripple_generators(chain, st, p, s, gens, op=None) -> list:
+    """Extra generators of stage ``st`` for the declared rail ripple (``gens``: its own noise
+    sources, ``op``: its operating point)."""
     spec = chain.extra.get("power")
     ripple = getattr(spec, "ripple", None) or {}
     if not ripple:
@@ -91,6 +108,14 @@ def ripple_generators(chain, st, p, s, gens) -> list:
             g = by_label.get("r_g thermal") if st.kind == "opamp_noninverting" else en
             if g is not None:
                 out.append(g._replace(label=f"ripple {rail} (ref)", psd=psd(rail)))
+    elif st.kind in FOLLOWER_SUPPLY and op is not None:
+        fld, label = FOLLOWER_SUPPLY[st.kind]
+        rail = _rail_of(st, fld)
+        base = by_label.get(label)
+        if rail in ripple and base is not None:
+            g_ds = 1.0 / np.asarray(op.values["ro_ohm"], dtype=float)
+            c_gd = p.get("cgd", 0.0) if st.kind == "source_follower" else 0.0
+            out.append(NoiseSource(f"ripple {rail} ({fld}, ro)", psd(rail), in_i=-s * c_gd, out_i=g_ds))
     elif hasattr(st.model, "sections"):
         rails = st.raw.get("__rails__", {})
         fld = next((f for f in ("ref", "bias") if f in rails), None)
@@ -115,9 +140,8 @@ def ripple_notes(chain) -> list:
         if st.kind.startswith("opamp_") and st.params.get("psrr") is None and \
                 any(rails.get(f) in ripple for f in RAIL_FIELDS_OPAMP):
             notes.append(f"'{st.name}' has no psrr: its supply ripple counts as rejected")
-        if st.kind in ("source_follower", "emitter_follower", "common_source", "common_emitter") and \
-                any(r in ripple for r in rails.values()):
-            notes.append(f"'{st.name}': ripple on its supply is not carried (rejected by its output resistance)")
+        if st.kind in ("common_source", "common_emitter") and any(r in ripple for r in rails.values()):
+            notes.append(f"'{st.name}': ripple on its supply is not carried")
         if st.kind == "adc" and any(rails.get(f) in ripple for f in ("fs_high", "fs_low")):
             notes.append(f"'{st.name}': ripple on its reference is not carried")
     return notes

@@ -198,8 +198,23 @@ def metrics(ev) -> dict:
         for key in ("out_vrms", "in_vrms"):
             out[f"noise_{key}"] = per(getattr(nr, key))
         out["snr_db"], out["enob_bits"] = per(nr.snr_db), per(nr.enob_bits)
+    if dc_error_declared(chain):
+        from ..engine.dcerror import unit_errors_of
+        ue = unit_errors_of(ev, any_run=True)
+        for what, key in DC_ERROR_METRICS.items():
+            out[key] = per(ue[what])
     out.update(dynamics_metrics(ev))
     return out
+
+
+#: a unit's DC error (engine/dcerror.py unit_errors) -> metric key, output volts
+DC_ERROR_METRICS = {"offset": "dc_offset_error_v", "gain": "dc_gain_error_v", "drift": "dc_drift_v",
+                    "total": "dc_total_error_v"}
+
+
+def dc_error_declared(chain: Chain) -> bool:
+    from ..engine.dcerror import declared
+    return declared(chain)
 
 
 def dynamics_metrics(ev) -> dict:
@@ -239,7 +254,9 @@ METRICS = {"gain_db": ("gain at f_ref", "dB", 0), "f_low_hz": ("lower −3 dB ed
            "noise_in_vrms": ("input-referred noise", "V", -1), "snr_db": ("SNR", "dB", +1),
            "enob_bits": ("ENOB", "bits", +1), "phase_margin_deg": ("phase margin", "°", +1),
            "peaking_db": ("peaking", "dB", -1), "settling_s": ("step settling time", "s", -1),
-           "settled_bits": ("settled bits", "bits", +1), "startup_s": ("start-up time", "s", -1)}
+           "settled_bits": ("settled bits", "bits", +1), "startup_s": ("start-up time", "s", -1),
+           "dc_offset_error_v": ("DC offset error", "V", -1), "dc_gain_error_v": ("DC gain error", "V", -1),
+           "dc_drift_v": ("DC drift", "V", -1), "dc_total_error_v": ("DC total error", "V", -1)}
 
 
 def metric_info(chain: Chain, key: str) -> tuple[str, str, int]:
@@ -266,6 +283,7 @@ def metric_names(chain: Chain) -> list:
     return (["gain_db", "f_low_hz", "f_high_hz"] + [f"loading_loss_db.{st.name}" for st in chain.stages if st.name not in vg]
             + [f"headroom_v.{n}" for n in chain.nodes] + ["power_w", "buffer_power_w"]
             + (["noise_out_vrms", "noise_in_vrms", "snr_db", "enob_bits"] if has_noise() else [])
+            + (list(DC_ERROR_METRICS.values()) if dc_error_declared(chain) else [])
             + dynamics_names(chain))
 
 
@@ -303,10 +321,11 @@ def _workspace() -> Workspace:
     return ws
 
 
-#: requirement kinds decided by f_ref, at:/band points, the signal band and band-edge windows;
-#: any other kind (noise, flatness, aliasing, DC error, a kind added later) gets the whole grid
+#: requirement kinds decided by f_ref, at:/band points, the signal band and band-edge windows, or
+#: by DC alone (the DC error kinds); any other kind (noise, flatness, aliasing, a kind added later)
+#: gets the whole grid
 NARROW_KINDS = ("min_gain", "max_gain", "min_headroom", "max_loading_loss", "max_buffer_power", "min_f_high",
-                "max_f_low")
+                "max_f_low", "max_offset_error", "max_gain_error", "max_drift", "max_total_error")
 
 
 def requirement_frequencies(chain: Chain, f_hz: np.ndarray) -> np.ndarray:

@@ -415,6 +415,12 @@ class _Views:
         return analyse_dc_errors(self.ev.chain)
 
     @functools.cached_property
+    def unit_errors(self):
+        """Each unit's DC error (engine/dcerror.py unit_errors) in a tolerance run, else None."""
+        from ..engine.dcerror import unit_errors_of
+        return unit_errors_of(self.ev)
+
+    @functools.cached_property
     def loops(self):
         from ..engine.loop import analyse_loops
         return {r.stage: r for r in analyse_loops(self.ev)}
@@ -582,10 +588,13 @@ def _common_mode(v: _Views, r):
 
 def _dc_error(v: _Views, r):
     """The budget's figure (engine/dcerror.py) in the requirement's unit: the nominal chain's
-    worst case (or RSS), the same for every sample of a run."""
+    worst case (or RSS); in a tolerance run each unit's own error at its condition."""
     res = v.dc_errors
     what = ERROR_KINDS[r.key]
     unit = r.unit
+    units = v.unit_errors
+    if units is not None:                 # a tolerance run: each unit's own error (the rule has no part)
+        return res.in_unit(units[what], unit, what), None
     x = res.in_unit(res.total(what, r.rule or "worst_case"), unit, what)
     return np.full(v.n, x), None
 

@@ -21,7 +21,9 @@ for a relative one), read as a data sheet states it (see chainplan.spec.units):
 ``x0 + (w/3)·N(0, 1)`` truncated at ±w (the limit taken as 3σ, common
 practice; draws beyond it are drawn again); ``σ`` is ``x0 + w·N(0, 1)``,
 untruncated.  A coefficient written ``±25ppm/K`` is drawn per unit,
-uniformly within its limit.  Each source draws from its own stream, seeded
+uniformly within its limit, and so is every DC error source (an op-amp's
+``vos``, ``ib``, a converter's ``gain_error``, a node's leakage: a data-sheet
+limit of unknown sign, engine/dcerror.py ``unit_sources``).  Each source draws from its own stream, seeded
 by the run's seed and the source's name, so a result does not depend on the
 chunk size, and adding a tolerance elsewhere does not reshuffle the others.
 
@@ -46,6 +48,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..engine.budget import nominal_params
+from ..engine.dcerror import CAL_KEY, UNIT_KEY, UNITS_MARK, unit_sources
 from ..errors import SpecError, nearest
 from ..spec.model import Chain
 from ..spec.numbers import celsius
@@ -158,6 +161,7 @@ class Draws:
         p = nominal_params(self.chain)
         for (st, fld), v in self.assign.items():
             p[st][fld] = v[sl, None]
+        p[self.chain.source.name][UNITS_MARK] = True      # the DC error requirements: per unit
         return p
 
 
@@ -280,6 +284,7 @@ def sources(chain: Chain) -> list[tuple[str, str]]:
             name = f"tracks.{tc.group}" if tc.group else f"{stage.name}.{fld}.tc"
             if tc.spread and (name, "uniform") not in out:
                 out.append((name, "uniform"))
+    out += [(f"{st}.leakage" if key == "_leak_a" else f"{st}.{key}", "uniform") for st, key, _ in unit_sources(chain)]
     return out + [(f"rails.{rail}", tol.dist) for rail, tol in chain.extra.get("rail_tolerances", {}).items()]
 
 
@@ -311,6 +316,9 @@ def _assemble(d: Draws, unit_of) -> None:
                 u = drawn[name]
                 d.inputs[name] = u if tc.group else abs(tc.value) * u
                 d.assign[(stage.name, f"{fld}@tc")] = abs(tc.value) * u
+    for st, key, lim in unit_sources(chain):        # DC error sources: a limit, sign unknown: uniform within it
+        name = f"{st}.leakage" if key == "_leak_a" else f"{st}.{key}"
+        d.inputs[name] = d.assign[(st, UNIT_KEY + key)] = lim * unit_of(name, "uniform")
     rails = {}
     for rail, tol in chain.extra.get("rail_tolerances", {}).items():
         name = f"rails.{rail}"
@@ -339,7 +347,9 @@ def at_corners(d: Draws, sl: slice, corners: list[Corner]) -> dict:
         for fld, rail in st.raw.get("__rails__", {}).items():
             if rail in moved and np.any(factor != 1.0):
                 base = p[st.name][fld]
+                p[st.name][CAL_KEY + fld] = base          # at nominal supply: a unit's calibration state
                 p[st.name][fld] = (base if np.ndim(base) else np.full((n * k, 1), float(base))) * f_col
+    p[chain.source.name][UNITS_MARK] = True
     return p
 
 
