@@ -183,7 +183,7 @@ def test_advisor_and_placement_leave_the_charge_path_alone():
     a = advise(chain)
     assert [i.reader for i in a.interfaces] == ["end"]           # only the amplifier's output is advised on
     assert {r for _, r, _, _ in a.virtual_ground} == {"coax", "qa"}
-    plan = optimise(chain, Targets(max_loss_db=0.1), time_limit=60)
+    plan = optimise(chain, Targets(max_loss_db=0.1), time_limit=None)
     assert not {p.reader for p in plan.placements} & {"coax", "qa"}
 
 
