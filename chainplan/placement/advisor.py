@@ -22,7 +22,10 @@ of the chain as it is and of a copy with the buffer inserted by
 * headroom after − before at every node (the buffer's own node has no
   "before"), band edges before and after, SNR before and after (when the
   noise analysis is installed), and the buffer's supply power at its operating
-  point there.
+  point there.  A candidate that declares no noise at all (an op-amp with
+  neither ``en`` nor ``in``: ``StageKind.has_noise_data``) gets no SNR after:
+  its figure would be that of a noiseless part, the best of all by absent
+  data; one with some noise fields left at zero lists them (``noise_gaps``).
 
 The spec's requirements are evaluated on every re-analysis as on the chain
 itself (``chainplan.studies.requirements``).  A candidate *breaks* a
@@ -44,7 +47,8 @@ the band by ``band_gain`` (10 %).
   more, and a usable candidate wins back ``needed_net_db`` (1 dB) end to end;
 * worth it — a usable candidate raises the end-to-end gain by ``worth_net_db``
   (0.5 dB, about 6 %) or widens the band by 10 %, without costing more than
-  ``snr_loss_db`` (1 dB) of SNR;
+  ``snr_loss_db`` (1 dB) of SNR (a candidate without noise data, whose SNR
+  cost is unknown, is picked only when no candidate with data qualifies);
 * would clip — some candidates would help, but every one of them clips a node
   or cannot be biased at this node's DC level;
 * against spec — some candidates would help and hold their bias without
@@ -124,6 +128,8 @@ class CandidateEffect:
     new_clips: list[str] = field(default_factory=list)
     breaks: list[Break] = field(default_factory=list)
     rule: str | None = None      # why a placement rule of the spec keeps it from this interface
+    noise_data: bool = True      # False: the candidate declares no noise at all (its SNR would be a noiseless part's)
+    noise_gaps: list[str] = field(default_factory=list)   # its noise-data fields left at zero (noise left out)
 
     @property
     def usable(self) -> bool:
@@ -288,7 +294,9 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
             valid=bool(ev.valid[0]), problem=None,
             loss_after_db=None, recovered_db=None, buffer_gain_db=None, dc_shift_v=None, net_gain_db=None,
             f_low_before_hz=base.f_low, f_low_after_hz=None, f_high_before_hz=base.f_high, f_high_after_hz=None,
-            snr_before_db=base.snr_db, snr_after_db=None, power_w=None, price=cand.price, count=cand.count)
+            snr_before_db=base.snr_db, snr_after_db=None, power_w=None, price=cand.price, count=cand.count,
+            noise_data=cand.stage.model.has_noise_data(cand.stage.params),
+            noise_gaps=cand.stage.model.noise_gaps(cand.stage.params))
         if not out.valid:               # no figures for a bias the device cannot hold
             out.problem = _problem_text(ev, buf)
             return out
@@ -299,7 +307,9 @@ def effect(chain: Chain, base: _Figures, reader: str, cand: Candidate, with_nois
     out.buffer_gain_db = 20 * math.log10(open_gain) if open_gain > 0 else None
     out.dc_shift_v = float(np.ravel(ev.dc.node_v[buf])[0] - np.ravel(ev.dc.node_v[x])[0])
     out.net_gain_db = fig.gain_db - base.gain_db
-    out.f_low_after_hz, out.f_high_after_hz, out.snr_after_db = fig.f_low, fig.f_high, fig.snr_db
+    out.f_low_after_hz, out.f_high_after_hz = fig.f_low, fig.f_high
+    # A candidate without noise data would show the SNR of a noiseless part: no figure, not a winning one.
+    out.snr_after_db = fig.snr_db if out.noise_data else None
     out.power_w = buffer_power(ev, buf, cand)
     for n in new.nodes:
         after, before = fig.headroom[n], base.headroom.get(n)
@@ -406,10 +416,15 @@ def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str,
     ok = [e for e in usable if snr_ok(e) and ((e.net_gain_db or 0.0) >= t["worth_net_db"]
                                               or e.band_gain >= t["band_gain"])]
     if ok:
-        e = ok[0]
+        # The SNR condition is only known for a candidate with noise data: one without
+        # wins only when no candidate with data qualifies, and the reason says so.
+        known = [e for e in ok if e.noise_data or e.snr_before_db is None]
+        e = known[0] if known else ok[0]
         why = _describe(e, basis)
         if e.band_gain >= t["band_gain"] and (e.net_gain_db or 0.0) < t["worth_net_db"]:
             why = f"{e.candidate} widens the band ({_band_text(e)}) for {_watts(e.power_w)}"
+        if not known:
+            why += " (its SNR cost is not known: it has no noise data)"
         return "worth it", f"loses {lost:.2f} dB now; " + why, e.candidate
     helpful = [e for e in effects if e.valid and _helps(e)]
     if helpful and not any(e.usable for e in helpful) or (lost >= t["needed_loss_db"] and not usable):
@@ -431,7 +446,9 @@ def judge(loss_now_db: float, effects: list[CandidateEffect], basis: str,
     return "not worth it", (f"loses only {lost:.2f} dB now; the best candidate ({best.candidate}) changes the "
                             f"end-to-end gain by {_signed(best.net_gain_db)}"
                             + (f" (its own gain is {_signed(best.buffer_gain_db)})"
-                               if best.buffer_gain_db is not None else "")), None
+                               if best.buffer_gain_db is not None else "")
+                            + (f" but the SNR by {_signed(best.snr_change_db)}"
+                               if (best.net_gain_db or 0.0) >= t["worth_net_db"] and not snr_ok(best) else "")), None
 
 
 def break_text(b: Break) -> str:

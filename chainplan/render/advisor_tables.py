@@ -172,6 +172,20 @@ def _details(a: Advice, console, only: str | None) -> None:
                 [break_text(b) for b in e.breaks]
             if why:
                 console.print(Text(f"  {e.candidate}: " + "; ".join(why) + " (never picked)", style="red"))
+        if a.noise:
+            _noise_gap_lines(i.candidates, console)
+
+
+def _noise_gap_lines(effects: list[CandidateEffect], console) -> None:
+    """Which usable candidates' SNR leaves noise out: no data at all, or some fields at zero."""
+    for e in effects:
+        if not e.valid:
+            continue
+        if not e.noise_data:
+            console.print(f"  {e.candidate}: no noise data ({' and '.join(e.noise_gaps)} are 0): its SNR is "
+                          "not known and not compared")
+        elif e.noise_gaps:
+            console.print(f"  {e.candidate}: SNR Δ leaves out the noise of {', '.join(e.noise_gaps)} (0: not given)")
 
 
 def _bias_text(e: CandidateEffect) -> str:
@@ -189,7 +203,7 @@ def _effect_row(e: CandidateEffect, noise: bool) -> list[str]:
         room = _signed_v(w.change_v) if w.before_v is not None else eng(w.after_v, "V")
         node = w.node + (" CLIPS" if w.after_v < 0 else "")
     edge = "above span" if e.f_high_after_hz is None else eng(e.f_high_after_hz, "Hz")
-    snr = [_num(e.snr_change_db)] if noise else []
+    snr = [_num(e.snr_change_db) if e.noise_data else "no noise data"] if noise else []
     return [e.candidate, _num(e.recovered_db), _num(e.buffer_gain_db), _signed_v(e.dc_shift_v), room, node, edge,
             *snr, eng(e.power_w, "W"), _num(e.net_gain_db)]
 
@@ -228,6 +242,7 @@ def _effect_dict(e: CandidateEffect) -> dict:
         "f_low_before_hz": e.f_low_before_hz, "f_low_after_hz": e.f_low_after_hz,
         "f_high_before_hz": e.f_high_before_hz, "f_high_after_hz": e.f_high_after_hz,
         "snr_before_db": e.snr_before_db, "snr_after_db": e.snr_after_db, "snr_change_db": e.snr_change_db,
+        "noise_data": e.noise_data, "noise_gaps": e.noise_gaps,
         "power_w": e.power_w, "price": e.price, "count": e.count, "new_clips": e.new_clips,
         "breaks": [{"requirement": b.requirement, "key": b.key, "value": b.value, "limit": b.limit,
                     "unit": b.unit, "sense": b.sense, "excess": b.excess} for b in e.breaks],

@@ -12,6 +12,7 @@ from .noise_sources import NoiseSource, density, input_noise_fields
 
 class Amplifier(StageKind):
     kind, title = "amplifier", "generic amplifier macro model"
+    NOISE_DATA = ("en", "in")
     FIELDS = {
         "gain": Field("1", "open-circuit voltage gain (V/V, negative for inverting)", required=True),
         "f_3db": Field("Hz", "single-pole bandwidth", default="inf", positive=True, allow_inf=True),

@@ -341,6 +341,11 @@ class StageKind:
     #: groups of alternatives of which exactly one must be given; an alternative is a field
     #: name or a tuple of names given together (``("w_over_l", ("w", "l"))``)
     ONE_OF: tuple[tuple, ...] = ()
+    #: the noise data a user gives (densities, 1/f corners) whose zero means "not given"; an
+    #: item may be a tuple of alternatives, any one of which gives that noise (("flicker_corner", "kf"))
+    NOISE_DATA: tuple = ()
+    #: the kind's device physics makes noise of its own whatever its data (channel, shot noise)
+    intrinsic_noise: bool = False
 
     # -- small signal --------------------------------------------------
     def abcd(self, p: dict, s, op: Op) -> ABCD:  # pragma: no cover - abstract
@@ -386,6 +391,26 @@ class StageKind:
     def nominal_reference(self, p: dict, op: Op) -> dict:
         """Extra parameters taken from the nominal operating point ``op`` (see :meth:`wants_reference`)."""
         return {}
+
+    # -- noise data (the buffer advice marks a candidate without it) -------------
+    def noise_fields_used(self, p: dict) -> list[tuple]:
+        """The NOISE_DATA items (each a tuple of alternative fields) that apply to these
+        parameters: ``<x>_noise`` only when ``x`` is given (a sink's noise needs the sink)."""
+        items = [(f,) if isinstance(f, str) else tuple(f) for f in self.NOISE_DATA]
+        return [alt for alt in items
+                if all(f in self.FIELDS for f in alt)
+                and not any(f.endswith("_noise") and f[:-6] in self.FIELDS and p.get(f[:-6]) is None for f in alt)]
+
+    def noise_gaps(self, p: dict) -> list[str]:
+        """The applicable noise data left at zero (every alternative of it): noise this stage's
+        figures leave out, named as written ('flicker_corner or kf')."""
+        given = lambda f: np.any(np.asarray(p.get(f, 0.0), dtype=float) > 0)  # noqa: E731
+        return [" or ".join(alt) for alt in self.noise_fields_used(p) if not any(given(f) for f in alt)]
+
+    def has_noise_data(self, p: dict) -> bool:
+        """False when the stage would be noiseless only because no noise data was given."""
+        used = self.noise_fields_used(p)
+        return self.intrinsic_noise or not used or len(self.noise_gaps(p)) < len(used)
 
 
 Check = Callable[[dict], str | None]

@@ -20,6 +20,7 @@ from .noise_sources import NoiseSource, follower_low_side_noise, shot, sink_nois
 
 class EmitterFollower(StageKind):
     kind, title, follower_type = "emitter_follower", "BJT emitter follower (NPN)", True
+    NOISE_DATA, intrinsic_noise = ("i_bias_noise",), True   # shot noise from the operating point
     draws_input_current = True
     FIELDS = {
         **bjt_fields(),

@@ -94,6 +94,8 @@ def inv_open_loop(p, s):
 
 
 class _OpAmp(StageKind):
+    NOISE_DATA = ("en", "in")
+
     def _limits(self, p):
         out = (p["v_neg"] + p["swing_low"], p["v_pos"] - p["swing_high"])
         cm = (p["v_neg"] + p["cm_low"], p["v_pos"] - p["cm_high"])

@@ -22,6 +22,7 @@ from .noise_sources import (MosfetNoiseChecks, NoiseSource, follower_low_side_no
 
 class SourceFollower(MosfetNoiseChecks, StageKind):
     kind, title, follower_type = "source_follower", "MOSFET source follower (NMOS)", True
+    NOISE_DATA, intrinsic_noise = (("flicker_corner", "kf"), "i_bias_noise"), True   # channel thermal noise from gm
     FIELDS = {
         **mosfet_fields(),
         "i_bias": Field("A", "bias current sink from the source to v_low", positive=True),
