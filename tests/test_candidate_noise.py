@@ -114,7 +114,7 @@ def test_a_candidate_without_noise_data_is_marked_and_not_picked_on_it(tmp_path,
     assert not bare.noise_data and bare.snr_after_db is None and bare.snr_change_db is None
     assert spec.noise_data and spec.snr_change_db is not None and spec.snr_change_db > -1.0
     monkeypatch.setenv("COLUMNS", "120")
-    assert main(["buffers", str(f)]) == 0
+    assert main(["buffers", str(f), "--details"]) == 0        # every candidate: the long form
     out = capsys.readouterr().out
     line = next(ln for ln in out.splitlines() if ln.startswith("bare "))
     assert "no noise data" in line
