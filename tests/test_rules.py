@@ -22,41 +22,17 @@ from chainplan.spec.insert import insert_buffers
 from chainplan.spec.loader import load_chain
 from chainplan.spec.parts import candidates_of
 from chainplan.spec.rules import excluded
+from test_advisor import CHAIN as ADVICE_CHAIN
 
 REPO = Path(__file__).resolve().parent.parent
 
-CHAIN = """\
-name: rules-test
-temperature: 300 K
-rails:
-  vdd: 3.3 V
-  vmid: 1.65 V
-include: [parts/followers.yaml]
-source:
-  name: probe
-  kind: sensor
-  amplitude: 50 mV
-  dc: vmid
-  r: 100k
-stages:
+#: the advisor tests' chain (a 100 kΩ probe on 10 m of cable into a converter), its rules appended
+CHAIN = ADVICE_CHAIN.format(dc="vmid", r="100k", stages="""\
   - name: lead
     kind: cable
     length: 10 m
     c_per_m: 100 pF/m
-  - name: adc
-    kind: adc
-    bits: 12
-    fs_low: 0 V
-    fs_high: vdd
-    r_in: 10k
-    c_in: 20 pF
-    ref: vmid
-analysis:
-  f_ref: 1 kHz
-  f_start: 10 Hz
-  f_stop: 10 MHz
-  points: 201
-{rules}"""
+""") + "{rules}"
 
 
 def make(tmp_path, rules=""):

@@ -5,6 +5,7 @@ import math
 
 from ..spec.numbers import figure
 from ..spec.safety import safety_notice
+from ..studies.montecarlo import Z95
 from ..studies.rare import DEFENSIVE, RareResult
 from .layout import Col, print_table
 from .tables import chain_heading
@@ -45,7 +46,7 @@ def rare_tables(res: RareResult, console, gate=None) -> None:
     if res.regions or res.requirements:
         rows, styles = [], []
         for name, p, se in res.requirements:
-            lo, hi = max(0.0, p - 1.96 * se), p + 1.96 * se
+            lo, hi = max(0.0, p - Z95 * se), p + Z95 * se
             rows.append([name, rate(p), _interval(lo, hi)] if p > 0 else [name, "none seen", "—"])
             styles.append(None)
         lo, hi = res.interval

@@ -446,12 +446,12 @@ def run_draws(d: Draws, seed: int = 0, chunk: int | None = None, progress=None, 
     slices = [slice(i, min(i + chunk, d.n)) for i in range(0, d.n, chunk)]
     workers = min(workers or os.cpu_count() or 1, MAX_WORKERS, max(len(slices), 1))
     parts_m, parts_r, parts_v, parts_cp, parts_ck = [], [], [], [], []
-    if client is not None:
-        from .cluster import map_in_order
-        results = map_in_order(client, _remote_chunk, [d.take(sl) for sl in slices], corners=corners,
-                               f_corner=f_corner, corner_units=corner_units)
     with ThreadPoolExecutor(max_workers=workers) as pool:
-        if client is None:
+        if client is not None:          # a dask cluster (chainplan.studies.cluster): the same chunks, in order
+            from .cluster import map_in_order
+            results = map_in_order(client, _remote_chunk, [d.take(sl) for sl in slices], corners=corners,
+                                   f_corner=f_corner, corner_units=corner_units)
+        else:
             results = pool.map(lambda sl: _chunk(d, sl, corners, f_corner, corner_units), slices)
         for sl, (m, r, v, cp, ck) in zip(slices, results):
             parts_m.append(m)
